@@ -1,0 +1,1 @@
+"""The fit stage: a Bayesian multivariate animal model per population, in PyMC."""

@@ -1,0 +1,98 @@
+"""The data of one population's fit, prepared once and handed to either engine.
+
+:class:`FitData` is the contract between data preparation (reading the phenotype table, pruning
+the pedigree, building design matrices, standardising) and the two engines (``marginal`` and
+``latent``). Engines work on the standardised scale; results go back to original units with
+``y_center`` and ``y_scale``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..pedigree.core import Pedigree
+
+
+@dataclass
+class RandomEffect:
+    """An extra random effect with its own covariance matrix across traits.
+
+    Attributes
+    ----------
+    name : str
+        Name used in outputs (``cov_<name>`` in posterior.nc).
+    column : str
+        The grouping column in the phenotype table.
+    level : numpy.ndarray of int64, shape (n_records,)
+        Level of each record, 0..n_levels-1.
+    levels : list of str
+        Level labels.
+    """
+
+    name: str
+    column: str
+    level: np.ndarray
+    levels: list[str]
+
+    @property
+    def n_levels(self) -> int:
+        return len(self.levels)
+
+
+@dataclass
+class FitData:
+    """Everything an engine needs for one population.
+
+    Attributes
+    ----------
+    population : str
+    traits : list of str
+    pedigree : Pedigree
+        The pruned pedigree: phenotyped animals and their informative ancestors.
+    phenotyped : numpy.ndarray of bool, shape (n_animals,)
+        Whether each pedigree animal has at least one record.
+    record_animal : numpy.ndarray of int64, shape (n_records,)
+        Position in ``pedigree`` of the animal of each record.
+    y : numpy.ndarray, shape (n_records, t)
+        Standardised records ((y - y_center) / y_scale), NaN where missing.
+    y_center, y_scale : numpy.ndarray, shape (t,)
+        Per-trait mean and phenotypic SD of the raw records.
+    X : numpy.ndarray, shape (n_records, p)
+        Fixed-effect design shared by all traits; column 0 is the intercept. Numeric covariates
+        are centred; categorical ones are treatment-coded against their first level.
+    x_names : list of str
+        Names of the columns of X.
+    random : list of RandomEffect
+    """
+
+    population: str
+    traits: list[str]
+    pedigree: Pedigree
+    phenotyped: np.ndarray
+    record_animal: np.ndarray
+    y: np.ndarray
+    y_center: np.ndarray
+    y_scale: np.ndarray
+    X: np.ndarray
+    x_names: list[str]
+    random: list[RandomEffect] = field(default_factory=list)
+
+    @property
+    def n_traits(self) -> int:
+        return self.y.shape[1]
+
+    @property
+    def n_records(self) -> int:
+        return self.y.shape[0]
+
+    @property
+    def missing(self) -> np.ndarray:
+        """Boolean mask (n_records, t) of missing trait values."""
+        return np.isnan(self.y)
+
+    @property
+    def repeated_records(self) -> bool:
+        """Whether some animal has more than one record."""
+        return len(np.unique(self.record_animal)) < len(self.record_animal)
