@@ -145,3 +145,76 @@ def load_fit(fit_dir: str | os.PathLike) -> Fit:
                G=draws("G"), R=draws("R"), P=draws("P"), mean=draws("mean"),
                chain=np.asarray(stacked["chain"].values), pedigree_used=ped_used,
                phenotyped=phenotyped, path=fit_dir)
+
+
+def thin_indices(n_draws: int, max_draws: int | None) -> np.ndarray:
+    """Evenly spaced indices of at most ``max_draws`` of ``n_draws`` pooled draws (all if None)."""
+    if max_draws is None or max_draws >= n_draws:
+        return np.arange(n_draws)
+    return np.unique(np.linspace(0, n_draws - 1, int(max_draws)).round().astype(int))
+
+
+@dataclass
+class FitSet:
+    """Several populations' fits aligned for comparison.
+
+    Attributes
+    ----------
+    populations : list of str
+    traits : list of str
+    G, R, P : numpy.ndarray, shape (S, m, t, t)
+        Draw s of every population (draws thinned to a common count S).
+    mean : numpy.ndarray, shape (S, m, t)
+    draw_index : numpy.ndarray, shape (S,)
+        Which pooled draw of each fit was used.
+    fits : list of Fit
+    """
+
+    populations: list[str]
+    traits: list[str]
+    G: np.ndarray
+    R: np.ndarray
+    P: np.ndarray
+    mean: np.ndarray
+    draw_index: np.ndarray
+    fits: list[Fit]
+
+
+def load_fit_set(fit_dirs: list[str | os.PathLike], max_draws: int | None = None) -> FitSet:
+    """Load and align the fits of several populations.
+
+    Draws are paired by position after thinning every fit to the same number of draws
+    (the smallest count, or ``max_draws``).
+
+    Raises
+    ------
+    UserError
+        Fewer than two fits, two fits of the same population, or fits whose trait sets or
+        trait orders differ.
+    """
+    if len(fit_dirs) < 2:
+        raise UserError(f"comparisons need at least two populations' fits; got {len(fit_dirs)}")
+    fits = [load_fit(d) for d in fit_dirs]
+    first = fits[0]
+    seen: dict[str, Path] = {}
+    for fit in fits:
+        if fit.population in seen:
+            raise UserError(f"fits {seen[fit.population]} and {fit.path} are both of population "
+                            f"'{fit.population}'; give each population once")
+        seen[fit.population] = fit.path
+        if fit.traits != first.traits:
+            if sorted(fit.traits) == sorted(first.traits):
+                raise UserError(f"fit {fit.path} has the traits in another order ({', '.join(fit.traits)}) "
+                                f"than {first.path} ({', '.join(first.traits)}); refit with one trait order")
+            raise UserError(f"fit {fit.path} has traits ({', '.join(fit.traits)}) that differ from "
+                            f"{first.path} ({', '.join(first.traits)}); fit every population on the same traits")
+    n = min(len(f.G) for f in fits)
+    index = thin_indices(n, max_draws)
+
+    def stack(name: str) -> np.ndarray:
+        return np.stack([getattr(f, name)[index] for f in fits], axis=1)
+
+    G = stack("G")
+    return FitSet(populations=[f.population for f in fits], traits=list(first.traits),
+                  G=0.5 * (G + np.swapaxes(G, -1, -2)), R=stack("R"), P=stack("P"),
+                  mean=stack("mean"), draw_index=index, fits=fits)
