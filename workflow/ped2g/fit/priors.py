@@ -1,0 +1,124 @@
+"""Priors shared by both engines, on the standardised scale (each trait's phenotypic SD = 1).
+
+Covariance matrices (G, R and each extra random effect's) all get the same prior, the
+separation strategy of Barnard, McCulloch & Meng (2000, *Statistica Sinica* 10:1281-1311) [M]::
+
+    Sigma = diag(s) Omega diag(s),   s_j ~ HalfNormal(sd_scale)  or  HalfStudentT(3, sd_scale),
+    Omega ~ LKJ(eta)                 (Lewandowski, Kurowicka & Joe 2009, *J. Multivar. Anal.* 100:1989)
+
+sampled through the Cholesky factor of Sigma (``pymc.LKJCholeskyCov``). Because the traits are
+standardised, ``sd_scale`` is relative to each trait's phenotypic SD. With
+``model.fixed_covariances`` G and R are held at given matrices (original units, converted here).
+
+Fixed effects: ``beta[x, j] ~ Normal(0, fixed_sd)`` independently (standardised scale).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pymc as pm
+import pytensor.tensor as pt
+
+from ..errors import UserError
+
+SD_FAMILIES = ("half_normal", "half_t")
+HALF_T_NU = 3.0
+
+
+def _sd_dist(priors: dict[str, Any], n: int):
+    scale = float(priors.get("sd_scale", 1.0))
+    family = priors.get("sd_family", "half_normal")
+    if family == "half_normal":
+        return pm.HalfNormal.dist(sigma=scale, shape=n)
+    if family == "half_t":
+        return pm.HalfStudentT.dist(nu=HALF_T_NU, sigma=scale, shape=n)
+    raise UserError(f"config key 'model.priors.sd_family' is {family!r}; allowed: {', '.join(SD_FAMILIES)}")
+
+
+def covariance_prior(name: str, n_traits: int, priors: dict[str, Any],
+                     fixed: np.ndarray | None = None) -> tuple[pt.TensorVariable, pt.TensorVariable]:
+    """Create the covariance matrix ``name`` in the current PyMC model.
+
+    Parameters
+    ----------
+    name
+        Name of the Deterministic holding the (t, t) matrix ("G", "R", "cov_maternal", ...).
+    n_traits
+        t.
+    priors
+        ``config["model"]["priors"]`` (keys sd_scale, sd_family, lkj_eta).
+    fixed
+        A (t, t) matrix on the standardised scale to hold the covariance at; None estimates it.
+
+    Returns
+    -------
+    (cov, chol)
+        The covariance matrix and a lower-triangular factor with ``chol @ chol.T == cov``.
+    """
+    if fixed is not None:
+        fixed = np.asarray(fixed, dtype=float)
+        chol_np = np.linalg.cholesky(fixed)
+        cov = pm.Deterministic(name, pt.as_tensor_variable(fixed))
+        return cov, pt.as_tensor_variable(chol_np)
+    if n_traits == 1:
+        sd = _register_sd(name, priors)
+        chol = sd.reshape((1, 1))
+        cov = pm.Deterministic(name, chol * chol)
+        return cov, chol
+    chol, _, _ = pm.LKJCholeskyCov(f"{name}_chol", n=n_traits, eta=float(priors.get("lkj_eta", 2.0)),
+                                   sd_dist=_sd_dist(priors, n_traits), compute_corr=True,
+                                   store_in_trace=False)
+    cov = pm.Deterministic(name, chol @ chol.T)
+    return cov, chol
+
+
+def _register_sd(name: str, priors: dict[str, Any]) -> pt.TensorVariable:
+    scale = float(priors.get("sd_scale", 1.0))
+    family = priors.get("sd_family", "half_normal")
+    if family == "half_normal":
+        return pm.HalfNormal(f"{name}_sd", sigma=scale, shape=1)
+    if family == "half_t":
+        return pm.HalfStudentT(f"{name}_sd", nu=HALF_T_NU, sigma=scale, shape=1)
+    raise UserError(f"config key 'model.priors.sd_family' is {family!r}; allowed: {', '.join(SD_FAMILIES)}")
+
+
+def fixed_effects_prior(n_x: int, n_traits: int, priors: dict[str, Any]) -> pt.TensorVariable:
+    """The fixed effects ``beta`` (p, t), Normal(0, fixed_sd) on the standardised scale."""
+    sd = float(priors.get("fixed_sd", 10.0))
+    return pm.Normal("beta", mu=0.0, sigma=sd, shape=(n_x, n_traits))
+
+
+def fixed_covariances(model_config: dict[str, Any], y_scale: np.ndarray,
+                      traits: list[str]) -> dict[str, np.ndarray] | None:
+    """``model.fixed_covariances`` converted to the standardised scale, checked.
+
+    ``Sigma_std = Sigma / (s s')`` with s the phenotypic SDs (``FitData.y_scale``).
+
+    Raises
+    ------
+    UserError
+        If a matrix has the wrong shape, is not symmetric or is not positive definite.
+    """
+    given = model_config.get("fixed_covariances")
+    if given is None:
+        return None
+    t = len(traits)
+    scale = np.outer(y_scale, y_scale)
+    out = {}
+    for key in ("G", "R"):
+        try:
+            m = np.asarray(given[key], dtype=float)
+        except (TypeError, ValueError):
+            raise UserError(f"config key 'model.fixed_covariances.{key}' must be a {t}x{t} matrix of numbers "
+                            f"(one row per trait: {', '.join(traits)})") from None
+        if m.shape != (t, t):
+            raise UserError(f"config key 'model.fixed_covariances.{key}' has shape {m.shape}; it must be "
+                            f"{t}x{t}, one row and column per trait ({', '.join(traits)})")
+        if not np.allclose(m, m.T, rtol=1e-10, atol=1e-12):
+            raise UserError(f"config key 'model.fixed_covariances.{key}' is not symmetric")
+        if np.linalg.eigvalsh(m)[0] <= 0:
+            raise UserError(f"config key 'model.fixed_covariances.{key}' is not positive definite")
+        out[key] = m / scale
+    return out
