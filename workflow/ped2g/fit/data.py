@@ -61,10 +61,18 @@ class FitData:
         Per-trait mean and phenotypic SD of the raw records.
     X : numpy.ndarray, shape (n_records, p)
         Fixed-effect design shared by all traits; column 0 is the intercept. Numeric covariates
-        are centred; categorical ones are treatment-coded against their first level.
+        are centred and scaled (see x_scale); categorical ones are treatment-coded against their
+        first level.
     x_names : list of str
         Names of the columns of X.
     random : list of RandomEffect
+    x_scale : numpy.ndarray, shape (p,), optional
+        Numeric covariates are centred and divided by their SD so that one prior scale suits
+        them; ``x_scale`` holds those SDs (1 for the intercept and the dummy columns). A
+        coefficient in original units is ``beta[x, j] * y_scale[j] / x_scale[x]``.
+    notes : list of str
+        What preparation changed (animals added as founders, records dropped, ...), for the logs
+        and diagnostics.json.
     """
 
     population: str
@@ -78,6 +86,8 @@ class FitData:
     X: np.ndarray
     x_names: list[str]
     random: list[RandomEffect] = field(default_factory=list)
+    x_scale: np.ndarray | None = None
+    notes: list[str] = field(default_factory=list)
 
     @property
     def n_traits(self) -> int:

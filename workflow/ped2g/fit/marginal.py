@@ -1,0 +1,245 @@
+"""The marginal engine: breeding values integrated out exactly.
+
+Model (standardised scale; records r = 1..n, traits k)::
+
+    Y = X beta + Z a + sum_c Z_c u_c + E,   cov(vec a) = A (x) G,  rows of E ~ N(0, R)
+
+Integrating ``a`` out, the rows of ``Y`` are jointly normal with covariance
+``K (x) G + I (x) R`` (record-major), ``K = Z A_pp Z'`` the relationships between the records'
+animals (A_pp: the phenotyped animals; their ancestors marginalise out). With ``K = U Lambda U'``
+computed once (``numpy.linalg.eigh``, O(n^3)), the rotated records ``U'(Y - X beta - ...)`` are
+independent, row i with covariance ``lambda_i G + R``. The log-likelihood is then a sum of n small
+normal log-densities (:mod:`ped2g.fit.batched_normal`), O(n k^3) per gradient after the O(n p k)
+products by the pre-rotated designs ``U'X`` and ``U'Z_c``. This is the classic rotation used to
+make animal-model likelihoods cheap (e.g. Thompson & Shaw 1990 [M]; the same as the "spectral
+decomposition" trick of linear mixed model software, common practice).
+
+What NUTS samples: the covariance parameters, the fixed effects, the missing trait values (as
+parameters; the rotation mixes records so the missing cells cannot simply be dropped; this is
+exact, each enters through a pre-rotated column of ``U'``) and, for extra random effects, their
+levels in non-centred form ``u_c = W_c L_c'`` with ``W_c`` standard normal.
+
+Breeding values are drawn afterwards from their exact conditional distribution given each draw by
+pathwise conditioning (Matheron's rule; e.g. Wilson et al. 2020, ICML [M])::
+
+    a_post = a_prior + (A[:, p] Z' V^{-1} (Y* - Z a_prior - e_prior)) G
+
+with ``a_prior`` simulated down the pedigree, ``e_prior ~ N(0, R)``, ``Y*`` the records with the
+fixed and extra random effects removed, ``V^{-1}`` applied in the rotated basis and ``A[:, p] M``
+computed as a sparse solve with A-inverse. With ``conditional_mean=True`` the prior terms are left
+out, which gives the BLUP when G and R are known (Henderson 1975).
+
+Limits: the dense ``U`` costs ``8 n^2`` bytes and the eigendecomposition O(n^3) time, so
+:func:`applicable` refuses data sets above :data:`MAX_RECORDS` records (use the latent engine).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.linalg
+import scipy.sparse.linalg
+
+from .data import FitData
+from .priors import covariance_prior, fixed_covariances, fixed_effects_prior
+
+#: Largest number of records for the dense eigendecomposition (U alone is 8 n^2 bytes: 0.8 GB here).
+MAX_RECORDS = 10_000
+#: Largest total size (in float64 cells) of the pre-rotated projections of missing cells and
+#: extra random-effect levels (n_records x (n_missing + n_levels)); 2.5e8 cells = 2 GB.
+MAX_PROJECTION_CELLS = 2.5e8
+
+
+@dataclass
+class Rotation:
+    """The one-off eigendecomposition ``K = U diag(lam) U'`` and the pre-rotated arrays."""
+
+    U: np.ndarray            # (n, n)
+    lam: np.ndarray          # (n,)
+    rot_y: np.ndarray        # (n, t): U' y with missing cells set to 0
+    rot_X: np.ndarray        # (n, p)
+    rot_missing: list[np.ndarray]   # per trait j: (n, n_missing_j), columns of U' at the missing rows
+    missing_rows: list[np.ndarray]  # per trait j: record positions of the missing cells
+    rot_Z: list[np.ndarray]  # per extra random effect: (n, n_levels)
+    seconds: float           # time taken by the eigendecomposition
+
+
+def _projection_cells(data: FitData) -> float:
+    n = data.n_records
+    return float(n) * (int(data.missing.sum()) + sum(r.n_levels for r in data.random))
+
+
+def applicable(data: FitData) -> tuple[bool, str]:
+    """Whether the marginal engine can fit these data; if not, why.
+
+    It needs a dense eigendecomposition of the n x n record relationship matrix, so it is limited
+    to :data:`MAX_RECORDS` records, and to pre-rotated projections of at most
+    :data:`MAX_PROJECTION_CELLS` cells (missing trait values and extra random-effect levels).
+    """
+    n = data.n_records
+    if n > MAX_RECORDS:
+        return False, (f"{n} records exceed the marginal engine's limit of {MAX_RECORDS} "
+                       f"(dense {n}x{n} eigendecomposition, {8 * n * n / 1e9:.1f} GB)")
+    cells = _projection_cells(data)
+    if cells > MAX_PROJECTION_CELLS:
+        return False, (f"missing trait values and extra random-effect levels need "
+                       f"{8 * cells / 1e9:.1f} GB of pre-rotated projections (limit "
+                       f"{8 * MAX_PROJECTION_CELLS / 1e9:.1f} GB)")
+    return True, (f"{n} records: dense eigendecomposition of the record relationships "
+                  f"({8 * n * n / 1e6:.0f} MB)")
+
+
+def record_relationships(data: FitData) -> np.ndarray:
+    """``K = Z A_pp Z'``: the additive relationships between the animals of every pair of records."""
+    from ..pedigree.relationships import relationship_matrix
+
+    animals, inverse = np.unique(data.record_animal, return_inverse=True)
+    A_pp = relationship_matrix(data.pedigree, subset=animals)
+    return A_pp[np.ix_(inverse, inverse)]
+
+
+def rotation(data: FitData) -> Rotation:
+    """Compute (once per FitData; cached on the object) the eigendecomposition and rotated arrays."""
+    cached = getattr(data, "_marginal_rotation", None)
+    if cached is not None:
+        return cached
+    import time
+
+    start = time.perf_counter()
+    K = record_relationships(data)
+    lam, U = scipy.linalg.eigh(K, overwrite_a=True, check_finite=False, driver="evd")
+    lam = np.clip(lam, 0.0, None)
+    seconds = time.perf_counter() - start
+    Ut = np.ascontiguousarray(U.T)
+    miss = data.missing
+    y0 = np.where(miss, 0.0, data.y)
+    rot_missing = []
+    missing_rows = []
+    for j in range(data.n_traits):
+        rows = np.flatnonzero(miss[:, j])
+        missing_rows.append(rows)
+        rot_missing.append(np.ascontiguousarray(Ut[:, rows]))
+    rot_Z = []
+    for eff in data.random:
+        # U' Z_c: sum the columns of U' over the records of each level.
+        Zc = np.zeros((data.n_records, eff.n_levels))
+        Zc[np.arange(data.n_records), eff.level] = 1.0
+        rot_Z.append(Ut @ Zc)
+    rot = Rotation(U=U, lam=lam, rot_y=Ut @ y0, rot_X=Ut @ data.X, rot_missing=rot_missing,
+                   missing_rows=missing_rows, rot_Z=rot_Z, seconds=seconds)
+    object.__setattr__(data, "_marginal_rotation", rot)
+    return rot
+
+
+def build_model(data: FitData, model_config: dict):
+    """The PyMC model with the breeding values integrated out (see the module docstring).
+
+    Free variables: the covariance priors of G, R and each extra effect, ``beta`` (p, t),
+    ``missing`` (one value per missing cell, trait by trait, record order within a trait) and
+    ``<name>_z`` (levels x t) per extra random effect.
+    """
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    from .batched_normal import scaled_pair_logp
+
+    rot = rotation(data)
+    t = data.n_traits
+    priors = model_config.get("priors", {}) or {}
+    fixed = fixed_covariances(model_config, data.y_scale, data.traits)
+    coords = {"trait": data.traits, "trait2": data.traits, "x": data.x_names}
+    with pm.Model(coords=coords) as model:
+        G, _ = covariance_prior("G", t, priors, None if fixed is None else fixed["G"])
+        R, _ = covariance_prior("R", t, priors, None if fixed is None else fixed["R"])
+        beta = fixed_effects_prior(len(data.x_names), t, priors)
+        lam = pm.Data("rot_lambda", rot.lam)
+        rot_y = pm.Data("rot_y", rot.rot_y)
+        rot_X = pm.Data("rot_X", rot.rot_X)
+        resid = rot_y - rot_X @ beta
+        for c, eff in enumerate(data.random):
+            cov_c, chol_c = covariance_prior(f"cov_{eff.name}", t, priors)
+            z = pm.Normal(f"{eff.name}_z", 0.0, 1.0, shape=(eff.n_levels, t))
+            rot_Z = pm.Data(f"rot_Z_{eff.name}", rot.rot_Z[c])
+            resid = resid - rot_Z @ (z @ chol_c.T)
+        n_missing = [len(r) for r in rot.missing_rows]
+        total_missing = sum(n_missing)
+        if total_missing:
+            missing = pm.Flat("missing", shape=total_missing)
+        cols = []
+        start = 0
+        for j in range(t):
+            col = resid[:, j]
+            if n_missing[j]:
+                proj = pm.Data(f"rot_missing_{j}", rot.rot_missing[j])
+                col = col + pt.dot(proj, missing[start:start + n_missing[j]])
+                start += n_missing[j]
+            cols.append(col)
+        pm.Potential("loglik", scaled_pair_logp(cols, lam, G, R).sum())
+    return model
+
+
+def _posterior_draws(idata, name: str, index: np.ndarray) -> np.ndarray:
+    arr = idata.posterior[name].values
+    arr = arr.reshape(-1, *arr.shape[2:])
+    return arr[index]
+
+
+def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: int | None = None,
+                    conditional_mean: bool = False, chunk: int = 32) -> np.ndarray:
+    """Breeding values of every pedigree animal, (S, n_animals, t), standardised scale.
+
+    Exact conditional draws (or, with ``conditional_mean=True``, conditional means) given each
+    posterior draw of G, R, beta, the missing values and the extra random effects; see the module
+    docstring for the formula. Draws are processed in chunks of ``chunk``.
+    """
+    from ..pedigree.relationships import ainverse
+    from ..posterior import thin_indices
+    from ..simulate.breeding_values import simulate_breeding_values
+
+    rot = rotation(data)
+    post = idata.posterior
+    n_total = post.sizes["chain"] * post.sizes["draw"]
+    index = thin_indices(n_total, max_draws)
+    G = _posterior_draws(idata, "G", index)
+    R = _posterior_draws(idata, "R", index)
+    beta = _posterior_draws(idata, "beta", index)
+    missing = _posterior_draws(idata, "missing", index) if "missing" in post else None
+    extras = []
+    for eff in data.random:
+        z = _posterior_draws(idata, f"{eff.name}_z", index)
+        chol = np.linalg.cholesky(_posterior_draws(idata, f"cov_{eff.name}", index))
+        extras.append((eff, np.einsum("slk,sjk->slj", z, chol)))
+    ped = data.pedigree
+    n_all, n, t = ped.n, data.n_records, data.n_traits
+    lu = scipy.sparse.linalg.splu(ainverse(ped).tocsc())
+    y0 = np.where(data.missing, 0.0, data.y)
+    out = np.empty((len(index), n_all, t))
+    for lo in range(0, len(index), chunk):
+        sl = slice(lo, min(lo + chunk, len(index)))
+        S = sl.stop - sl.start
+        ystar = np.broadcast_to(y0, (S, n, t)).copy()
+        if missing is not None:
+            start = 0
+            for j, rows in enumerate(rot.missing_rows):
+                ystar[:, rows, j] = missing[sl, start:start + len(rows)]
+                start += len(rows)
+        ystar -= np.einsum("rp,spt->srt", data.X, beta[sl])
+        for eff, u in extras:
+            ystar -= u[sl][:, eff.level, :]
+        if conditional_mean:
+            prior = np.zeros((S, n_all, t))
+            d = ystar
+        else:
+            prior = simulate_breeding_values(ped, G[sl], rng)
+            e = rng.standard_normal((S, n, t)) @ np.swapaxes(np.linalg.cholesky(R[sl]), -1, -2)
+            d = ystar - prior[:, data.record_animal, :] - e
+        d_rot = np.matmul(rot.U.T, d)                               # (S, n, t)
+        V = rot.lam[None, :, None, None] * G[sl][:, None] + R[sl][:, None]
+        w_rot = np.linalg.solve(V, d_rot[..., None])[..., 0]
+        w = np.matmul(rot.U, w_rot)                                  # V^{-1} d, (S, n, t)
+        padded = np.zeros((n_all, S, t))
+        np.add.at(padded, data.record_animal, np.swapaxes(w, 0, 1))
+        x = lu.solve(padded.reshape(n_all, S * t)).reshape(n_all, S, t)
+        out[sl] = prior + np.einsum("ast,stv->sav", x, G[sl])
+    return out
