@@ -19,7 +19,7 @@ DEFINITIONS = {
     "maternal_half_sib_families": "dams with two or more offspring that do not all share one "
                                   "known sire",
     "max_generation": "largest generation number; founders are generation 0 and every other "
-                      "animal is one more than its later-born known parent",
+                      "animal is one more than the larger generation number of its known parents",
     "inbred_animals": "animals with inbreeding coefficient F > 1e-12",
     "inbreeding": "Wright's F relative to the founders, who are assumed unrelated and not "
                   "inbred; unknown parents are treated as founders, so F is a lower bound "
