@@ -1,0 +1,56 @@
+"""Number formatting and HTML tables of the report."""
+
+import math
+
+import numpy as np
+import pandas as pd
+
+from ped2g.report.html import fmt, key_values, table
+
+
+def test_fmt_rounds_to_significant_figures():
+    # Expected strings follow from the definition of rounding to 3 significant figures.
+    assert fmt(3.14159) == "3.14"
+    assert fmt(0.0012345) == "0.00123"
+    assert fmt(1234.4) == "1234"  # 4 integer digits are kept, never hidden behind an exponent
+    assert fmt(9.9996) == "10.0"  # rounds up across a power of ten without a spurious digit
+    assert fmt(-0.5) == "-0.500"
+    assert fmt(1.0117, 4) == "1.012"
+
+
+def test_fmt_uses_exponent_only_for_extreme_magnitudes():
+    assert fmt(2.5e-7) == "2.50e-07"
+    assert fmt(3.2e8) == "3.20e+08"
+
+
+def test_fmt_special_values():
+    assert fmt(None) == ""
+    assert fmt(float("nan")) == ""
+    assert fmt(math.inf) == "inf"
+    assert fmt(0.0) == "0"
+    assert fmt(7) == "7"
+    assert fmt(np.int64(12)) == "12"
+    assert fmt(True) == "yes"
+    assert fmt("north") == "north"
+
+
+def test_table_marks_exactly_the_missed_cells():
+    frame = pd.DataFrame({"parameter": ["a", "b"], "r_hat": [1.0, 1.2]})
+    misses = pd.DataFrame({"parameter": [False, False], "r_hat": [False, True]})
+    out = str(table(frame, misses=misses))
+    assert out.count('class="miss"') == 1
+    assert '<td class="miss">1.20</td>' in out
+    assert out.count('class="miss-row"') == 1
+
+
+def test_table_escapes_text_and_limits_rows():
+    frame = pd.DataFrame({"id": ["<script>", "x", "y"]})
+    out = str(table(frame, max_rows=2))
+    assert "<script>" not in out and "&lt;script&gt;" in out
+    assert "1 more rows are in the CSV table" in out
+    assert out.count("<tr>") == 3  # header + 2 rows
+
+
+def test_key_values_shows_nested_values_as_json():
+    out = str(key_values({"estimator": "mendelian", "sizes": [3, 4]}))
+    assert "mendelian" in out and "[3, 4]" in out

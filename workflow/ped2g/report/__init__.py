@@ -1,0 +1,1 @@
+"""The report stage: one HTML report with figures, tables, methods, provenance and cautions."""

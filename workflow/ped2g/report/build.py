@@ -1,0 +1,444 @@
+"""Assemble the report: read the stage outputs, make tables and figures, render one HTML page.
+
+The page has these sections, in this order (their ``id`` in the HTML in brackets): what was run
+(``run``), the data (``data``), fit diagnostics (``diagnostics``), estimates (``estimates``),
+comparisons (``comparisons``), methods (``methods``), provenance (``provenance``) and cautions
+(``cautions``). Every figure is written as PNG and PDF under ``figures/`` and embedded in the
+page as a ``data:`` URI; every table is written as CSV under ``tables/``.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import yaml
+from markupsafe import Markup
+
+from ..io import output_dir, write_json
+from . import html, tables
+from .figures import (MAX_RANK_PANELS, FigureStore, comparison_figure, covariance_unit,
+                      g_heatmaps_figure, heritability_figure, pairwise_matrix_figure,
+                      rank_plots_figure, slug)
+from .loaders import ResultInputs, read_phenotypes, read_results
+from .methods_text import CAUTION_REFERENCES, REFERENCES, cautions, methods_paragraph
+from .provenance import checksums, package_versions, run_context, stage_records
+
+SECTION_ORDER = [
+    ("run", "What was run"),
+    ("data", "The data"),
+    ("diagnostics", "Fit diagnostics"),
+    ("estimates", "Estimates"),
+    ("comparisons", "Comparisons, observed against the null"),
+    ("methods", "Methods"),
+    ("provenance", "Provenance"),
+    ("cautions", "Cautions: assumptions and how to read the results"),
+]
+#: Short labels for the navigation bar.
+NAV_LABELS = {"comparisons": "Comparisons", "cautions": "Cautions"}
+METHOD_TITLES = {
+    "skewers": "Random skewers",
+    "subspace": "Krzanowski common subspace (eigenvalues of H)",
+    "tensor": "Genetic covariance tensor (eigentensors, loadings, coordinates)",
+    "gmax": "g_max and its angle to divergence",
+    "evolvability": "Evolvability measures",
+    "distance": "Riemannian distance between G matrices",
+}
+METHOD_NOTES = {
+    "skewers": "Mean correlation between two populations' responses to the same random selection "
+               "gradients: 1 means the same direction of response, 0 unrelated directions.",
+    "subspace": "Eigenvalues of H range from 0 to the number of populations; an eigenvalue equal to the "
+                "number of populations means that direction lies in every population's leading subspace.",
+    "tensor": "Variance among populations along each eigentensor: the first eigentensor is the pattern of "
+              "(co)variance that differs most among populations.",
+    "gmax": "Angle in degrees between g_max and the divergence vector: 0 means divergence along the "
+            "line of most genetic variance, 90 perpendicular to it.",
+    "evolvability": "Average response along random unit selection gradients (Hansen & Houle 2008).",
+    "distance": "Zero for equal matrices; larger values mean more different matrices.",
+}
+MAX_HTML_ROWS = 60
+MAX_FOREST_ROWS = 60
+
+
+@dataclass
+class Section:
+    id: str
+    title: str
+    blocks: list[tuple[str, Any]] = field(default_factory=list)
+
+    def text(self, text: str) -> None:
+        self.blocks.append(("text", text))
+
+    def note(self, text: str) -> None:
+        self.blocks.append(("note", text))
+
+    def heading(self, text: str) -> None:
+        self.blocks.append(("heading", text))
+
+    def table(self, markup: Markup) -> None:
+        self.blocks.append(("html", markup))
+
+    def figure(self, fig) -> None:
+        self.blocks.append(("figure", fig))
+
+    def items(self, items: list[str]) -> None:
+        self.blocks.append(("list", items))
+
+    def row(self, markups: list[Markup]) -> None:
+        self.blocks.append(("row", markups))
+
+    def pre(self, text: str) -> None:
+        self.blocks.append(("pre", text))
+
+
+@dataclass
+class ReportResult:
+    """What :func:`build_report` wrote and found."""
+
+    out: Path
+    figures: list[str]
+    tables: list[str]
+    failed_fits: list[str]
+    seconds: float
+
+
+class _Tables:
+    """Writes each table as CSV under ``tables/`` and remembers its name."""
+
+    def __init__(self, folder: Path):
+        self.folder = folder
+        self.names: list[str] = []
+
+    def save(self, name: str, frame: pd.DataFrame) -> str:
+        self.folder.mkdir(parents=True, exist_ok=True)
+        name = slug(name)
+        frame.to_csv(self.folder / f"{name}.csv", index=False)
+        self.names.append(name)
+        return f"tables/{name}.csv"
+
+
+def _resolve_input(path: str, config_path: Path | None) -> Path:
+    p = Path(path)
+    if p.is_absolute() or p.exists() or config_path is None:
+        return p
+    beside = config_path.parent / p
+    return beside if beside.exists() else p
+
+
+def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
+                 config_path: str | Path | None = None, argv: list[str] | None = None) -> ReportResult:
+    """Write ``report.html``, ``figures/``, ``tables/``, ``methods.txt`` and ``provenance.json``.
+
+    Parameters
+    ----------
+    config
+        The validated config (defaults filled in, see :func:`ped2g.config.load_config`).
+    results
+        The results folder (holding ``fits/`` and optionally ``pedigree/``, ``null/``,
+        ``compare/``), or its parent.
+    out
+        The report folder; written through :func:`ped2g.io.output_dir`, so a failed build leaves
+        nothing that looks finished.
+    """
+    from jinja2 import Environment, PackageLoader, select_autoescape
+
+    start = time.perf_counter()
+    config_path = Path(config_path) if config_path else None
+    inputs = read_results(results, list(config["populations"]))
+    traits = next(iter(inputs.fits.values())).traits
+    pops = inputs.populations
+    units = dict(config["report"]["units"])
+    checks = config["checks"]
+    mass = config["compare"]["interval_mass"]
+    pheno_path = _resolve_input(config["data"]["phenotypes"], config_path)
+    pedigree_path = _resolve_input(config["data"]["pedigree"], config_path)
+    pheno = read_phenotypes(pheno_path, config["data"]["columns"]["population"], traits)
+    versions = package_versions()
+
+    with output_dir(out) as tmp:
+        store = FigureStore(tmp / "figures")
+        saved = _Tables(tmp / "tables")
+        sections = {sid: Section(sid, title) for sid, title in SECTION_ORDER}
+
+        # -- what was run ---------------------------------------------------------------------
+        settings = tables.run_settings(config, inputs)
+        saved.save("run_settings", settings)
+        sections["run"].table(html.table(settings))
+
+        # -- the data --------------------------------------------------------------------------
+        _data_section(sections["data"], inputs, pheno, pheno_path, traits, saved)
+
+        # -- diagnostics -----------------------------------------------------------------------
+        failed = _diagnostics_section(sections["diagnostics"], inputs, checks, saved, store)
+
+        # -- estimates -------------------------------------------------------------------------
+        _estimates_section(sections["estimates"], inputs, traits, units, mass, saved, store)
+
+        # -- comparisons -----------------------------------------------------------------------
+        has_null_cols = _comparisons_section(sections["comparisons"], inputs, pops, config, saved, store)
+
+        # -- methods ---------------------------------------------------------------------------
+        engines = sorted({str(f.diagnostics["engine"]) for f in inputs.fits.values()
+                          if f.diagnostics and f.diagnostics.get("engine")})
+        n_changes = None if inputs.pedigree_changes is None else len(inputs.pedigree_changes)
+        paragraph, refs = methods_paragraph(config, pops, traits, engines, n_changes,
+                                            passed=len(pops) - len(failed),
+                                            methods=list(inputs.compare), null_present=inputs.null_present,
+                                            versions=versions)
+        refs = sorted(set(refs) | {REFERENCES[k] for k in CAUTION_REFERENCES})
+        sec = sections["methods"]
+        sec.note("Generated from the settings and outputs of this run; adapt it for a paper and keep "
+                 "the versions. The same text is in methods.txt.")
+        sec.text(paragraph)
+        sec.heading("References")
+        sec.items(refs)
+        (tmp / "methods.txt").write_text(paragraph + "\n\nReferences\n\n" + "\n".join(refs) + "\n",
+                                         encoding="utf-8")
+
+        # -- provenance ------------------------------------------------------------------------
+        prov = _provenance_section(sections["provenance"], config, config_path, inputs,
+                                   [pedigree_path, pheno_path], versions, saved, argv)
+
+        # -- cautions --------------------------------------------------------------------------
+        sections["cautions"].items(cautions(config, failed, inputs.null_present, has_null_cols, n_changes))
+
+        env = Environment(loader=PackageLoader("ped2g.report", "templates"),
+                          autoescape=select_autoescape(["html", "j2"]))
+        page = env.get_template("report.html.j2").render(
+            title=config["report"]["title"], populations=pops, traits=traits,
+            sections=[sections[sid] for sid, _ in SECTION_ORDER], nav=NAV_LABELS, made=prov["context"]["report made (UTC)"],
+            version=versions.get("ped2g", ""), failed=failed)
+        (tmp / "report.html").write_text(page, encoding="utf-8")
+        prov["context"]["report seconds"] = round(time.perf_counter() - start, 2)
+        write_json(tmp / "provenance.json", prov)
+    return ReportResult(out=Path(out), figures=[f.name for f in store.figures], tables=saved.names,
+                        failed_fits=failed, seconds=time.perf_counter() - start)
+
+
+# ---------------------------------------------------------------------------------------------
+# Sections
+# ---------------------------------------------------------------------------------------------
+def _data_section(sec: Section, inputs: ResultInputs, pheno, pheno_path: Path, traits: list[str],
+                  saved: _Tables) -> None:
+    sec.heading("Pedigree per population")
+    ped = tables.pedigree_by_population(inputs)
+    if ped is None:
+        sec.note("No fit folder has pedigree_used.csv, so the pedigree per population cannot be shown.")
+    else:
+        saved.save("pedigree_by_population", ped)
+        sec.note("From each fit's pedigree_used.csv: the phenotyped animals and their ancestors that the "
+                 "model used. Founders have neither parent known; generations count founders as 1.")
+        sec.table(html.table(ped))
+    if inputs.pedigree_summary:
+        sec.heading("Pedigree stage summary")
+        sec.table(html.key_values(inputs.pedigree_summary))
+    sec.heading("Phenotype records and missingness")
+    counts = tables.phenotype_counts(pheno, inputs.populations, traits)
+    if counts is None:
+        sec.note(f"The phenotype table ({pheno_path}) was not found, so record counts are not shown.")
+    else:
+        saved.save("phenotype_counts", counts)
+        sec.note("Counted from the phenotype table named in the config; a cell that is not a number "
+                 "counts as missing.")
+        sec.table(html.table(counts))
+    sec.heading("Changes the pedigree stage made")
+    changes = inputs.pedigree_changes
+    if changes is None:
+        sec.note("No pedigree/changes.csv was found, so the changes made to the raw pedigree are unknown.")
+    elif changes.empty:
+        sec.text("The pedigree stage made no changes: the raw pedigree passed every check.")
+    else:
+        path = saved.save("pedigree_changes", changes)
+        by = tables.changes_by_problem(changes)
+        sec.text(f"{len(changes)} change{'s' if len(changes) != 1 else ''} to the raw pedigree "
+                 f"(all listed in {path}).")
+        if by is not None:
+            saved.save("pedigree_changes_by_problem", by)
+            sec.table(html.table(by))
+        sec.table(html.table(changes, max_rows=MAX_HTML_ROWS))
+
+
+def _diagnostics_section(sec: Section, inputs: ResultInputs, checks: dict[str, Any], saved: _Tables,
+                         store: FigureStore) -> list[str]:
+    summary, detail, sources = tables.diagnostics(inputs, checks)
+    saved.save("diagnostics_summary", summary)
+    saved.save("diagnostics_parameters", detail)
+    failed = summary.loc[~summary["passed"].astype(bool), "population"].tolist()
+    sec.text(f"Checks: R-hat ≤ {checks['max_rhat']}, bulk and tail ESS ≥ {checks['min_ess']}, "
+             f"divergences ≤ {checks['max_divergences']}. Highlighted cells miss a check.")
+    if failed:
+        sec.note("Fits that miss a check: " + ", ".join(failed) + ". Their estimates are not reliable.")
+    else:
+        sec.text("Every fit met every check.")
+    sec.table(html.table(summary, misses=tables.summary_misses(summary, checks), digits={"max_r_hat": 4}))
+    no_div = summary.loc[summary["divergences"].isna(), "population"].tolist()
+    if no_div:
+        sec.note("Divergences were not recorded for " + ", ".join(no_div) + ", so those fits cannot pass.")
+    sec.heading("Per parameter")
+    for pop, src in sources.items():
+        sec.note(f"{pop}: R-hat and ESS {src}.")
+    missed = detail[detail["miss"] != ""]
+    shown = pd.concat([missed, detail[detail["miss"] == ""]]).head(MAX_HTML_ROWS)
+    sec.table(html.table(shown.reset_index(drop=True),
+                         misses=tables.detail_misses(shown.reset_index(drop=True), checks),
+                         digits={"r_hat": 4}))
+    if len(detail) > len(shown):
+        sec.note(f"{len(detail) - len(shown)} more parameters (all meeting the checks) are in "
+                 "tables/diagnostics_parameters.csv; every miss is shown above.")
+    sec.heading("Rank plots of the elements of G")
+    sec.note("Each chain's draws ranked among all chains: with good mixing every line is flat at the "
+             f"dashed level. Elements are shown worst R-hat first, at most {MAX_RANK_PANELS} per population.")
+    for pop, fit in inputs.fits.items():
+        elements = tables.element_draws(fit, "G")
+        rhat = detail[detail["population"] == pop].set_index("parameter")["r_hat"]
+        order = sorted(elements, key=lambda k: -float(rhat.get(k, 0.0)) if np.isfinite(rhat.get(k, 0.0)) else -np.inf)
+        chosen = {k: elements[k] for k in order[:MAX_RANK_PANELS]}
+        sec.figure(store.add(f"rank_{pop}", rank_plots_figure(chosen, pop),
+                             f"Rank plots, {pop}",
+                             f"Rank plots of the G elements of population {pop}, one line per chain."))
+    return failed
+
+
+def _estimates_section(sec: Section, inputs: ResultInputs, traits: list[str], units: dict[str, str],
+                       mass: float, saved: _Tables, store: FigureStore) -> None:
+    est = tables.estimates(inputs, mass)
+    saved.save("estimates", est)
+    pops = inputs.populations
+    unit = covariance_unit(traits, units)
+    sec.text(f"Posterior median with its {mass:.0%} HPD interval in brackets. G, R and P are in original "
+             f"units ({unit}); h2 and r_G are unitless. All values, with means and SDs, are in "
+             "tables/estimates.csv.")
+    med, lo, hi = {}, {}, {}
+    for pop, fit in inputs.fits.items():
+        d = tables.draws_of(fit, "G")
+        med[pop] = np.median(d, axis=0)
+        part = est[(est["population"] == pop) & (est["quantity"] == "G")]
+        lo[pop], hi[pop] = np.full_like(med[pop], np.nan), np.full_like(med[pop], np.nan)
+        idx = {t: i for i, t in enumerate(traits)}
+        for r in part.itertuples():
+            i, j = idx[r.trait], idx[r.trait2]
+            lo[pop][i, j] = lo[pop][j, i] = r.hpd_lower
+            hi[pop][i, j] = hi[pop][j, i] = r.hpd_upper
+    sec.figure(store.add("g_heatmaps", g_heatmaps_figure(med, lo, hi, traits, units), "G per population",
+                         "Posterior median G of each population on one colour scale (HPD intervals in "
+                         "brackets for up to four traits)."))
+    if {"h2", "rg"} & set(est["quantity"]):
+        sec.figure(store.add("heritability_correlation", heritability_figure(est, pops, traits),
+                             "Heritabilities and genetic correlations",
+                             f"Posterior median and {mass:.0%} HPD interval of each heritability and "
+                             "genetic correlation, per population."))
+    for pop in pops:
+        sec.heading(f"{pop}")
+        row = []
+        for quantity, label in (("G", "G, additive genetic (co)variances"), ("R", "R, residual (co)variances"),
+                                ("P", "P, phenotypic (co)variances"), ("h2", "heritabilities"),
+                                ("rg", "genetic correlations")):
+            if not ((est["population"] == pop) & (est["quantity"] == quantity)).any():
+                continue
+            frame = tables.estimate_matrix(est, pop, quantity, traits)
+            frame.index.name = ""
+            row.append(html.table(frame, index=True, caption=label))
+        sec.row(row)
+
+
+def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], config: dict[str, Any],
+                         saved: _Tables, store: FigureStore) -> bool:
+    mass = config["compare"]["interval_mass"]
+    scale = config["compare"]["scale"]
+    if inputs.null_summary is not None:
+        sec.heading("Randomisation null")
+        sec.table(html.key_values(inputs.null_summary))
+    elif not inputs.null_present:
+        sec.note("No randomisation null was found (null/null_G.nc): the comparisons below have no null "
+                 "reference. Run 'ped2g null' and 'ped2g compare' to add one.")
+    if not inputs.compare:
+        sec.note("No comparison tables were found (compare/*.csv): run 'ped2g compare' to add them.")
+        return False
+    sec.text(f"Observed statistics (blue) against the same statistics on the null G's (grey), each as "
+             f"posterior median and {mass:.0%} HPD interval; G matrices on the {scale} scale. "
+             "p_obs_gt_null is the paired posterior probability that the observed value exceeds the null.")
+    has_null_cols = False
+    for method, frame in inputs.compare.items():
+        sec.heading(METHOD_TITLES.get(method, method))
+        if method in METHOD_NOTES:
+            sec.text(METHOD_NOTES[method])
+        display = tables.compare_display(frame)
+        has_null_cols |= "null_estimate" in display and display["null_estimate"].notna().any()
+        saved.save(f"compare_{method}", display)
+        compact = tables.compare_compact(display, mass)
+        sec.table(html.table(compact, misses=_no_overlap(compact), max_rows=MAX_HTML_ROWS))
+        for statistic, part in frame.groupby("statistic", sort=False):
+            part = part.reset_index(drop=True)
+            base = f"compare_{method}_{statistic}"
+            pairwise = "population2" in part and part["population2"].notna().all() and \
+                "population" in part and "index" not in part.columns
+            if pairwise and len(pops) > 2:
+                sec.figure(store.add(f"{base}_matrix", pairwise_matrix_figure(part, pops, str(statistic),
+                                                                              str(statistic)),
+                                     f"{statistic}, matrix", f"Posterior median {statistic} between every "
+                                     "pair of populations."))
+            if len(part) <= MAX_FOREST_ROWS:
+                sec.figure(store.add(base, comparison_figure(part, str(statistic),
+                                                             f"{statistic} (median and {mass:.0%} HPD)"),
+                                     f"{statistic}", f"{METHOD_TITLES.get(method, method)}: {statistic}, "
+                                     "observed against the null."))
+            else:
+                sec.note(f"{statistic} has {len(part)} rows, too many to plot; see tables/compare_{method}.csv.")
+    return bool(has_null_cols)
+
+
+def _no_overlap(display: pd.DataFrame) -> pd.DataFrame | None:
+    if "intervals overlap" not in display:
+        return None
+    mask = pd.DataFrame(False, index=display.index, columns=display.columns)
+    mask["intervals overlap"] = display["intervals overlap"] == "no"
+    return mask.reset_index(drop=True)
+
+
+def _provenance_section(sec: Section, config: dict[str, Any], config_path: Path | None,
+                        inputs: ResultInputs, input_files: list[Path], versions: dict[str, str],
+                        saved: _Tables, argv: list[str] | None) -> dict[str, Any]:
+    context = run_context(argv)
+    sec.heading("This report")
+    sec.table(html.key_values(context))
+    sec.heading("Config")
+    sec.note("The config as used, with every default filled in.")
+    sec.pre(yaml.safe_dump(config, sort_keys=False, allow_unicode=True))
+    sec.heading("Input files")
+    files = [p for p in [config_path, *input_files] if p is not None]
+    in_sums = checksums(files)
+    saved.save("checksums_inputs", pd.DataFrame(in_sums))
+    sec.table(html.table(pd.DataFrame(in_sums)))
+    sec.heading("Stage outputs read")
+    out_sums = checksums(inputs.files_read, relative_to=inputs.root)
+    saved.save("checksums_results", pd.DataFrame(out_sums))
+    sec.table(html.table(pd.DataFrame(out_sums)))
+    sec.heading("Package versions")
+    vt = pd.DataFrame(list(versions.items()), columns=["package", "version"])
+    saved.save("package_versions", vt)
+    sec.table(html.table(vt))
+    records: dict[str, dict[str, Any] | None] = {"pedigree": inputs.pedigree_summary,
+                                                "null": inputs.null_summary}
+    for pop, fit in inputs.fits.items():
+        records[f"fit {pop}"] = fit.diagnostics
+    times, seeds = stage_records(records)
+    sec.heading("Seeds")
+    seed_rows = [{"stage": "config", "record": "sampling.seed", "value": config["sampling"]["seed"]}] + seeds
+    sec.note("Every random stream of the run is derived from the config's one seed (named streams per "
+             "stage and population), so the same config and seed give the same numbers.")
+    sec.table(html.table(pd.DataFrame(seed_rows)))
+    sec.heading("Run times")
+    if times:
+        sec.table(html.table(pd.DataFrame(times)))
+    else:
+        sec.note("The stages recorded no run times.")
+    return {"context": context, "inputs": in_sums, "results": out_sums, "versions": versions,
+            "seeds": seed_rows, "run_times": times, "config": json.loads(json.dumps(config, default=str))}
+
+
+__all__ = ["build_report", "ReportResult", "SECTION_ORDER"]

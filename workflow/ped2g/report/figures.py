@@ -1,0 +1,279 @@
+"""The report's figures (matplotlib, Agg backend; seaborn styling).
+
+Each ``*_figure`` function returns a :class:`matplotlib.figure.Figure` built only from the data
+passed in. :class:`FigureStore` writes every figure as PNG and PDF and keeps the PNG bytes for
+embedding in the HTML page as a ``data:`` URI.
+"""
+
+from __future__ import annotations
+
+import base64
+import io
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import pandas as pd  # noqa: E402
+import seaborn as sns  # noqa: E402
+from matplotlib.colors import TwoSlopeNorm  # noqa: E402
+from matplotlib.figure import Figure  # noqa: E402
+from scipy.stats import rankdata  # noqa: E402
+
+from .html import fmt  # noqa: E402
+from .tables import row_labels  # noqa: E402
+
+PNG_DPI = 130
+OBSERVED_COLOUR = "#0072B2"
+NULL_COLOUR = "#999999"
+MAX_RANK_PANELS = 12
+
+sns.set_theme(context="notebook", style="whitegrid", font_scale=0.9)
+
+
+def slug(text: str) -> str:
+    """A file-name-safe version of ``text`` (letters, digits, underscores)."""
+    return re.sub(r"[^A-Za-z0-9]+", "_", str(text)).strip("_").lower() or "x"
+
+
+@dataclass
+class StoredFigure:
+    name: str
+    title: str
+    caption: str
+    png: bytes
+
+    @property
+    def data_uri(self) -> str:
+        return "data:image/png;base64," + base64.b64encode(self.png).decode("ascii")
+
+
+@dataclass
+class FigureStore:
+    """Saves figures as ``<folder>/<name>.png`` and ``.pdf`` and keeps them for the HTML page."""
+
+    folder: Path
+    figures: list[StoredFigure] = field(default_factory=list)
+
+    def add(self, name: str, fig: Figure, title: str, caption: str) -> StoredFigure:
+        self.folder.mkdir(parents=True, exist_ok=True)
+        name = slug(name)
+        if any(f.name == name for f in self.figures):
+            raise ValueError(f"two figures named {name}")
+        buf = io.BytesIO()
+        fig.savefig(buf, format="png", dpi=PNG_DPI, bbox_inches="tight")
+        png = buf.getvalue()
+        (self.folder / f"{name}.png").write_bytes(png)
+        fig.savefig(self.folder / f"{name}.pdf", format="pdf", bbox_inches="tight",
+                    metadata={"CreationDate": None})
+        plt.close(fig)
+        stored = StoredFigure(name=name, title=title, caption=caption, png=png)
+        self.figures.append(stored)
+        return stored
+
+
+def trait_label(trait: str, units: dict[str, str]) -> str:
+    """``trait (unit)`` when the config gives a unit for the trait."""
+    unit = units.get(trait)
+    return f"{trait} ({unit})" if unit else trait
+
+
+def covariance_unit(traits: list[str], units: dict[str, str]) -> str:
+    """Unit text for covariances of the traits: ``mm²`` when all share one unit."""
+    given = {units.get(t) for t in traits}
+    if len(given) == 1 and None not in given:
+        return f"{given.pop()}²"
+    if given == {None}:
+        return "trait units squared"
+    return "product of the two traits' units"
+
+
+# ---------------------------------------------------------------------------------------------
+# Estimates
+# ---------------------------------------------------------------------------------------------
+def g_heatmaps_figure(medians: dict[str, np.ndarray], lowers: dict[str, np.ndarray],
+                      uppers: dict[str, np.ndarray], traits: list[str],
+                      units: dict[str, str]) -> Figure:
+    """Heatmap of the posterior median G of each population on one shared colour scale.
+
+    Cells show the median and, for up to four traits, the HPD interval below it.
+    """
+    pops = list(medians)
+    m, t = len(pops), len(traits)
+    ncol = min(m, 3)
+    nrow = int(np.ceil(m / ncol))
+    cell = 1.25 if t <= 4 else 0.7
+    size = max(3.2, cell * t + 1.2)
+    fig, axes = plt.subplots(nrow, ncol, figsize=(size * ncol + 1.6, size * nrow + 0.6), squeeze=False,
+                             gridspec_kw={"wspace": 0.12, "hspace": 0.35})
+    stack = np.stack([medians[p] for p in pops])
+    lim = float(np.nanmax(np.abs(stack))) or 1.0
+    lowest = float(np.nanmin(stack))
+    if lowest < 0:
+        norm, cmap = TwoSlopeNorm(vmin=-lim, vcenter=0.0, vmax=lim), "RdBu_r"
+    else:
+        norm, cmap = plt.Normalize(vmin=0.0, vmax=lim), "Blues"
+    labels = [trait_label(tr, units) for tr in traits]
+    mappable = None
+    for k, ax in enumerate(axes.flat):
+        if k >= m:
+            ax.set_visible(False)
+            continue
+        pop = pops[k]
+        mappable = ax.imshow(medians[pop], cmap=cmap, norm=norm)
+        for i in range(t):
+            for j in range(t):
+                value = medians[pop][i, j]
+                text = fmt(value)
+                if t <= 4:
+                    text += f"\n[{fmt(lowers[pop][i, j])}, {fmt(uppers[pop][i, j])}]"
+                dark = abs(norm(value) - 0.5) > 0.3 if lowest < 0 else norm(value) > 0.6
+                ax.text(j, i, text, ha="center", va="center", fontsize=8 if t <= 4 else 7,
+                        color="white" if dark else "black")
+        ax.set_xticks(range(t), labels, rotation=40, ha="right")
+        ax.set_yticks(range(t), labels if k % ncol == 0 else [""] * t)
+        ax.set_title(f"G, {pop}")
+        ax.grid(False)
+    cbar = fig.colorbar(mappable, ax=axes.ravel().tolist(), shrink=0.8)
+    cbar.set_label(f"posterior median ({covariance_unit(traits, units)})")
+    return fig
+
+
+def heritability_figure(table: pd.DataFrame, populations: list[str], traits: list[str]) -> Figure:
+    """Forest plot of h2 per trait and rg per trait pair, each population with its HPD interval."""
+    h2 = table[table["quantity"] == "h2"]
+    rg = table[table["quantity"] == "rg"]
+    pairs = [(a, b) for i, a in enumerate(traits) for b in traits[i + 1:]]
+    panels = [("heritability h² (proportion of phenotypic variance)", h2, [(t, "") for t in traits],
+               (0.0, 1.0))]
+    if pairs:
+        panels.append(("genetic correlation r_G", rg, pairs, (-1.0, 1.0)))
+    heights = [max(len(rows), 1) for _, _, rows, _ in panels]
+    fig, axes = plt.subplots(1, len(panels), figsize=(5.2 * len(panels), 0.45 * max(heights) * len(populations) + 1.6),
+                             squeeze=False)
+    palette = sns.color_palette("colorblind", len(populations))
+    for ax, (xlabel, part, rows, xlim) in zip(axes.flat, panels):
+        offsets = np.linspace(-0.3, 0.3, len(populations)) if len(populations) > 1 else np.zeros(1)
+        for k, pop in enumerate(populations):
+            sub = part[part["population"] == pop].set_index(["trait", "trait2"])
+            ys, med, lo, hi = [], [], [], []
+            for y, key in enumerate(rows):
+                if key in sub.index:
+                    r = sub.loc[key]
+                    ys.append(y + offsets[k])
+                    med.append(r["median"]); lo.append(r["hpd_lower"]); hi.append(r["hpd_upper"])
+            med, lo, hi = map(np.asarray, (med, lo, hi))
+            ax.errorbar(med, ys, xerr=[med - lo, hi - med], fmt="o", color=palette[k], capsize=2,
+                        label=pop, markersize=4)
+        ax.set_yticks(range(len(rows)), [a if not b else f"{a} × {b}" for a, b in rows])
+        ax.invert_yaxis()
+        ax.set_xlim(*xlim)
+        if xlim[0] < 0:
+            ax.axvline(0.0, color="0.4", lw=0.8)
+        ax.set_xlabel(xlabel)
+    fig.tight_layout(rect=(0, 0, 1, 0.93))
+    handles, names = axes.flat[0].get_legend_handles_labels()
+    fig.legend(handles, names, title="population", loc="upper center", ncol=min(len(populations), 6),
+               fontsize=8, frameon=False)
+    return fig
+
+
+# ---------------------------------------------------------------------------------------------
+# Diagnostics
+# ---------------------------------------------------------------------------------------------
+def rank_plots_figure(elements: dict[str, np.ndarray], population: str, bins: int = 20) -> Figure:
+    """Rank plots (Vehtari et al. 2021): per element, a histogram of each chain's pooled ranks.
+
+    ``elements`` maps a label to draws of shape (chain, draw). With good mixing every chain's
+    histogram is flat at ``draws / bins`` (the dashed line).
+    """
+    names = list(elements)
+    n = len(names)
+    ncol = min(n, 4)
+    nrow = int(np.ceil(n / ncol))
+    fig, axes = plt.subplots(nrow, ncol, figsize=(3.1 * ncol, 2.3 * nrow), squeeze=False)
+    for ax, name in zip(axes.flat, names):
+        x = np.asarray(elements[name], dtype=float)
+        chains, draws = x.shape
+        ranks = rankdata(x.ravel()).reshape(x.shape)
+        edges = np.linspace(0.5, x.size + 0.5, bins + 1)
+        palette = sns.color_palette("colorblind", chains)
+        for c in range(chains):
+            counts, _ = np.histogram(ranks[c], bins=edges)
+            ax.stairs(counts, edges, color=palette[c], lw=1.2, label=f"chain {c}")
+        ax.axhline(draws / bins, color="0.3", ls="--", lw=0.8)
+        ax.set_title(name, fontsize=9)
+        ax.set_xlabel("rank (all chains pooled)", fontsize=8)
+        ax.set_ylabel("draws per bin", fontsize=8)
+        ax.tick_params(labelsize=7)
+        ax.set_ylim(bottom=0)
+    for ax in list(axes.flat)[n:]:
+        ax.set_visible(False)
+    axes.flat[0].legend(fontsize=7, loc="lower right")
+    fig.suptitle(f"Rank plots of G elements, {population}", y=1.0)
+    fig.tight_layout()
+    return fig
+
+
+# ---------------------------------------------------------------------------------------------
+# Comparisons
+# ---------------------------------------------------------------------------------------------
+def comparison_figure(frame: pd.DataFrame, statistic: str, xlabel: str) -> Figure:
+    """Forest plot of one statistic: observed estimate and HPD, beside the null's when present."""
+    labels = row_labels(frame)
+    y = np.arange(len(frame))
+    has_null = {"null_estimate", "null_lower", "null_upper"} <= set(frame.columns) and \
+        frame["null_estimate"].notna().any()
+    fig, ax = plt.subplots(figsize=(7.5, 0.42 * len(frame) + 1.4))
+    shift = 0.17 if has_null else 0.0
+
+    def draw(est, lo, hi, offset, colour, label):
+        est, lo, hi = (np.asarray(v, dtype=float) for v in (est, lo, hi))
+        ok = np.isfinite(lo) & np.isfinite(hi)
+        err = np.where(ok, [est - np.where(ok, lo, est), np.where(ok, hi, est) - est], 0.0)
+        ax.errorbar(est, y + offset, xerr=np.abs(err), fmt="o", color=colour, capsize=2,
+                    markersize=4, label=label)
+
+    lo = frame["lower"] if "lower" in frame else np.full(len(frame), np.nan)
+    hi = frame["upper"] if "upper" in frame else np.full(len(frame), np.nan)
+    draw(frame["estimate"], lo, hi, -shift, OBSERVED_COLOUR, "observed")
+    if has_null:
+        draw(frame["null_estimate"], frame["null_lower"], frame["null_upper"], shift, NULL_COLOUR,
+             "randomisation null")
+    ax.set_yticks(y, labels)
+    ax.invert_yaxis()
+    ax.set_xlabel(xlabel)
+    ax.set_title(statistic)
+    ax.grid(axis="y", visible=False)
+    ax.legend(fontsize=8, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
+    fig.tight_layout()
+    return fig
+
+
+def pairwise_matrix_figure(frame: pd.DataFrame, populations: list[str], statistic: str,
+                           value_label: str) -> Figure:
+    """Heatmap of a pairwise statistic (population x population), symmetric, cells annotated."""
+    pops = [p for p in populations if p in set(frame["population"]) | set(frame["population2"])]
+    pops += sorted((set(frame["population"]) | set(frame["population2"])) - set(pops))
+    index = {p: i for i, p in enumerate(pops)}
+    mat = np.full((len(pops), len(pops)), np.nan)
+    for r in frame.itertuples():
+        i, j = index[r.population], index[r.population2]
+        mat[i, j] = mat[j, i] = r.estimate
+    size = max(3.2, 0.6 * len(pops) + 1.8)
+    fig, ax = plt.subplots(figsize=(size + 1.2, size))
+    annot = np.vectorize(lambda v: fmt(v) if np.isfinite(v) else "")(mat)
+    sns.heatmap(mat, ax=ax, annot=annot, fmt="", cmap="viridis", square=True,
+                xticklabels=pops, yticklabels=pops, cbar_kws={"label": value_label},
+                mask=~np.isfinite(mat))
+    ax.grid(False)
+    ax.set_xlabel("population")
+    ax.set_ylabel("population")
+    ax.set_title(statistic)
+    fig.tight_layout()
+    return fig

@@ -1,0 +1,88 @@
+"""Small HTML helpers for the report: number formatting and tables with highlighted cells."""
+
+from __future__ import annotations
+
+import html
+import math
+from typing import Any
+
+import pandas as pd
+from markupsafe import Markup
+
+
+def fmt(value: Any, digits: int = 3) -> str:
+    """Format a number for reading: ``digits`` significant figures, plain notation when sensible.
+
+    Integers stay integers; NaN and None print as an empty string.
+    """
+    if value is None:
+        return ""
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, int) or (hasattr(value, "dtype") and getattr(value.dtype, "kind", "") in "iu"):
+        return str(int(value))
+    try:
+        x = float(value)
+    except (TypeError, ValueError):
+        return str(value)
+    if math.isnan(x):
+        return ""
+    if math.isinf(x):
+        return "inf" if x > 0 else "-inf"
+    if x == 0:
+        return "0"
+    if 1e6 > abs(x) >= 10 ** (digits - 1):
+        return f"{x:.0f}"  # large numbers keep all their integer digits
+    x = float(f"{x:.{digits}g}")  # round to significant figures first (9.9996 -> 10.0)
+    magnitude = math.floor(math.log10(abs(x)))
+    if magnitude >= 6 or magnitude < -4:
+        return f"{x:.{digits - 1}e}"
+    decimals = max(digits - 1 - magnitude, 0)
+    return f"{x:.{decimals}f}"
+
+
+def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int | None = None,
+          index: bool = False, caption: str | None = None,
+          digits: dict[str, int] | None = None) -> Markup:
+    """Render ``frame`` as an HTML table; cells where ``misses`` is True get class ``miss``.
+
+    Rows beyond ``max_rows`` are left out with a note (the CSV holds them all). ``digits`` gives
+    the significant figures of named columns (default 3), e.g. 4 for R-hat so that 1.012 does
+    not print as 1.01 beside a 1.01 threshold.
+    """
+    digits = digits or {}
+    shown = frame if max_rows is None else frame.iloc[:max_rows]
+    parts = ['<div class="table-wrap"><table>']
+    if caption:
+        parts.append(f"<caption>{html.escape(caption)}</caption>")
+    head = ([html.escape(str(frame.index.name or ""))] if index else []) + \
+        [html.escape(str(c)) for c in frame.columns]
+    parts.append("<thead><tr>" + "".join(f"<th>{h}</th>" for h in head) + "</tr></thead><tbody>")
+    for pos, (label, row) in enumerate(shown.iterrows()):
+        row_miss = misses is not None and bool(misses.iloc[pos].any())
+        cells = [f'<th scope="row">{html.escape(str(label))}</th>'] if index else []
+        for col in frame.columns:
+            miss = misses is not None and col in misses.columns and bool(misses.iloc[pos][col])
+            cls = ' class="miss"' if miss else ""
+            cells.append(f"<td{cls}>{html.escape(fmt(row[col], digits.get(col, 3)))}</td>")
+        tr_cls = ' class="miss-row"' if row_miss else ""
+        parts.append(f"<tr{tr_cls}>" + "".join(cells) + "</tr>")
+    parts.append("</tbody></table></div>")
+    if max_rows is not None and len(frame) > max_rows:
+        parts.append(f'<p class="note">{len(frame) - max_rows} more rows are in the CSV table.</p>')
+    return Markup("".join(parts))
+
+
+def key_values(pairs: dict[str, Any] | list[tuple[str, Any]]) -> Markup:
+    """A two-column table of keys and values (nested values shown as compact text)."""
+    items = pairs.items() if isinstance(pairs, dict) else pairs
+    rows = []
+    for key, value in items:
+        if isinstance(value, (dict, list)):
+            import json
+
+            value = json.dumps(value, default=str)
+        rows.append(f"<tr><th scope=\"row\">{html.escape(str(key))}</th>"
+                    f"<td>{html.escape(fmt(value))}</td></tr>")
+    return Markup('<div class="table-wrap"><table class="kv"><tbody>' + "".join(rows) +
+                  "</tbody></table></div>")

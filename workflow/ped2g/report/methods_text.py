@@ -1,0 +1,266 @@
+"""The methods paragraph, the reference list and the cautions of the report.
+
+The paragraph is assembled from what was actually run: the config, the fits' recorded engine,
+the comparison tables present and the package versions. Every sentence that depends on a
+setting reads that setting; sentences about methods that did not run are left out.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+#: Full references, keyed by the short citation used in the text.
+REFERENCES: dict[str, str] = {
+    "Aguirre et al. 2014": "Aguirre JD, Hine E, McGuigan K, Blows MW (2014) Comparing G: multivariate "
+                           "analysis of genetic variation in multiple populations. Heredity 112:21-29.",
+    "Basser & Pajevic 2007": "Basser PJ, Pajevic S (2007) Spectral decomposition of a 4th-order covariance "
+                             "tensor: applications to diffusion tensor MRI. Signal Processing 87:220-236.",
+    "Chen & Shao 1999": "Chen M-H, Shao Q-M (1999) Monte Carlo estimation of Bayesian credible and HPD "
+                        "intervals. Journal of Computational and Graphical Statistics 8:69-92.",
+    "Cheverud 1996": "Cheverud JM (1996) Quantitative genetic analysis of cranial morphology in the "
+                     "cotton-top (Saguinus oedipus) and saddle-back (S. fuscicollis) tamarins. Journal of "
+                     "Evolutionary Biology 9:5-42.",
+    "Cheverud & Marroig 2007": "Cheverud JM, Marroig G (2007) Comparing covariance matrices: random skewers "
+                               "method compared to the common principal components model. Genetics and "
+                               "Molecular Biology 30:461-469.",
+    "Förstner & Moonen 2003": "Förstner W, Moonen B (2003) A metric for covariance matrices. In Grafarend EW "
+                              "et al. (eds) Geodesy - the Challenge of the 3rd Millennium. Springer, pp. 299-309.",
+    "Hansen & Houle 2008": "Hansen TF, Houle D (2008) Measuring and comparing evolvability and constraint in "
+                           "multivariate characters. Journal of Evolutionary Biology 21:1201-1219.",
+    "Henderson 1976": "Henderson CR (1976) A simple method for computing the inverse of a numerator "
+                      "relationship matrix used in prediction of breeding values. Biometrics 32:69-83.",
+    "Henderson 1984": "Henderson CR (1984) Applications of Linear Models in Animal Breeding. University of "
+                      "Guelph.",
+    "Hine et al. 2009": "Hine E, Chenoweth SF, Rundle HD, Blows MW (2009) Characterizing the evolution of "
+                        "genetic variance using genetic covariance tensors. Philosophical Transactions of "
+                        "the Royal Society B 364:1567-1578.",
+    "Hoffman & Gelman 2014": "Hoffman MD, Gelman A (2014) The No-U-Turn sampler: adaptively setting path "
+                             "lengths in Hamiltonian Monte Carlo. Journal of Machine Learning Research "
+                             "15:1593-1623.",
+    "Houle 1992": "Houle D (1992) Comparing evolvability and variability of quantitative traits. Genetics "
+                  "130:195-204.",
+    "Krzanowski 1979": "Krzanowski WJ (1979) Between-groups comparison of principal components. Journal of "
+                       "the American Statistical Association 74:703-707.",
+    "Kruuk 2004": "Kruuk LEB (2004) Estimating genetic parameters in natural populations using the "
+                  "'animal model'. Philosophical Transactions of the Royal Society B 359:873-890.",
+    "Lewandowski et al. 2009": "Lewandowski D, Kurowicka D, Joe H (2009) Generating random correlation "
+                               "matrices based on vines and extended onion method. Journal of Multivariate "
+                               "Analysis 100:1989-2001.",
+    "Mitteroecker & Bookstein 2009": "Mitteroecker P, Bookstein F (2009) The ontogenetic trajectory of the "
+                                     "phenotypic covariance matrix, with examples from craniofacial shape in "
+                                     "rats and humans. Evolution 63:727-737.",
+    "Quaas 1976": "Quaas RL (1976) Computing the diagonal elements and inverse of a large numerator "
+                  "relationship matrix. Biometrics 32:949-953.",
+    "Schenker & Gentleman 2001": "Schenker N, Gentleman JF (2001) On judging the significance of differences "
+                                 "by examining the overlap between confidence intervals. The American "
+                                 "Statistician 55:182-186.",
+    "Schluter 1996": "Schluter D (1996) Adaptive radiation along genetic lines of least resistance. "
+                     "Evolution 50:1766-1774.",
+    "Vehtari et al. 2021": "Vehtari A, Gelman A, Simpson D, Carpenter B, Bürkner P-C (2021) "
+                           "Rank-normalization, folding, and localization: an improved R-hat for assessing "
+                           "convergence of MCMC. Bayesian Analysis 16:667-718.",
+    "Wright 1922": "Wright S (1922) Coefficients of inbreeding and relationship. American Naturalist "
+                   "56:330-338.",
+}
+
+#: What each comparison method's sentence says and cites (keyed by compare/<method>.csv stem).
+METHOD_SENTENCES: dict[str, tuple[str, list[str]]] = {
+    "skewers": ("random skewers: the mean vector correlation between the responses Gβ of two populations "
+                "to {skewers} unit selection gradients β drawn uniformly on the sphere, one fixed set for "
+                "every draw", ["Cheverud 1996", "Cheverud & Marroig 2007"]),
+    "subspace": ("Krzanowski's common subspace: the eigenvalues of H = Σ A_i A_i', where A_i holds the "
+                 "{subspace_dims} leading eigenvectors of population i's G", ["Krzanowski 1979",
+                                                                              "Aguirre et al. 2014"]),
+    "tensor": ("the fourth-order genetic covariance tensor: the variance among populations along each "
+               "eigentensor fixed from the posterior-mean G's, with the eigentensors' trait loadings and each "
+               "population's coordinates", ["Basser & Pajevic 2007", "Hine et al. 2009", "Aguirre et al. 2014"]),
+    "gmax": ("g_max, the leading eigenvector of G, and its angle to the direction of divergence in the "
+             "population means", ["Schluter 1996"]),
+    "evolvability": ("evolvability, conditional evolvability, respondability and autonomy averaged over "
+                     "random unit selection gradients", ["Hansen & Houle 2008"]),
+    "distance": ("the Riemannian distance between G matrices, sqrt(Σ ln² λ_i) over the eigenvalues of "
+                 "G_i⁻¹G_j", ["Förstner & Moonen 2003", "Mitteroecker & Bookstein 2009"]),
+}
+
+SCALE_TEXT = {
+    "original": "in the traits' original units",
+    "variance": "after variance-standardisation (each trait divided by its phenotypic standard deviation, "
+                "per draw)",
+    "mean": "after mean-standardisation (each trait divided by its mean; Houle 1992)",
+}
+NULL_ESTIMATOR_TEXT = {
+    "mendelian": "from the simulated Mendelian-sampling deviations, which estimates G without bias",
+    "sample": "as the sample covariance of the simulated breeding values, which relatedness biases low "
+              "by the factor 1 + F̄ − ā",
+}
+
+
+#: References the cautions cite.
+CAUTION_REFERENCES = ["Schenker & Gentleman 2001"]
+
+
+class Citations:
+    """Collects the short citations used, in first-use order, for the reference list."""
+
+    def __init__(self) -> None:
+        self.used: list[str] = []
+
+    def __call__(self, *keys: str) -> str:
+        for key in keys:
+            if key not in REFERENCES:
+                raise KeyError(f"no reference for {key}")
+            if key not in self.used:
+                self.used.append(key)
+        return "; ".join(keys)
+
+    def references(self) -> list[str]:
+        return sorted(REFERENCES[k] for k in self.used)
+
+
+def _list(items: list[str]) -> str:
+    return items[0] if len(items) == 1 else ", ".join(items[:-1]) + " and " + items[-1]
+
+
+def methods_paragraph(config: dict[str, Any], populations: list[str], traits: list[str],
+                      engines: list[str], n_changes: int | None, passed: int, methods: list[str],
+                      null_present: bool, versions: dict[str, str]) -> tuple[str, list[str]]:
+    """The methods paragraph and the references it cites.
+
+    Parameters
+    ----------
+    engines
+        Model engines the fits recorded (``marginal``, ``latent``); empty when not recorded.
+    n_changes
+        Rows of the pedigree stage's change list (None when it was not found).
+    passed
+        Number of fits that met every convergence check.
+    methods
+        The comparison methods whose tables are present (``compare/<method>.csv`` stems).
+    """
+    cite = Citations()
+    v = lambda name: versions.get(name, "(version not found)")  # noqa: E731
+    s = config["sampling"]
+    priors = config["model"]["priors"]
+    sentences = []
+    change_text = (f"; it made {n_changes} change{'s' if n_changes != 1 else ''} to the raw pedigree, "
+                   "each listed in the report" if n_changes is not None else "")
+    sentences.append(
+        f"We analysed {len(traits)} trait{'s' if len(traits) != 1 else ''} ({_list(traits)}) in "
+        f"{len(populations)} population{'s' if len(populations) != 1 else ''} ({_list(populations)}) "
+        f"with ped2g {v('ped2g')}. The pedigree was checked and ordered with parents before offspring, "
+        f"and inbreeding coefficients and the inverse relationship matrix were computed "
+        f"({cite('Wright 1922', 'Henderson 1976', 'Quaas 1976')}){change_text}.")
+    extra = [f"{r['name']} (grouped by {r['column']})" for r in config["random"]]
+    fixed = [f"{k} ({v_})" for k, v_ in config["fixed"].items()]
+    engine_text = {"marginal": "with the breeding values integrated out analytically",
+                   "latent": "with the breeding values sampled as latent variables"}
+    eng = _list([engine_text.get(e, e) for e in engines]) if engines else \
+        "(the fits did not record how breeding values were handled)"
+    sentences.append(
+        f"For each population we fitted a Bayesian multivariate animal model "
+        f"({cite('Henderson 1984', 'Kruuk 2004')}), y = Xb + Za + e with a ~ N(0, G ⊗ A) and "
+        f"e ~ N(0, R ⊗ I), where A is the additive relationship matrix from the pedigree; the fixed "
+        f"effects were an intercept per trait{'; ' + _list(fixed) if fixed else ''}"
+        f"{', and further random effects ' + _list(extra) + ' each had their own covariance matrix' if extra else ''}. "
+        f"The model was written in PyMC {v('pymc')} {eng}.")
+    family = priors.get("sd_family", "half_normal").replace("_", "-")
+    sentences.append(
+        f"Each standard deviation had a {family} prior with scale {priors['sd_scale']} times the "
+        f"trait's phenotypic standard deviation, and each correlation matrix an LKJ prior with "
+        f"η = {priors['lkj_eta']} ({cite('Lewandowski et al. 2009')}).")
+    sampler = {"nutpie": f"nutpie {v('nutpie')}", "pymc": f"PyMC {v('pymc')}"}.get(s["sampler"], s["sampler"])
+    ch = config["checks"]
+    sentences.append(
+        f"We ran {s['chains']} chains of the No-U-Turn sampler ({cite('Hoffman & Gelman 2014')}) in "
+        f"{sampler}, each with {s['warmup']} warm-up and {s['draws']} kept iterations (target acceptance "
+        f"{s['target_accept']}, seed {s['seed']}), and required rank-normalised split R-hat ≤ "
+        f"{ch['max_rhat']}, bulk and tail effective sample sizes ≥ {ch['min_ess']} "
+        f"({cite('Vehtari et al. 2021')}; ArviZ {v('arviz')}) and at most {ch['max_divergences']} "
+        f"divergent transitions; {passed} of {len(populations)} fits met every check.")
+    mass = config["compare"]["interval_mass"]
+    sentences.append(
+        f"Posterior distributions are summarised by their median and {mass:.0%} highest posterior "
+        f"density (HPD) interval ({cite('Chen & Shao 1999')}).")
+    parts = []
+    k = config["compare"]["subspace_dims"] or max(len(traits) // 2, 1)
+    for method in methods:
+        if method in METHOD_SENTENCES:
+            text, refs = METHOD_SENTENCES[method]
+            text = text.format(skewers=config["compare"]["skewers"], subspace_dims=k)
+            parts.append(f"{text} ({cite(*refs)})")
+    if parts:
+        scale = config["compare"]["scale"]
+        if scale == "mean":
+            cite("Houle 1992")
+        sentences.append(
+            f"On every posterior draw, and {SCALE_TEXT[scale]}, we computed " + "; ".join(parts) + ".")
+    if null_present:
+        est = config["compare"]["null_model"]["estimator"]
+        sentences.append(
+            f"Each statistic was set against a randomisation null ({cite('Aguirre et al. 2014')}): for "
+            "every posterior draw, breeding values were simulated down each population's pedigree with "
+            "that draw's G, the phenotyped animals were randomly reassigned to populations of the original "
+            f"sizes, and a null G was estimated per population {NULL_ESTIMATOR_TEXT[est]}; the same "
+            "statistics were computed on the null G's.")
+    sentences.append(
+        f"Computations used Python {v('python')}, NumPy {v('numpy')}, SciPy {v('scipy')}, "
+        f"PyTensor {v('pytensor')} and xarray {v('xarray')}.")
+    return " ".join(sentences), cite.references()
+
+
+def cautions(config: dict[str, Any], failed_fits: list[str], null_present: bool,
+             has_null_columns: bool, n_changes: int | None) -> list[str]:
+    """Plain-language cautions for reading the results (assumptions first, then reading rules)."""
+    mass = config["compare"]["interval_mass"]
+    priors = config["model"]["priors"]
+    items = [
+        "The animal model is additive: it assumes each trait is the sum of the fixed effects, additive "
+        "genetic values, the random effects listed and a residual, all multivariate normal. Dominance, "
+        "epistasis, genotype-by-environment interaction and maternal or common-environment effects that "
+        "are not in the model are absorbed into G or R; environment shared by relatives (same nest, same "
+        "year) that is not modelled inflates G.",
+        "Founders and animals with unknown parents are treated as unrelated members of one base "
+        "population with the same G; immigrants from a genetically different source break this.",
+        f"The priors matter when data are few: half-normal (or half-t) priors on the standard deviations "
+        f"with scale {priors['sd_scale']} x the phenotypic SD, and LKJ(η = {priors['lkj_eta']}) priors "
+        "that pull correlations towards zero. With small pedigrees the posterior of G may largely reflect "
+        "these choices; refit with other prior settings before drawing conclusions from weakly informed "
+        "elements.",
+        "Pedigree errors bias estimates: wrongly assigned parents (for example extra-pair paternity) "
+        "make relatives look less alike and bias additive genetic variances and heritabilities downwards. "
+        + (f"The pedigree stage made {n_changes} changes (listed in the Data section); check that they "
+           "are right for your study." if n_changes else
+           "Check the Data section for the changes the pedigree stage made."),
+        f"Reading intervals: two {mass:.0%} intervals that do not overlap is a much stricter criterion "
+        "than a test at the 5% level (Schenker & Gentleman 2001), and overlapping intervals do not show "
+        "that two quantities are equal. Use the paired posterior probability (p_obs_gt_null) and the "
+        "posterior of differences, not overlap alone.",
+        "HPD intervals are single intervals even when a posterior has several modes, are not invariant "
+        "to transformation, and for variances piled up near zero they include the boundary.",
+        "Many statistics are reported at once; treat them as a description of how the G matrices differ, "
+        "not as many independent tests.",
+        "Statistics of G depend on the scale of the traits. Variance-standardised comparisons change when "
+        "phenotypic (including environmental) variance differs among populations; mean-standardisation is "
+        "meaningful only for ratio-scale traits with positive means. Heritability is not evolvability.",
+        "Eigenvector-based summaries (g_max, Krzanowski subspaces, eigentensors) are unstable when "
+        "eigenvalues are close; their posteriors are then wide and their directions arbitrary.",
+    ]
+    if null_present or has_null_columns:
+        items.append(
+            "The randomisation null contains no prediction error: its breeding values are simulated "
+            "exactly, while the observed G's were estimated from phenotypes. The null is therefore "
+            "narrower than it would be if the refitting were included, which makes differences from it "
+            "easier to declare (anti-conservative).")
+        if config["compare"]["null_model"]["estimator"] == "sample":
+            items.append(
+                "The null G's were estimated as sample covariances of related animals, which are biased "
+                "low by the factor 1 + F̄ − ā; scale-dependent statistics (tensor variances, response "
+                "sizes) can then differ between observed and null for that reason alone.")
+    else:
+        items.append("No randomisation null was found, so the comparisons have no reference for how "
+                     "much difference sampling alone would produce.")
+    if failed_fits:
+        items.insert(0, "Fits of " + _list(failed_fits) + " missed at least one convergence check "
+                     "(see Fit diagnostics): do not use their estimates until they have been rerun with "
+                     "more iterations or other settings.")
+    return items

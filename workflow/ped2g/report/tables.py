@@ -1,0 +1,378 @@
+"""The report's tables, built as pandas DataFrames (written as CSV and shown as HTML).
+
+Every table here is computed from the stage outputs read by :mod:`ped2g.report.loaders`; none is
+typed in. Posterior summaries use the HPD interval of :func:`ped2g.intervals.hpd` (the shortest
+interval holding ``ceil(mass * S)`` sorted draws; Chen & Shao 1999).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..intervals import hpd
+from .loaders import FitInputs, ResultInputs
+
+MATRIX_QUANTITIES = ("G", "R", "P")
+
+
+# ---------------------------------------------------------------------------------------------
+# What was run
+# ---------------------------------------------------------------------------------------------
+def run_settings(config: dict[str, Any], inputs: ResultInputs) -> pd.DataFrame:
+    """One row per setting: the job, populations, traits, model, priors and sampler."""
+    model, sampling, priors = config["model"], config["sampling"], config["model"]["priors"]
+    engines = sorted({str(f.diagnostics.get("engine")) for f in inputs.fits.values()
+                      if f.diagnostics and f.diagnostics.get("engine")})
+    fixed = ", ".join(f"{k} ({v})" for k, v in config["fixed"].items()) or "none"
+    random = ", ".join(f"{r['name']} (grouped by {r['column']})" for r in config["random"]) or "none"
+    rows = [
+        ("job", "Bayesian multivariate animal model per population; comparison of the additive "
+                "genetic (co)variance matrices G across populations"),
+        ("populations", ", ".join(inputs.populations)),
+        ("traits", ", ".join(_trait_label(t, config) for t in next(iter(inputs.fits.values())).traits)),
+        ("fixed effects", f"intercept per trait; {fixed}"),
+        ("random effects", f"additive genetic (pedigree); {random}; residual"),
+        ("model engine (config)", model["engine"]),
+        ("model engine (ran)", ", ".join(engines) if engines else "not recorded by the fit stage"),
+        ("prior on each standard deviation",
+         f"{priors.get('sd_family', 'half_normal').replace('_', '-')} with scale {priors['sd_scale']} "
+         "x the trait's phenotypic SD"),
+        ("prior on each correlation matrix", f"LKJ with eta = {priors['lkj_eta']}"),
+        ("fixed covariances", "none (G and R estimated)" if model["fixed_covariances"] is None
+         else "G and R held fixed at the config's matrices"),
+        ("sampler", f"{sampling['sampler']} (NUTS)"),
+        ("chains x (warm-up + kept draws)",
+         f"{sampling['chains']} x ({sampling['warmup']} + {sampling['draws']})"),
+        ("target acceptance", sampling["target_accept"]),
+        ("seed", sampling["seed"]),
+        ("convergence checks", f"R-hat <= {config['checks']['max_rhat']}, bulk and tail ESS >= "
+                               f"{config['checks']['min_ess']}, divergences <= "
+                               f"{config['checks']['max_divergences']} (on failure: "
+                               f"{config['checks']['on_failure']})"),
+        ("comparison scale", config["compare"]["scale"]),
+        ("interval", f"{config['compare']['interval_mass']:.0%} HPD"),
+    ]
+    return pd.DataFrame(rows, columns=["setting", "value"])
+
+
+def _trait_label(trait: str, config: dict[str, Any]) -> str:
+    unit = config.get("report", {}).get("units", {}).get(trait)
+    return f"{trait} ({unit})" if unit else trait
+
+
+# ---------------------------------------------------------------------------------------------
+# The data
+# ---------------------------------------------------------------------------------------------
+def _generation_depth(frame: pd.DataFrame) -> np.ndarray:
+    """Generation of each animal (founders 0) when the table does not carry it."""
+    index = {name: i for i, name in enumerate(frame["id"])}
+    depth = np.zeros(len(frame), dtype=int)
+    for i, (sire, dam) in enumerate(zip(frame.get("sire", [""] * len(frame)),
+                                        frame.get("dam", [""] * len(frame)))):
+        parents = [index[p] for p in (sire, dam) if p in index and index[p] < i]
+        depth[i] = 1 + max(depth[p] for p in parents) if parents else 0
+    return depth
+
+
+def pedigree_by_population(inputs: ResultInputs) -> pd.DataFrame | None:
+    """Per population: animals, phenotyped animals, founders, generations and inbreeding.
+
+    Read from each fit's ``pedigree_used.csv`` (the pruned pedigree the model used). A founder has
+    neither parent known; generations counts founders as generation 0 (so founders-only = 1).
+    """
+    rows = []
+    for pop, fit in inputs.fits.items():
+        ped = fit.pedigree_used
+        if ped is None:
+            continue
+        known = lambda col: ped[col].astype(str).str.len().gt(0) if col in ped else pd.Series(False, index=ped.index)  # noqa: E731
+        founders = int((~known("sire") & ~known("dam")).sum())
+        gen = ped["generation"].to_numpy(int) if "generation" in ped else _generation_depth(ped)
+        f = pd.to_numeric(ped["inbreeding"], errors="coerce").to_numpy() if "inbreeding" in ped else None
+        phen = (int(ped["phenotyped"].astype(str).isin(["1", "True", "true"]).sum())
+                if "phenotyped" in ped else None)
+        rows.append({
+            "population": pop, "animals": len(ped), "phenotyped": phen, "founders": founders,
+            "generations": int(gen.max()) + 1 if len(gen) else 0,
+            "mean_inbreeding": float(np.nanmean(f)) if f is not None and len(f) else None,
+            "max_inbreeding": float(np.nanmax(f)) if f is not None and len(f) else None,
+            "inbred_animals": int(np.sum(f > 0)) if f is not None else None,
+        })
+    return pd.DataFrame(rows) if rows else None
+
+
+def phenotype_counts(pheno: pd.DataFrame | None, populations: list[str],
+                     traits: list[str]) -> pd.DataFrame | None:
+    """Per population: records, and per trait the number of values and the percent missing."""
+    if pheno is None:
+        return None
+    rows = []
+    for pop in populations:
+        part = pheno[pheno["population"] == pop]
+        row: dict[str, Any] = {"population": pop, "records": len(part)}
+        for trait in traits:
+            n = int(part[trait].notna().sum())
+            row[f"{trait} n"] = n
+            row[f"{trait} % missing"] = 100.0 * (1 - n / len(part)) if len(part) else float("nan")
+        row["complete records"] = int(part[traits].notna().all(axis=1).sum())
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def changes_by_problem(changes: pd.DataFrame | None) -> pd.DataFrame | None:
+    """Number of pedigree changes per (problem, action)."""
+    if changes is None or changes.empty:
+        return None
+    keys = [c for c in ("problem", "action") if c in changes.columns]
+    if not keys:
+        return None
+    return changes.groupby(keys, sort=True).size().reset_index(name="rows")
+
+
+# ---------------------------------------------------------------------------------------------
+# Fit diagnostics
+# ---------------------------------------------------------------------------------------------
+def _matrix_labels(name: str, traits: list[str], strict_upper: bool = False) -> list[tuple[str, int, int]]:
+    t = len(traits)
+    return [(f"{name}[{traits[i]},{traits[j]}]", i, j)
+            for i in range(t) for j in range(i + (1 if strict_upper else 0), t)]
+
+
+def draws_of(fit: FitInputs, name: str) -> np.ndarray:
+    """Draws of a posterior variable with chains pooled: shape (S, ...)."""
+    arr = fit.idata.posterior[name]
+    return arr.stack(sample=("chain", "draw")).transpose("sample", ...).values
+
+
+def element_draws(fit: FitInputs, name: str) -> dict[str, np.ndarray]:
+    """Each distinct element of a matrix variable (upper triangle) as (chain, draw) draws."""
+    values = fit.idata.posterior[name].transpose("chain", "draw", ...).values
+    return {label: values[:, :, i, j] for label, i, j in _matrix_labels(name, fit.traits)}
+
+
+def _computed_parameter_diagnostics(fit: FitInputs) -> pd.DataFrame:
+    """Rank-normalised split R-hat and bulk/tail ESS (Vehtari et al. 2021, via ArviZ) of every
+    sampled element of G and R; elements whose draws are all equal are left out."""
+    import arviz as az
+
+    rows = []
+    for name in ("G", "R"):
+        for label, chains in element_draws(fit, name).items():
+            if np.ptp(chains) == 0:
+                continue  # held fixed (e.g. model.fixed_covariances): not a sampled parameter
+            rows.append({"parameter": label,
+                         "r_hat": float(az.rhat(chains)), "ess_bulk": float(az.ess(chains, method="bulk")),
+                         "ess_tail": float(az.ess(chains, method="tail"))})
+    return pd.DataFrame(rows, columns=["parameter", "r_hat", "ess_bulk", "ess_tail"])
+
+
+def parameter_diagnostics(fit: FitInputs) -> tuple[pd.DataFrame, str]:
+    """R-hat and ESS per scalar: the fit's ``parameters.csv``, else computed here with ArviZ.
+
+    Returns the table (parameter, r_hat, ess_bulk, ess_tail) and where it came from.
+    """
+    table = fit.parameters
+    if table is not None and {"parameter", "r_hat", "ess_bulk", "ess_tail"} <= set(table.columns):
+        return table[["parameter", "r_hat", "ess_bulk", "ess_tail"]].copy(), "read from parameters.csv"
+    return _computed_parameter_diagnostics(fit), "computed by the report from posterior.nc with ArviZ"
+
+
+def diagnostics(inputs: ResultInputs, checks: dict[str, Any]) -> tuple[pd.DataFrame, pd.DataFrame, dict[str, str]]:
+    """Per-population summary and per-parameter detail of the convergence checks.
+
+    Returns
+    -------
+    summary
+        population, chains, draws, max_r_hat, min_ess_bulk, min_ess_tail, divergences, misses,
+        passed.
+    detail
+        population, parameter, r_hat, ess_bulk, ess_tail, miss (which checks it misses).
+    sources
+        Where each population's R-hat and ESS came from.
+    """
+    max_rhat, min_ess, max_div = checks["max_rhat"], checks["min_ess"], checks["max_divergences"]
+    summaries, details, sources = [], [], {}
+    for pop, fit in inputs.fits.items():
+        table, source = parameter_diagnostics(fit)
+        sources[pop] = source
+        table = table.copy()
+        table.insert(0, "population", pop)
+        miss = []
+        for r, b, t in zip(table["r_hat"], table["ess_bulk"], table["ess_tail"]):
+            m = []
+            if not np.isfinite(r) or r > max_rhat:
+                m.append("R-hat")
+            if not np.isfinite(b) or b < min_ess:
+                m.append("bulk ESS")
+            if not np.isfinite(t) or t < min_ess:
+                m.append("tail ESS")
+            miss.append(", ".join(m))
+        table["miss"] = miss
+        details.append(table)
+        div = fit.divergences()
+        post = fit.idata.posterior
+        misses = int((table["miss"] != "").sum()) + int(div is not None and div > max_div)
+        summaries.append({
+            "population": pop, "chains": int(post.sizes["chain"]), "draws": int(post.sizes["draw"]),
+            "max_r_hat": float(np.nanmax(table["r_hat"])) if len(table) else float("nan"),
+            "min_ess_bulk": float(np.nanmin(table["ess_bulk"])) if len(table) else float("nan"),
+            "min_ess_tail": float(np.nanmin(table["ess_tail"])) if len(table) else float("nan"),
+            "divergences": div, "misses": misses, "passed": misses == 0 and div is not None,
+        })
+    return pd.DataFrame(summaries), pd.concat(details, ignore_index=True), sources
+
+
+def summary_misses(summary: pd.DataFrame, checks: dict[str, Any]) -> pd.DataFrame:
+    """Boolean mask of the cells of the diagnostics summary that miss a check."""
+    mask = pd.DataFrame(False, index=summary.index, columns=summary.columns)
+    # NaN here means no sampled parameter (every element held fixed): nothing to miss.
+    mask["max_r_hat"] = summary["max_r_hat"].notna() & (summary["max_r_hat"] > checks["max_rhat"])
+    mask["min_ess_bulk"] = summary["min_ess_bulk"].notna() & (summary["min_ess_bulk"] < checks["min_ess"])
+    mask["min_ess_tail"] = summary["min_ess_tail"].notna() & (summary["min_ess_tail"] < checks["min_ess"])
+    div = pd.to_numeric(summary["divergences"], errors="coerce")
+    mask["divergences"] = ~(div <= checks["max_divergences"])
+    mask["passed"] = ~summary["passed"].astype(bool)
+    mask["misses"] = summary["misses"] > 0
+    return mask
+
+
+def detail_misses(detail: pd.DataFrame, checks: dict[str, Any]) -> pd.DataFrame:
+    """Boolean mask of the cells of the per-parameter diagnostics that miss a check."""
+    mask = pd.DataFrame(False, index=detail.index, columns=detail.columns)
+    mask["r_hat"] = ~(detail["r_hat"] <= checks["max_rhat"])
+    mask["ess_bulk"] = ~(detail["ess_bulk"] >= checks["min_ess"])
+    mask["ess_tail"] = ~(detail["ess_tail"] >= checks["min_ess"])
+    mask["miss"] = detail["miss"] != ""
+    return mask
+
+
+# ---------------------------------------------------------------------------------------------
+# Estimates
+# ---------------------------------------------------------------------------------------------
+def estimates(inputs: ResultInputs, mass: float) -> pd.DataFrame:
+    """Posterior mean, median, SD and HPD interval of G, R, P (distinct elements), h2 and rg.
+
+    Columns: population, quantity, trait, trait2, mean, median, sd, hpd_lower, hpd_upper.
+    ``trait2`` is empty for heritabilities; rg has only the pairs i < j.
+    """
+    rows = []
+    for pop, fit in inputs.fits.items():
+        traits = fit.traits
+        post = fit.idata.posterior
+        for name in (*MATRIX_QUANTITIES, "rg"):
+            if name not in post:
+                continue
+            d = draws_of(fit, name)
+            for _, i, j in _matrix_labels(name, traits, strict_upper=(name == "rg")):
+                rows.append(_summary_row(pop, name, traits[i], traits[j], d[:, i, j], mass))
+        if "h2" in post:
+            d = draws_of(fit, "h2")
+            for i, trait in enumerate(traits):
+                rows.append(_summary_row(pop, "h2", trait, "", d[:, i], mass))
+    return pd.DataFrame(rows)
+
+
+def _summary_row(pop: str, name: str, trait: str, trait2: str, x: np.ndarray, mass: float) -> dict[str, Any]:
+    x = np.asarray(x, dtype=float)
+    x = x[np.isfinite(x)]
+    if len(x) == 0:
+        lo = hi = mean = med = sd = float("nan")
+    else:
+        lo, hi = hpd(x, mass)
+        mean, med, sd = float(x.mean()), float(np.median(x)), float(x.std(ddof=1)) if len(x) > 1 else 0.0
+    return {"population": pop, "quantity": name, "trait": trait, "trait2": trait2, "mean": mean,
+            "median": med, "sd": sd, "hpd_lower": float(lo), "hpd_upper": float(hi)}
+
+
+def estimate_matrix(table: pd.DataFrame, population: str, quantity: str, traits: list[str]) -> pd.DataFrame:
+    """A t x t display table of ``median [lower, upper]`` for one population and quantity.
+
+    Symmetric matrices fill the upper triangle and diagonal; rg fills the upper triangle with 1
+    on the diagonal; h2 gives one row.
+    """
+    from .html import fmt
+
+    part = table[(table["population"] == population) & (table["quantity"] == quantity)]
+    cell = {(r.trait, r.trait2): f"{fmt(r.median)} [{fmt(r.hpd_lower)}, {fmt(r.hpd_upper)}]"
+            for r in part.itertuples()}
+    if quantity == "h2":
+        return pd.DataFrame([[cell.get((t, ""), "") for t in traits]], columns=traits, index=["h2"])
+    out = pd.DataFrame("", index=traits, columns=traits)
+    for i, ti in enumerate(traits):
+        for j, tj in enumerate(traits):
+            if j < i:
+                continue
+            out.loc[ti, tj] = "1" if (quantity == "rg" and i == j) else cell.get((ti, tj), "")
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# Comparisons
+# ---------------------------------------------------------------------------------------------
+LABEL_COLUMNS = ("population", "population2", "index", "trait")
+DISPLAY_COLUMNS = ("statistic", *LABEL_COLUMNS, "estimate", "lower", "upper", "null_estimate",
+                   "null_lower", "null_upper", "p_obs_gt_null", "intervals_overlap")
+
+
+def row_labels(frame: pd.DataFrame) -> list[str]:
+    """A short label per row from the population, pair, index and trait columns present."""
+    labels = []
+    for _, row in frame.iterrows():
+        parts = []
+        if "population" in frame and _present(row.get("population")):
+            pair = _present(row.get("population2")) if "population2" in frame else False
+            parts.append(f"{row['population']} vs {row['population2']}" if pair else str(row["population"]))
+        if "index" in frame and _present(row.get("index")):
+            idx = row["index"]
+            parts.append(f"#{int(idx) if isinstance(idx, float) and float(idx).is_integer() else idx}")
+        if "trait" in frame and _present(row.get("trait")):
+            parts.append(str(row["trait"]))
+        labels.append(" ".join(parts) if parts else str(row.get("statistic", "")))
+    return labels
+
+
+def _present(value: Any) -> bool:
+    return value is not None and not (isinstance(value, float) and np.isnan(value)) and str(value) != ""
+
+
+def compare_display(frame: pd.DataFrame) -> pd.DataFrame:
+    """The comparison table with an ``intervals_overlap`` column where null intervals exist.
+
+    Two intervals overlap when ``lower <= null_upper`` and ``null_lower <= upper``.
+    """
+    out = frame.copy()
+    if {"lower", "upper", "null_lower", "null_upper"} <= set(out.columns):
+        have = out[["lower", "upper", "null_lower", "null_upper"]].notna().all(axis=1)
+        overlap = (out["lower"] <= out["null_upper"]) & (out["null_lower"] <= out["upper"])
+        out["intervals_overlap"] = np.where(have, np.where(overlap, "yes", "no"), "")
+    cols = [c for c in DISPLAY_COLUMNS if c in out.columns]
+    cols += [c for c in out.columns if c not in cols and c != "method"]
+    return out[cols]
+
+
+def compare_compact(display: pd.DataFrame, mass: float) -> pd.DataFrame:
+    """A narrow version of :func:`compare_display` for the HTML page: one label column and the
+    intervals written as ``[lower, upper]``."""
+    from .html import fmt
+
+    def interval(lo: str, hi: str) -> list[str]:
+        if lo not in display or hi not in display:
+            return [""] * len(display)
+        return [f"[{fmt(a)}, {fmt(b)}]" if _present(a) and _present(b) else ""
+                for a, b in zip(display[lo], display[hi])]
+
+    out = pd.DataFrame({"statistic": display["statistic"].astype(str).to_numpy(),
+                        "compared": row_labels(display),
+                        "observed": display["estimate"].to_numpy(),
+                        f"{mass:.0%} HPD": interval("lower", "upper")})
+    if "null_estimate" in display and display["null_estimate"].notna().any():
+        out["null"] = display["null_estimate"].to_numpy()
+        out[f"null {mass:.0%} HPD"] = interval("null_lower", "null_upper")
+    if "p_obs_gt_null" in display:
+        out["P(observed > null)"] = display["p_obs_gt_null"].to_numpy()
+    if "intervals_overlap" in display:
+        out["intervals overlap"] = display["intervals_overlap"].to_numpy()
+    return out
