@@ -74,12 +74,11 @@ def read_raw_pedigree(path: str | os.PathLike, id_col: str = "id", sire_col: str
                           missing=missing, hermaphrodite=hermaphrodite, source=str(path))
 
 
-def _text(series: pd.Series) -> np.ndarray:
-    values = series.to_numpy(dtype=object, na_value="")
-    if not all(isinstance(v, str) for v in values[:1000]):  # cheap check on a sample first
-        values = np.array(["" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v)
-                           for v in values], dtype=object)
-    return values
+def _text(series: pd.Series) -> pd.Series:
+    """The column as pandas strings (a missing cell becomes the empty string)."""
+    if not isinstance(series.dtype, pd.StringDtype):
+        series = series.astype(object).where(series.notna(), "").astype("str")
+    return series.fillna("").reset_index(drop=True)
 
 
 def _changes(rows, ids, problem: str, action) -> pd.DataFrame:
@@ -97,6 +96,12 @@ def clean_pedigree(frame: pd.DataFrame, id_col: str = "id", sire_col: str = "sir
 
     Parameters are those of :func:`read_raw_pedigree`; ``frame`` has one string cell per
     field and its index is the line number in the file; ``source`` names the file in messages.
+
+    Notes
+    -----
+    All identifiers (ids, sires, dams) are turned into integer codes by one hashing pass, and
+    every check below works on those integer arrays, so the cost is linear in the number of
+    rows with no Python loop over rows.
     """
     where = f"pedigree table {source}" if source else "pedigree table"
     require_columns(frame, {"id": id_col, "sire": sire_col, "dam": dam_col}, source,
@@ -106,110 +111,119 @@ def clean_pedigree(frame: pd.DataFrame, id_col: str = "id", sire_col: str = "sir
                         f"(got id '{id_col}', sire '{sire_col}', dam '{dam_col}')")
     if len(frame) == 0:
         raise UserError(f"{where} has a header but no data rows")
-    codes = {str(m).strip() for m in missing} | {""}
+    codes_unknown = {str(m).strip() for m in missing} | {""}
     lines = np.asarray(frame.index)
+    n_rows = len(frame)
     changes: list[pd.DataFrame] = []
 
     # 1. surrounding white space
-    cols = {}
+    stripped = {}
     for role, name in (("id", id_col), ("sire", sire_col), ("dam", dam_col)):
-        raw = pd.Series(_text(frame[name]), dtype=object)
-        stripped = raw.str.strip()
-        touched = (stripped != raw).to_numpy()
+        raw = _text(frame[name])
+        clean = raw.str.strip()
+        touched = (clean != raw).to_numpy(dtype=bool)
         if touched.any():
-            ids_here = (cols["id"][touched] if role != "id" else stripped.to_numpy()[touched])
-            changes.append(_changes(lines[touched], ids_here,
+            who = stripped["id"] if role != "id" else clean
+            changes.append(_changes(lines[touched], who[touched].to_numpy(dtype=object),
                                     f"white space around the {role}", "stripped"))
-        cols[role] = stripped.to_numpy(dtype=object)
-    ids, sire, dam = cols["id"], cols["sire"], cols["dam"]
+        stripped[role] = clean
 
-    # 2. ids that are blank or read as unknown; unknown-parent codes
-    bad_id = pd.Series(ids).isin(codes).to_numpy()
+    # 2. one integer code per distinct string; unknown-parent codes become -1
+    code, names = pd.factorize(pd.concat([stripped["id"], stripped["sire"], stripped["dam"]],
+                                         ignore_index=True))
+    names = np.asarray(names, dtype=object)
+    code = code.astype(np.int64)
+    idc = code[:n_rows]
+    sc = code[n_rows:2 * n_rows].copy()
+    dc = code[2 * n_rows:].copy()
+    unknown = np.zeros(len(names), dtype=bool)
+    for value in codes_unknown:
+        unknown |= names == value
+    bad_id = unknown[idc]
     if bad_id.any():
         k = int(np.argmax(bad_id))
-        if ids[k] == "":
+        if names[idc[k]] == "":
             raise UserError(f"{where} line {lines[k]}: the {id_col} column is blank; every row "
                             "needs an animal id")
-        raise UserError(f"{where} line {lines[k]}: animal id '{ids[k]}' is one of the "
-                        f"unknown-parent codes ({_show(codes)}), so it could never be named as a "
-                        "parent; rename the animal or change the unknown-parent codes")
-    sire = np.where(pd.Series(sire).isin(codes).to_numpy(), "", sire)
-    dam = np.where(pd.Series(dam).isin(codes).to_numpy(), "", dam)
+        raise UserError(f"{where} line {lines[k]}: animal id '{names[idc[k]]}' is one of the "
+                        f"unknown-parent codes ({_show(codes_unknown)}), so it could never be "
+                        "named as a parent; rename the animal or change the unknown-parent codes")
+    sc[unknown[sc]] = -1
+    dc[unknown[dc]] = -1
 
     # 3. exact duplicates, then conflicting rows for one id
-    table = pd.DataFrame({"id": ids, "sire": sire, "dam": dam, "line": lines})
-    dup = table.duplicated(["id", "sire", "dam"], keep="first").to_numpy()
+    table = pd.DataFrame({"id": idc, "sire": sc, "dam": dc})
+    dup = table.duplicated(keep="first").to_numpy()
     if dup.any():
-        first_line = table.groupby(["id", "sire", "dam"], sort=False)["line"].transform("first")
-        changes.append(_changes(lines[dup], ids[dup], "duplicate row",
+        first_line = pd.Series(lines).groupby([idc, sc, dc], sort=False).transform("first")
+        changes.append(_changes(lines[dup], names[idc[dup]], "duplicate row",
                                 "dropped (same as line " + first_line[dup].astype(str) + ")"))
-        table = table.loc[~dup].reset_index(drop=True)
-    clash = table["id"].duplicated(keep=False).to_numpy()
+        keep = ~dup
+        idc, sc, dc, lines = idc[keep], sc[keep], dc[keep], lines[keep]
+    clash = np.bincount(idc, minlength=len(names))[idc] > 1
     if clash.any():
-        name = table["id"].to_numpy()[np.argmax(clash)]
-        both = table.loc[table["id"].to_numpy() == name].iloc[:2]
-        shown = [f"line {r.line} (sire '{r.sire}', dam '{r.dam}')" for r in both.itertuples()]
-        raise UserError(f"{where}: animal '{name}' appears on {shown[0]} and {shown[1]} with "
-                        "different parents; keep one row per animal (blank = unknown parent)")
-    ids = table["id"].to_numpy(dtype=object)
-    sire = table["sire"].to_numpy(dtype=object)
-    dam = table["dam"].to_numpy(dtype=object)
-    lines = table["line"].to_numpy()
+        first = int(np.argmax(clash))
+        rows = np.flatnonzero(idc == idc[first])[:2]
+        shown = [f"line {lines[r]} (sire '{_name(names, sc[r])}', dam '{_name(names, dc[r])}')"
+                 for r in rows]
+        raise UserError(f"{where}: animal '{names[idc[first]]}' appears on {shown[0]} and "
+                        f"{shown[1]} with different parents; keep one row per animal "
+                        "(blank = unknown parent)")
 
     # 4. own parent, selfing, one id as both sire and dam
-    own = (ids == sire) | (ids == dam)
+    own = (idc == sc) | (idc == dc)
     if own.any():
         k = int(np.argmax(own))
-        role = "sire" if ids[k] == sire[k] else "dam"
-        raise UserError(f"{where} line {lines[k]}: animal '{ids[k]}' is listed as its own "
+        role = "sire" if idc[k] == sc[k] else "dam"
+        raise UserError(f"{where} line {lines[k]}: animal '{names[idc[k]]}' is listed as its own "
                         f"{role}; correct the parent on that line")
     if not hermaphrodite:
-        selfed = (sire == dam) & (sire != "")
+        selfed = (sc == dc) & (sc >= 0)
         if selfed.any():
             k = int(np.argmax(selfed))
-            raise UserError(f"{where} line {lines[k]}: animal '{ids[k]}' has '{sire[k]}' as both "
-                            f"sire and dam (selfing); correct the parents, or "
-                            f"{HERMAPHRODITE_HINT}")
-        known_dams = pd.unique(dam[dam != ""])
-        as_both = (pd.Series(sire).isin(known_dams).to_numpy()) & (sire != "")
+            raise UserError(f"{where} line {lines[k]}: animal '{names[idc[k]]}' has "
+                            f"'{names[sc[k]]}' as both sire and dam (selfing); correct the "
+                            f"parents, or {HERMAPHRODITE_HINT}")
+        is_dam = np.zeros(len(names), dtype=bool)
+        is_dam[dc[dc >= 0]] = True
+        as_both = (sc >= 0) & is_dam[np.maximum(sc, 0)]
         if as_both.any():
             k = int(np.argmax(as_both))
-            parent = sire[k]
-            j = int(np.argmax(dam == parent))
-            raise UserError(f"{where}: '{parent}' is the sire of '{ids[k]}' (line {lines[k]}) "
-                            f"and the dam of '{ids[j]}' (line {lines[j]}); correct the pedigree, "
-                            f"or {HERMAPHRODITE_HINT}")
+            j = int(np.argmax(dc == sc[k]))
+            raise UserError(f"{where}: '{names[sc[k]]}' is the sire of '{names[idc[k]]}' "
+                            f"(line {lines[k]}) and the dam of '{names[idc[j]]}' (line "
+                            f"{lines[j]}); correct the pedigree, or {HERMAPHRODITE_HINT}")
 
     # 5. parents without a row of their own become founders
-    index = pd.Index(ids)
-    if not index.is_unique:  # pragma: no cover - guaranteed by step 3
-        raise AssertionError("ids not unique after cleaning")
-    n_listed = len(ids)
-    sire_pos = index.get_indexer(sire)
-    dam_pos = index.get_indexer(dam)
-    lost_s = (sire_pos < 0) & (sire != "")
-    lost_d = (dam_pos < 0) & (dam != "")
+    n_listed = len(idc)
+    pos_of = np.full(len(names), -1, dtype=np.int64)
+    pos_of[idc] = np.arange(n_listed)
+    lost_s = (sc >= 0) & (pos_of[np.maximum(sc, 0)] < 0)
+    lost_d = (dc >= 0) & (pos_of[np.maximum(dc, 0)] < 0)
+    added = np.zeros(0, dtype=np.int64)
     if lost_s.any() or lost_d.any():
         named = pd.DataFrame({
-            "name": np.concatenate([sire[lost_s], dam[lost_d]]),
+            "code": np.concatenate([sc[lost_s], dc[lost_d]]),
             "line": np.concatenate([lines[lost_s], lines[lost_d]]),
             "role": np.repeat(["sire", "dam"], [int(lost_s.sum()), int(lost_d.sum())]),
-        }).sort_values("line", kind="stable").drop_duplicates("name", keep="first")
+        }).sort_values("line", kind="stable").drop_duplicates("code", keep="first")
         for role in ("sire", "dam"):
             part = named[named["role"] == role]
             if len(part):
-                changes.append(_changes(part["line"].to_numpy(), part["name"].to_numpy(),
+                changes.append(_changes(part["line"].to_numpy(),
+                                        names[part["code"].to_numpy()],
                                         f"{role} has no row of its own",
                                         "added as a founder (both parents unknown)"))
-        added = named["name"].to_numpy(dtype=object)
-        ids = np.concatenate([ids, added])
-        index = pd.Index(ids)
-        sire_pos = index.get_indexer(sire)
-        dam_pos = index.get_indexer(dam)
-    n = len(ids)
-    sire_pos = np.concatenate([sire_pos, np.full(n - n_listed, -1)]).astype(np.int64)
-    dam_pos = np.concatenate([dam_pos, np.full(n - n_listed, -1)]).astype(np.int64)
-    row_of = np.concatenate([lines, np.full(n - n_listed, -1)])
+        added = named["code"].to_numpy(dtype=np.int64)
+        pos_of[added] = n_listed + np.arange(len(added))
+    all_codes = np.concatenate([idc, added])
+    n = len(all_codes)
+    sire_pos = np.concatenate([np.where(sc >= 0, pos_of[np.maximum(sc, 0)], -1),
+                               np.full(len(added), -1)]).astype(np.int64)
+    dam_pos = np.concatenate([np.where(dc >= 0, pos_of[np.maximum(dc, 0)], -1),
+                              np.full(len(added), -1)]).astype(np.int64)
+    row_of = np.concatenate([lines, np.full(len(added), -1)])
+    ids = names[all_codes]
 
     # 6. parents first, generation numbers, cycles
     order, generation = order_parents_first(sire_pos, dam_pos)
@@ -229,6 +243,10 @@ def clean_pedigree(frame: pd.DataFrame, id_col: str = "id", sire_col: str = "sir
     else:
         log = pd.DataFrame({c: pd.Series(dtype=object) for c in CHANGE_COLUMNS})
     return ped, log[CHANGE_COLUMNS]
+
+
+def _name(names: np.ndarray, code: int) -> str:
+    return names[code] if code >= 0 else ""
 
 
 def _show(codes: set[str]) -> str:
