@@ -1,0 +1,50 @@
+# Stage 2: one Bayesian multivariate animal model per population (the expensive step).
+#
+# A fit runs one chain per thread. PyTensor and numba compile code into cache folders; on a
+# cluster several fits may run at once on a shared file system, so each job gets its own
+# temporary cache folders under its temporary directory (resources.tmpdir, node-local on most
+# clusters), removed when the job ends.
+
+
+def fit_mem_mb(wildcards, attempt):
+    """Memory of a fit in MB: 4 GB, doubled on each retry (see profiles/slurm/config.yaml)."""
+    return 4000 * 2 ** (attempt - 1)
+
+
+def fit_runtime(wildcards, attempt):
+    """Wall time of a fit in minutes: 4 hours, doubled on each retry."""
+    return 240 * 2 ** (attempt - 1)
+
+
+rule fit:
+    input:
+        pedigree=rules.pedigree.output.pedigree,
+        ainverse=rules.pedigree.output.ainverse,
+        phenotypes=CFG["data"]["phenotypes"],
+        config=ancient(EFFECTIVE_CONFIG),
+        settings=settings_file("fit"),
+    output:
+        posterior=f"{RESULTS}/fits/{{population}}/posterior.nc",
+        parameters=f"{RESULTS}/fits/{{population}}/parameters.csv",
+        diagnostics=f"{RESULTS}/fits/{{population}}/diagnostics.json",
+        pedigree_used=f"{RESULTS}/fits/{{population}}/pedigree_used.csv",
+    params:
+        out=lambda wildcards: fit_dir(wildcards.population),
+        pedigree_dir=f"{RESULTS}/pedigree",
+    log:
+        f"{LOGS}/fit/{{population}}.log",
+    benchmark:
+        f"{LOGS}/fit/{{population}}.benchmark.tsv"
+    threads: CFG["sampling"]["chains"]
+    resources:
+        mem_mb=fit_mem_mb,
+        runtime=fit_runtime,
+    shell:
+        "scratch=$(mktemp -d \"{resources.tmpdir}/ped2g-fit.XXXXXX\"); "
+        "trap 'rm -rf \"$scratch\"' EXIT; "
+        "export PYTENSOR_FLAGS=\"${{PYTENSOR_FLAGS:+$PYTENSOR_FLAGS,}}base_compiledir=$scratch/pytensor\"; "
+        "export NUMBA_CACHE_DIR=\"$scratch/numba\"; "
+        + stage_shell(
+            "fit --config {input.config:q} --population {wildcards.population:q} "
+            "--pedigree {params.pedigree_dir:q} --out {params.out:q}"
+        )
