@@ -281,7 +281,7 @@ def _tdt_columns(sire, dam, b, rhs):  # pragma: no cover - compiled
     return rhs
 
 
-def relationship_matrix(ped: Pedigree, subset=None, *, memory_budget: float = 2.0e8) -> np.ndarray:
+def relationship_matrix(ped: Pedigree, subset=None, *, memory_budget: float = 1.0e8) -> np.ndarray:
     """Dense additive relationship matrix A, or its block ``A[subset][:, subset]``.
 
     Parameters
@@ -346,7 +346,15 @@ def relationship_matrix(ped: Pedigree, subset=None, *, memory_budget: float = 2.
         rhs[cols, np.arange(len(cols))] = 1.0
         _tdt_columns(sire, dam, b, rhs)
         out[:, start:start + block] = rhs[want]
-    return 0.5 * (out + out.T)
+    # symmetrise in place, one band at a time (columns were formed separately, so the two
+    # triangles can differ by rounding); avoids two k x k temporaries
+    band_rows = int(max(1, min(k, memory_budget // (24 * k))))
+    for start in range(0, k, band_rows):
+        band = slice(start, start + band_rows)
+        avg = 0.5 * (out[band, :] + out[:, band].T)
+        out[band, :] = avg
+        out[:, band] = avg.T
+    return out
 
 
 def log_det_relationship(ped: Pedigree) -> float:
