@@ -82,7 +82,10 @@ def dummy_covariances(values: np.ndarray, perm: np.ndarray, sizes: list[int] | n
     if perm.shape != (S, N):
         raise ValueError(f"perm has shape {perm.shape}, expected {(S, N)}")
     bounds = _check_sizes(np.asarray(sizes), N, 2 if centre else 1, "sample" if centre else "mendelian")
-    shuffled = np.take_along_axis(values, perm[..., None], axis=1)
+    # Gather the shuffled rows with one flat np.take (faster than take_along_axis here).
+    flat = (np.asarray(perm, dtype=np.int64) + (np.arange(S, dtype=np.int64) * N)[:, None]).ravel()
+    shuffled = np.take(values.reshape(S * N, t), flat, axis=0).reshape(S, N, t)
+    del flat
     out = np.empty((S, len(bounds) - 1, t, t))
     for j in range(len(bounds) - 1):  # loop over populations (few), never over draws
         X = shuffled[:, bounds[j]:bounds[j + 1]]
