@@ -1,0 +1,243 @@
+"""The latent engine: breeding values sampled as parameters, in a non-centred form.
+
+Model (standardised scale, ``t`` traits, animals ``i`` of the pruned pedigree, records ``r``)::
+
+    y_r = x_r' B + a_{animal(r)} + sum_k u_{k, level_k(r)} + e_r,     e_r ~ N(0, R)
+    a   = T D^{1/2} W L_G'            W ~ N(0, I)  (n x t),  G = L_G L_G'
+    u_k = V_k L_k'                    V_k ~ N(0, I) (levels x t), Sigma_k = L_k L_k'
+
+``A = T D T'`` with ``T = (I - P)^{-1}`` (P holds 1/2 at each known parent) and ``D = diag(b)``,
+the Mendelian-sampling coefficients that carry the parents' inbreeding (Mrode 2014, p. 25;
+Quaas 1976). So ``vec(a) ~ N(0, G kron A)`` (trait-major stacking, METHODS §2.1) without ever
+forming A or a factor of it: the product by T is the recursion
+
+    a_i = m_i + (a_sire(i) + a_dam(i)) / 2,      m = D^{1/2} W L_G',
+
+done one generation at a time (every parent is in an earlier generation), so a gradient costs
+O(animals x traits) plus O(records x traits^2). Records with missing trait values contribute the
+density of their observed traits only (an exact marginal), through
+:func:`ped2g.fit.batched_normal.mvn_logp_entries`.
+
+Assumptions stated plainly: additive genetic effects only (no dominance or epistasis), Gaussian
+residuals with one R for every record, founders of the pruned pedigree unrelated and non-inbred
+and drawn from one base population with covariance G, no selection on unrecorded traits. Effects
+not in the model (shared environment of relatives, maternal effects, assortative mating) are
+absorbed into G when relatives share them.
+
+Engine interface (shared with :mod:`ped2g.fit.marginal`): :func:`applicable`,
+:func:`build_model`, :func:`breeding_values`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..pedigree.core import Pedigree
+from .data import FitData
+
+__all__ = ["applicable", "build_model", "breeding_values", "generation_layout", "pedigree_product"]
+
+
+# --------------------------------------------------------------------------------------------
+# Pedigree layout
+# --------------------------------------------------------------------------------------------
+
+def generation_layout(ped: Pedigree) -> dict[str, np.ndarray]:
+    """Reorder a pedigree by generation so that each generation is one contiguous block.
+
+    Returns
+    -------
+    dict with
+        ``order`` (n,): pedigree positions in generation order (generation 0 first);
+        ``rank`` (n,): inverse permutation, ``rank[order] = arange(n)``;
+        ``sire``, ``dam`` (n,): parents as positions in the *generation order*, ``n`` (a zero
+        sentinel row) when unknown;
+        ``bounds`` (n_generations + 1,): block boundaries, generation g is ``bounds[g]:bounds[g+1]``;
+        ``sqrt_b`` (n,): square roots of the Mendelian-sampling coefficients, generation order.
+    """
+    n = ped.n
+    blocks = [g for g in ped.generations if len(g)]
+    order = np.concatenate(blocks) if blocks else np.zeros(0, dtype=np.int64)
+    rank = np.empty(n, dtype=np.int64)
+    rank[order] = np.arange(n)
+    sire = ped.sire[order]
+    dam = ped.dam[order]
+    sire_g = np.where(sire >= 0, rank[np.maximum(sire, 0)], n)
+    dam_g = np.where(dam >= 0, rank[np.maximum(dam, 0)], n)
+    bounds = np.concatenate([[0], np.cumsum([len(g) for g in blocks])]).astype(np.int64)
+    # Every parent sits in an earlier block (the recursion below relies on it).
+    block_of = np.repeat(np.arange(len(blocks)), np.diff(bounds))
+    for par in (sire_g, dam_g):
+        known = par < n
+        if np.any(block_of[par[known]] >= block_of[known]):
+            raise ValueError("pedigree generations are inconsistent: a parent is not in an earlier generation")
+    b = ped.mendelian[order]
+    if np.any(b <= 0):
+        raise ValueError("Mendelian-sampling coefficients must be positive (inbreeding F < 1)")
+    return {"order": order, "rank": rank, "sire": sire_g.astype(np.int64), "dam": dam_g.astype(np.int64),
+            "bounds": bounds, "sqrt_b": np.sqrt(b)}
+
+
+def pedigree_product(ped: Pedigree, m: np.ndarray) -> np.ndarray:
+    """Compute ``T m`` with ``T = (I - P)^{-1}``, in pedigree order, by the parent recursion.
+
+    ``(T m)_i = m_i + ((T m)_sire + (T m)_dam) / 2`` (unknown parents contribute 0), vectorised
+    within generations. Works on any trailing shape: ``m`` is ``(..., n, t)`` and so is the result.
+
+    Check: with ``m = D^{1/2} z``, ``T D T' = A`` (Mrode 2014, p. 25), so the covariance of the
+    result is the relationship matrix.
+    """
+    m = np.asarray(m, dtype=float)
+    n = ped.n
+    out = np.zeros(m.shape[:-2] + (n + 1, m.shape[-1]))
+    sire = np.where(ped.sire >= 0, ped.sire, n)
+    dam = np.where(ped.dam >= 0, ped.dam, n)
+    for idx in ped.generations:
+        if len(idx) == 0:
+            continue
+        out[..., idx, :] = m[..., idx, :] + 0.5 * (out[..., sire[idx], :] + out[..., dam[idx], :])
+    return out[..., :n, :]
+
+
+# --------------------------------------------------------------------------------------------
+# Engine interface
+# --------------------------------------------------------------------------------------------
+
+def applicable(data: FitData) -> tuple[bool, str]:
+    """Whether the latent engine can fit ``data``, and why.
+
+    It handles every design the fit stage accepts (any pedigree size, missing trait values,
+    repeated records, extra random effects); its cost per gradient is linear in the number of
+    animals and records.
+    """
+    return True, (f"latent engine: {data.pedigree.n} animals x {data.n_traits} traits sampled as "
+                  "non-centred parameters; cost per gradient linear in animals and records")
+
+
+def _record_layout(data: FitData) -> dict[str, np.ndarray]:
+    """Split records into complete ones and ones with at least one missing trait."""
+    y = np.asarray(data.y, dtype=float)
+    miss = np.isnan(y)
+    complete = ~miss.any(axis=1)
+    return {"complete": np.flatnonzero(complete), "incomplete": np.flatnonzero(~complete),
+            "y": np.where(miss, 0.0, y), "observed": (~miss).astype(float)}
+
+
+def build_model(data: FitData, model_config: dict):
+    """Build the latent-engine PyMC model on the standardised scale.
+
+    Parameters
+    ----------
+    data : FitData
+    model_config : dict
+        ``config["model"]``: ``priors`` and ``fixed_covariances`` (original units).
+
+    Returns
+    -------
+    pymc.Model
+        With Deterministics ``G``, ``R`` (t, t), ``beta`` (p, t) and ``cov_<name>`` per extra
+        random effect; free variables ``w_animal`` (n, t; rows in the generation order of
+        :func:`generation_layout`) and ``v_<name>`` (levels, t). Large arrays (records, design
+        matrix, parent and level indices) enter as ``pm.Data``; only the generation boundaries
+        are constants of the graph.
+    """
+    import pymc as pm
+    import pytensor.tensor as pt
+
+    from .batched_normal import mvn_logp_entries
+    from .priors import covariance_prior, fixed_covariances, fixed_effects_prior
+
+    ped = data.pedigree
+    t = data.n_traits
+    n = ped.n
+    priors = dict(model_config.get("priors") or {})
+    fixed = fixed_covariances(model_config, np.asarray(data.y_scale, dtype=float), list(data.traits))
+    lay = generation_layout(ped)
+    rec = _record_layout(data)
+    rec_animal = lay["rank"][np.asarray(data.record_animal, dtype=np.int64)]
+    X = np.asarray(data.X, dtype=float)
+    comp, inc = rec["complete"], rec["incomplete"]
+    coords = {"trait": list(data.traits), "trait2": list(data.traits), "x_name": list(data.x_names)}
+
+    with pm.Model(coords=coords) as model:
+        sire = pm.Data("gen_sire", lay["sire"])
+        dam = pm.Data("gen_dam", lay["dam"])
+        sqrt_b = pm.Data("gen_sqrt_b", lay["sqrt_b"])
+
+        G, chol_G = covariance_prior("G", t, priors, None if fixed is None else fixed["G"])
+        R, chol_R = covariance_prior("R", t, priors, None if fixed is None else fixed["R"])
+        beta_raw = fixed_effects_prior(X.shape[1], t, priors)
+        if "beta" not in model.named_vars:
+            pm.Deterministic("beta", beta_raw)
+
+        # Breeding values a = T D^1/2 W L_G', generation by generation (generation order).
+        w = pm.Normal("w_animal", 0.0, 1.0, shape=(n, t))
+        m = sqrt_b[:, None] * pt.dot(w, chol_G.T)
+        a = pt.zeros((n + 1, t))  # row n: zero sentinel for unknown parents
+        bounds = lay["bounds"]
+        for g in range(len(bounds) - 1):
+            lo, hi = int(bounds[g]), int(bounds[g + 1])
+            block = m[lo:hi]
+            if g > 0:
+                block = block + 0.5 * (a[sire[lo:hi]] + a[dam[lo:hi]])
+            a = pt.set_subtensor(a[lo:hi], block)
+
+        effects = []
+        for eff in data.random:
+            _, chol_k = covariance_prior(f"cov_{eff.name}", t, priors)
+            v = pm.Normal(f"v_{eff.name}", 0.0, 1.0, shape=(eff.n_levels, t))
+            effects.append((eff, pt.dot(v, chol_k.T)))
+
+        terms = []
+        for part, rows in (("complete", comp), ("incomplete", inc)):
+            if len(rows) == 0:
+                continue
+            y_p = pm.Data(f"y_{part}", rec["y"][rows])
+            mu = pt.dot(pm.Data(f"X_{part}", X[rows]), beta_raw)
+            mu = mu + a[pm.Data(f"animal_{part}", rec_animal[rows])]
+            for eff, u in effects:
+                lev = pm.Data(f"level_{eff.name}_{part}", np.asarray(eff.level, dtype=np.int64)[rows])
+                mu = mu + u[lev]
+            resid = y_p - mu
+            cols = [resid[:, j] for j in range(t)]
+            if part == "complete":
+                logp = mvn_logp_entries(cols, lambda j, l: R[j, l])
+            else:
+                observed = pm.Data("observed_incomplete", rec["observed"][rows])
+                logp = mvn_logp_entries(cols, lambda j, l: R[j, l], observed)
+            terms.append(pt.sum(logp))
+        pm.Potential("records", terms[0] if len(terms) == 1 else terms[0] + terms[1])
+    return model
+
+
+def _pooled(idata, name: str) -> np.ndarray:
+    values = np.asarray(idata.posterior[name].values)
+    return values.reshape((-1,) + values.shape[2:])
+
+
+def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: int | None = None,
+                    conditional_mean: bool = False) -> np.ndarray:
+    """Breeding values of every animal of ``data.pedigree`` from the latent engine's draws.
+
+    ``a = T D^{1/2} W L_G'`` recomputed in NumPy from the stored draws of ``w_animal`` and ``G``
+    (``L_G`` = Cholesky factor of G, which is the factor the model used). The latent engine
+    samples the breeding values, so these are posterior draws; ``rng`` and ``conditional_mean``
+    are accepted for the shared interface and not used.
+
+    Returns
+    -------
+    numpy.ndarray, shape (S, n_animals, t)
+        Standardised scale, animals in pedigree order, S = at most ``max_draws`` evenly thinned
+        pooled draws (chain-major).
+    """
+    from ..posterior import thin_indices
+
+    w = _pooled(idata, "w_animal")
+    G = _pooled(idata, "G")
+    keep = thin_indices(w.shape[0], max_draws)
+    w, G = w[keep], G[keep]
+    lay = generation_layout(data.pedigree)
+    chol = np.linalg.cholesky(0.5 * (G + np.swapaxes(G, -1, -2)))
+    m_gen = lay["sqrt_b"][None, :, None] * np.einsum("snk,sjk->snj", w, chol)
+    m = m_gen[:, lay["rank"], :]  # back to pedigree order
+    return pedigree_product(data.pedigree, m)
