@@ -34,6 +34,10 @@ CAUTIONS = [
     "Under the null every dummy population shares one G (a mixture of the observed ones): the "
     "null says how different G's estimated from these pedigree structures and sample sizes look "
     "when there is no real difference.",
+    "With the 'mendelian' estimator the relatedness of the animals affects neither the mean nor "
+    "the spread of a null G: a dummy population of n animals varies like G estimated from n "
+    "unrelated animals with known breeding values, which is less than real estimates vary - "
+    "one more reason the null can be too narrow.",
     "With the 'sample' estimator the null G's are shrunk by relatedness by the factor c "
     "(c_pooled in this summary), so scale-sensitive statistics differ from the observed ones for "
     "that reason alone; use scale-free statistics with it.",
@@ -95,6 +99,10 @@ def run(args: argparse.Namespace) -> int:
         log.warning("%d phenotyped animals appear in more than one population's fit; each copy is "
                     "simulated and pooled separately", shared)
     sizes = [len(mem) for mem in members]
+    few = [f"{p} ({n})" for p, n in zip(fits.populations, sizes) if n < t]
+    if few:
+        log.warning("fewer phenotyped animals than traits (%d) in %s: dummy populations of those "
+                    "sizes get singular null G draws", t, ", ".join(few))
     chunk = chunk_size(peds, sizes, t, args.memory)
     log.info("simulating %d draws x %d populations (%s phenotyped animals pooled, %s in the "
              "pedigrees) in chunks of %d draws; estimator %s", S, m, "+".join(map(str, sizes)),

@@ -6,7 +6,12 @@ Two estimators (METHODS §6.1 step 3, §6.2), both vectorised over draws:
   ``phi_i = u_i - (u_sire + u_dam)/2`` is animal i's Mendelian-sampling deviation and ``b_i`` its
   Mendelian-sampling coefficient (Mrode 2014, p. 25). The ``phi_i`` are independent with
   ``var(phi_i) = b_i G`` (Henderson's decomposition A = T D T'), so ``E[G~_j] = G`` exactly,
-  whatever the relatedness and inbreeding of the animals.
+  whatever the relatedness and inbreeding of the animals. Over all animals of a pedigree it is
+  the estimate of G from known breeding values, ``U' A^-1 U / n`` (``A^-1 = (I-P)' D^-1 (I-P)``,
+  Mrode 2014 p. 27). Note what follows: the ``phi_i / sqrt(b_i)`` are independent N(0, G)
+  vectors, so the pedigree's relatedness does not enter this estimator's spread - a dummy
+  population's null G varies like the mean of n_j independent outer products (Wishart with n_j
+  degrees of freedom, divided by n_j), not like a sample covariance among relatives.
 * ``sample``: the sample covariance of the breeding values, ``(1/(n_j-1)) sum (u_i - u_bar)
   (u_i - u_bar)'``, as the randomisation null was first described (Aguirre et al. 2014,
   Heredity 112:21-29). Relatives share breeding values, so ``E = c_j G`` with
