@@ -52,14 +52,13 @@ from ..errors import UserError
 from ..pedigree.core import Pedigree
 from ..pedigree.relationships import inbreeding
 from ..rng import generator
+from . import DEMO_SEED
 from .breeding_values import covariance_factor, simulate_breeding_values
 
 __all__ = ["StudySettings", "Study", "simulate_study", "DESIGNS", "DEMO_SEED"]
 
 #: Ways a population's G can differ from the reference's.
 DESIGNS = ("reference", "reduced", "rotated")
-#: The seed the demo data in ``resources_demo/`` were made with.
-DEMO_SEED = 2026
 
 _DEMO_TRAITS = ("snout_vent", "head_width", "hind_limb", "body_mass")
 _DEMO_MEANS = (64.0, 11.0, 28.0, 9.5)
@@ -227,6 +226,18 @@ def _validate(s: StudySettings) -> None:
     def is_int(v: Any) -> bool:
         return isinstance(v, (int, np.integer)) and not isinstance(v, bool)
 
+    def is_number(v: Any) -> bool:
+        return isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(v, bool)
+
+    for key in ("population_shift", "phenotypic_cv", "genetic_correlation", "residual_correlation",
+                "reduction", "rotation_degrees", "sex_effect", "breeding_males",
+                "permanent_fraction", "brood_fraction", "unknown_parent_fraction",
+                "missing_value_fraction"):
+        need(is_number(getattr(s, key)) and math.isfinite(getattr(s, key)), key, "must be a number")
+    for key in ("trait_means", "heritability"):
+        values = getattr(s, key)
+        need(values is None or all(is_number(v) and math.isfinite(v) for v in values), key,
+             "must be a list of numbers, one per trait")
     need(len(s.populations) >= 1, "populations", "needs at least one population name")
     need(all(isinstance(p, str) and p.strip() == p and p and " " not in p for p in s.populations),
          "populations", "must be non-empty names without spaces")
@@ -685,9 +696,9 @@ def _population_truth(s: StudySettings, pop: str, p: dict[str, Any], d: dict[str
         "phenotyped_animals": int(phenotyped.sum()),
         "records": int(n_rec),
         "missing_trait_values": n_missing,
-        "generations": int(d["generation"].max()),
-        "mean_inbreeding": float(_round_sig(d["ped"].inbreeding.mean(), _SUMMARY_SIG)),
-        "max_inbreeding": float(_round_sig(d["ped"].inbreeding.max(), _SUMMARY_SIG)),
+        "generations_true_pedigree": int(d["generation"].max()),
+        "mean_inbreeding_true_pedigree": float(_round_sig(d["ped"].inbreeding.mean(), _SUMMARY_SIG)),
+        "max_inbreeding_true_pedigree": float(_round_sig(d["ped"].inbreeding.max(), _SUMMARY_SIG)),
     })
     return entry
 

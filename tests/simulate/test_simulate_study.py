@@ -294,3 +294,29 @@ def test_too_few_breeding_animals_is_reported():
         simulate_study(StudySettings(populations=("a",), founders=4, animals=7, years=3,
                                      max_breeding_age=1, phenotyped=5, absent_parents=0,
                                      duplicate_rows=0, stray_whitespace=0), seed=1)
+
+
+def test_raw_pedigree_is_cleaned_by_the_pedigree_stage(tmp_path):
+    """The written flaws are exactly what the pedigree stage finds and repairs."""
+    from ped2g.pedigree.clean import read_raw_pedigree
+
+    st = simulate_study(SMALL, seed=6)
+    path = tmp_path / "pedigree.csv"
+    st.pedigree.to_csv(path, index=False)
+    ped, changes = read_raw_pedigree(path, missing=SMALL.missing_parent_codes)
+    assert ped.n == len(SMALL.populations) * SMALL.animals  # absent parents are back as founders
+    problems = changes["problem"].value_counts()
+    assert problems.get("duplicate row", 0) == SMALL.duplicate_rows
+    added = changes[changes["problem"].str.contains("has no row of its own")]
+    assert sorted(added["id"]) == st.truth["data_features"]["absent_parents"]
+    stripped = changes[changes["problem"].str.startswith("white space")]
+    assert len(stripped) == SMALL.stray_whitespace
+    # parentage after cleaning = the true parentage minus the links written as unknown
+    true = st.animals.set_index("id")
+    clean = ped.to_frame().set_index("id").loc[true.index]
+    for col in ("sire", "dam"):
+        shown = clean[col] != ""
+        assert (clean.loc[shown, col] == true.loc[shown, col]).all()
+    hidden = int(((clean["sire"] == "") & (true["sire"] != "")).sum()
+                 + ((clean["dam"] == "") & (true["dam"] != "")).sum())
+    assert hidden == sum(st.truth["data_features"]["unknown_parent_links"].values())
