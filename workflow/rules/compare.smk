@@ -14,6 +14,8 @@ rule compare:
         out=f"{RESULTS}/compare",
     log:
         f"{LOGS}/compare/compare.log",
+    conda:
+        "../../envs/ped2g.yaml"
     threads: 1
     resources:
         mem_mb=2000,

@@ -35,6 +35,8 @@ rule fit:
         f"{LOGS}/fit/{{population}}.log",
     benchmark:
         f"{LOGS}/fit/{{population}}.benchmark.tsv"
+    conda:
+        "../../envs/ped2g.yaml"
     threads: CFG["sampling"]["chains"]
     resources:
         mem_mb=fit_mem_mb,

@@ -14,6 +14,8 @@ rule null:
         out=f"{RESULTS}/null",
     log:
         f"{LOGS}/null/null.log",
+    conda:
+        "../../envs/ped2g.yaml"
     threads: 1
     resources:
         mem_mb=2000,

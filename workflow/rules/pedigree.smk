@@ -31,6 +31,8 @@ rule pedigree:
         options=pedigree_options(),
     log:
         f"{LOGS}/pedigree/pedigree.log",
+    conda:
+        "../../envs/ped2g.yaml"
     threads: 1
     resources:
         mem_mb=2000,

@@ -16,6 +16,8 @@ rule report:
         out=f"{RESULTS}/report",
     log:
         f"{LOGS}/report/report.log",
+    conda:
+        "../../envs/ped2g.yaml"
     threads: 1
     resources:
         mem_mb=2000,
