@@ -1,0 +1,305 @@
+"""The compare stage without its command line: from a fit set (and a null) to tables and draws.
+
+:func:`compare` standardises the draws, checks them, fixes the references, runs every method on
+the observed and the null draws and summarises them; :func:`write_outputs` writes the result
+through :func:`ped2g.io.output_dir`, so a failed run leaves nothing that looks finished.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from .. import __version__
+from ..errors import UserError
+from ..posterior import FitSet
+from ..rng import generator
+from . import gmax, scale, skewers, subspace, tensor
+from .matrices import positive_definite, symmetrise
+from .statistics import DrawSet, References, build_references, draw_statistics
+from .summarise import summarise_method
+
+METHOD_ORDER = ("skewers", "subspace", "tensor", "gmax", "evolvability", "dimensions", "distance")
+
+
+@dataclass
+class CompareResult:
+    """Everything the compare stage writes."""
+
+    tables: dict[str, pd.DataFrame]
+    references: pd.DataFrame
+    loadings: pd.DataFrame
+    checks: pd.DataFrame
+    draws: xr.Dataset
+    summary: dict[str, Any]
+    warnings: list[str] = field(default_factory=list)
+
+
+NullInput = tuple[np.ndarray, list[str], list[str], np.ndarray, dict[str, Any]]
+
+
+def _check_finite(name: str, values: np.ndarray, populations: list[str]) -> None:
+    axes = tuple(range(2, values.ndim))
+    bad = ~np.isfinite(values).all(axis=axes) if axes else ~np.isfinite(values)
+    if bad.any():
+        j = int(np.argwhere(bad.any(axis=0))[0][0])
+        raise UserError(f"{name} of population '{populations[j]}' has non-finite values in "
+                        f"{int(bad[:, j].sum())} of {bad.shape[0]} draws; the file is damaged - rerun the stage that wrote it")
+
+
+def _align_null(null: NullInput, fits: FitSet, null_path: Path | None) -> tuple[np.ndarray, np.ndarray, dict]:
+    """Null G in the fit set's population order and, per null draw, its observed draw position."""
+    G0, pops0, traits0, index0, attrs0 = null
+    where = f"null file {null_path}" if null_path else "null file"
+    if traits0 != fits.traits:
+        if sorted(traits0) == sorted(fits.traits):
+            raise UserError(f"{where} has the traits in another order ({', '.join(traits0)}) than the "
+                            f"fits ({', '.join(fits.traits)}); rerun 'ped2g null' on these fits")
+        raise UserError(f"{where} has traits ({', '.join(traits0)}) that differ from the fits' "
+                        f"({', '.join(fits.traits)}); rerun 'ped2g null' on these fits")
+    if sorted(pops0) != sorted(fits.populations):
+        raise UserError(f"{where} has populations ({', '.join(pops0)}) that differ from the fits' "
+                        f"({', '.join(fits.populations)}); rerun 'ped2g null' on these fits")
+    G0 = G0[:, [pops0.index(p) for p in fits.populations]]
+    lookup = {int(d): i for i, d in enumerate(fits.draw_index)}
+    missing = [int(d) for d in index0 if int(d) not in lookup]
+    if missing:
+        raise UserError(f"{where}: {len(missing)} of its {len(index0)} draws come from posterior draws "
+                        f"not used here (e.g. draw {missing[0]}); the fits or compare.max_draws changed "
+                        "since the null was built - rerun 'ped2g null' with this config and these fits")
+    _check_finite("null G", G0, fits.populations)
+    return symmetrise(G0), np.array([lookup[int(d)] for d in index0], dtype=np.int64), attrs0
+
+
+def _count_invalid(valid: np.ndarray, source: str, populations: list[str],
+                   log: logging.Logger) -> list[dict[str, Any]]:
+    rows = []
+    for j, pop in enumerate(populations):
+        n_bad = int((~valid[:, j]).sum())
+        rows.append({"source": source, "population": pop, "n_draws": int(valid.shape[0]),
+                     "n_not_positive_definite": n_bad})
+        if n_bad == valid.shape[0]:
+            raise UserError(f"{source} G of population '{pop}': none of its {n_bad} draws is positive "
+                            "definite, so no comparison can use it; check that fit (or rerun 'ped2g null')")
+    total = [r for r in rows if r["n_not_positive_definite"]]
+    if total:
+        log.warning("%s G draws that are not positive definite, left out of every statistic they "
+                    "enter (not repaired): %s", source,
+                    ", ".join(f"{r['population']}: {r['n_not_positive_definite']} of {r['n_draws']}" for r in total))
+    return rows
+
+
+def compare(fits: FitSet, null: NullInput | None, config: dict[str, Any], budget_bytes: float = 512e6,
+            log: logging.Logger | None = None, null_path: Path | None = None) -> CompareResult:
+    """Run every comparison on the observed draws of ``fits`` and on the ``null`` draws.
+
+    Parameters
+    ----------
+    fits
+        From :func:`ped2g.posterior.load_fit_set`.
+    null
+        From :func:`ped2g.null.io.read_null`, or None.
+    config
+        The validated config (keys ``compare.*`` and ``sampling.seed`` are used).
+    budget_bytes
+        Rough memory limit of one chunk of draws.
+    """
+    log = log or logging.getLogger("ped2g.compare")
+    cfg = config["compare"]
+    mass = float(cfg["interval_mass"])
+    scale_name = cfg["scale"]
+    pops, traits = fits.populations, fits.traits
+    S, m, t, _ = fits.G.shape
+    warnings: list[str] = []
+    if t < 2:
+        raise UserError(f"key 'traits': comparisons of G need at least two traits, got {t} ({', '.join(traits)})")
+    for name in ("G", "P", "mean"):
+        _check_finite(f"fit {name}", getattr(fits, name), pops)
+
+    factors = scale.scale_factors(fits.P, fits.mean, scale_name, pops, traits)
+    pooled = scale.pooled_factors(fits.P, fits.mean, scale_name)
+    G_obs = scale.standardise(fits.G, factors)
+    G_common = scale.standardise(fits.G, pooled[:, None, :])
+    means_common = fits.mean / pooled[:, None, :]
+    divergence = gmax.divergence_axis(means_common)
+    n_no_div = int(np.isnan(divergence).any(axis=-1).sum())
+    if n_no_div:
+        warnings.append(f"{n_no_div} of {S} draws have identical population means; the angle to "
+                        "divergence is left out on them")
+    valid = positive_definite(fits.G)
+    checks = _count_invalid(valid, "observed", pops, log)
+    if not valid.all(axis=1).any():
+        raise UserError("no posterior draw has a positive-definite G in every population, so the "
+                        "statistics of the whole set cannot be computed; check the fits")
+    obs = DrawSet(G=G_obs, G_common=G_common, divergence=divergence, valid=valid)
+
+    k, warn = subspace.check_dims(cfg["subspace_dims"], t)
+    if warn:
+        warnings.append(warn)
+    for w in warnings:
+        log.warning(w)
+    refs = build_references(obs, int(cfg["skewers"]), k,
+                            generator(int(config["sampling"]["seed"]), "compare", "skewers"))
+    stats_obs = draw_statistics(obs, refs, pops, traits, budget_bytes)
+
+    stats_null = pair = None
+    null_attrs: dict[str, Any] = {}
+    if null is not None:
+        G0, pair, null_attrs = _align_null(null, fits, null_path)
+        valid0 = positive_definite(G0)
+        checks += _count_invalid(valid0, "null_model", pops, log)
+        G0s = scale.standardise(G0, pooled[pair][:, None, :])
+        null_set = DrawSet(G=G0s, G_common=G0s, divergence=divergence[pair], valid=valid0)
+        stats_null = draw_statistics(null_set, refs, pops, traits, budget_bytes)
+
+    tables = {}
+    for method in METHOD_ORDER:
+        names = [n for n, a in stats_obs.items() if a.attrs["method"] == method]
+        tables[method] = summarise_method({n: stats_obs[n] for n in names},
+                                          None if stats_null is None else {n: stats_null[n] for n in names},
+                                          pair, mass, scale_name)
+    refs_table = reference_table(refs, m, t, S, mass)
+    loadings = loadings_table(refs, pops, traits, means_common)
+    draws = draws_dataset(stats_obs, stats_null, fits, pair, refs, traits, pops)
+    checks_df = pd.DataFrame(checks)
+    summary = {
+        "ped2g_version": __version__,
+        "populations": pops, "traits": traits, "scale": scale_name, "interval_mass": mass,
+        "draws": S, "null_draws": None if null is None else int(len(pair)),
+        "skewers": int(cfg["skewers"]), "subspace_dims": k,
+        "eigentensors_kept": int(refs.tensor["E"].shape[0]),
+        "seed": int(config["sampling"]["seed"]),
+        "not_positive_definite": {f"{r['source']}:{r['population']}": r["n_not_positive_definite"] for r in checks},
+        "null_estimator": null_attrs.get("estimator"),
+        "null_cautions": [str(c) for c in np.atleast_1d(null_attrs.get("cautions", []))],
+        "warnings": warnings,
+        "fits": [str(f.path) for f in fits.fits],
+        "null": None if null_path is None else str(null_path),
+    }
+    draws.attrs.update(ped2g_kind="compare", ped2g_version=__version__, scale=scale_name,
+                       interval_mass=mass, skewers=int(cfg["skewers"]), subspace_dims=k,
+                       seed=int(config["sampling"]["seed"]),
+                       not_positive_definite=[f"{r['source']}:{r['population']}={r['n_not_positive_definite']}"
+                                              for r in checks],
+                       warnings=warnings or ["none"])
+    return CompareResult(tables=tables, references=refs_table, loadings=loadings, checks=checks_df,
+                         draws=draws, summary=summary, warnings=warnings)
+
+
+def reference_table(refs: References, m: int, t: int, S: int, mass: float) -> pd.DataFrame:
+    """Fixed reference values: random-direction references, reference eigenvalues, settings."""
+    rows: list[dict[str, Any]] = []
+
+    def add(method: str, quantity: str, value: float, description: str, axis: Any = "", axis2: Any = "") -> None:
+        rows.append({"method": method, "quantity": quantity, "axis": axis, "axis2": axis2,
+                     "value": float(value), "description": description})
+
+    n = refs.skewers.shape[0]
+    rv = skewers.random_reference(t, n, mass)
+    add("skewers", "skewers", n, "number of random unit selection gradients (one set for every draw)")
+    add("skewers", "random_mean_abs_correlation", rv["mean_abs_correlation"],
+        "E|r| of two random directions, Gamma(t/2) / (sqrt(pi) Gamma((t+1)/2))")
+    add("skewers", "random_correlation_upper", rv["correlation_upper"],
+        f"one-sided upper {mass:g} point of the correlation of two random directions")
+    add("skewers", "random_mean_correlation_upper", rv["mean_correlation_upper"],
+        f"one-sided upper {mass:g} point of the mean correlation over the skewers for random "
+        "directions (normal approximation)")
+    add("skewers", "random_mean_angle", rv["mean_angle"], "mean angle between random directions (degrees)")
+    ga = gmax.random_angle_reference(t, mass)
+    add("gmax", "random_angle_mean", ga["mean"], "mean angle between a random direction and a fixed axis (degrees)")
+    add("gmax", "random_angle_lower", ga["lower"],
+        f"angle a random direction falls below with probability {1 - mass:.3g} (degrees)")
+    add("subspace", "subspace_dims", refs.subspace_dims, "leading eigenvectors per population (k)")
+    add("subspace", "max_eigenvalue", m, "largest possible eigenvalue of H (the number of populations)")
+    for j, w in enumerate(refs.subspace_eigenvalues, 1):
+        add("subspace", "reference_eigenvalue", w, "eigenvalue of H from the posterior-mean G matrices", j)
+    for k, w in enumerate(refs.tensor["eigenvalues"], 1):
+        add("tensor", "reference_eigenvalue", w, "eigenvalue of the posterior-mean covariance tensor S", k)
+        for j, e in enumerate(refs.tensor["epsilon"][k - 1], 1):
+            add("tensor", "eigentensor_eigenvalue", e,
+                "eigenvalue of the eigentensor (sum of squares over an eigentensor is 1)", k, j)
+    add("dimensions", "traits", t, "upper bound of both effective-dimension measures")
+    add("draws", "observed_draws", S, "posterior draws per population")
+    return pd.DataFrame(rows)
+
+
+def loadings_table(refs: References, pops: list[str], traits: list[str],
+                   means_common: np.ndarray) -> pd.DataFrame:
+    """Fixed axes as tidy rows: reference, population, axis, axis2, trait, trait2, value."""
+    rows: list[dict[str, Any]] = []
+
+    def add(reference: str, value: float, trait: str, trait2: str = "", axis: Any = "",
+            axis2: Any = "", population: str = "") -> None:
+        rows.append({"reference": reference, "population": population, "axis": axis, "axis2": axis2,
+                     "trait": trait, "trait2": trait2, "value": float(value)})
+
+    t = len(traits)
+    for j in range(t):
+        for i, tr in enumerate(traits):
+            add("subspace_axis", refs.subspace_axes[i, j], tr, axis=j + 1)
+    ten = refs.tensor
+    for k in range(ten["E"].shape[0]):
+        for a, ta in enumerate(traits):
+            for b, tb in enumerate(traits):
+                add("eigentensor", ten["E"][k, a, b], ta, tb, axis=k + 1)
+            for j in range(t):
+                add("eigentensor_vector", ten["e"][k, a, j], ta, axis=k + 1, axis2=j + 1)
+    labels = [f"{traits[a]}:{traits[b]}" for a, b in tensor.element_pairs(t)]
+    for a, la in enumerate(labels):
+        for b, lb in enumerate(labels):
+            add("covariance_tensor_S", refs.tensor_S[a, b], la, lb)
+    for p, pop in enumerate(pops):
+        for i, tr in enumerate(traits):
+            add("gmax_posterior_mean", refs.gmax[p, i], tr, population=pop)
+    d = gmax.divergence_axis(means_common.mean(axis=0, keepdims=True))[0]
+    for i, tr in enumerate(traits):
+        add("divergence_posterior_mean", d[i], tr)
+    return pd.DataFrame(rows)
+
+
+def draws_dataset(stats_obs: dict[str, xr.DataArray], stats_null: dict[str, xr.DataArray] | None,
+                  fits: FitSet, pair: np.ndarray | None, refs: References, traits: list[str],
+                  pops: list[str]) -> xr.Dataset:
+    """Every per-draw statistic (``<name>`` observed, ``null_<name>`` null) and the references."""
+    data = dict(stats_obs)
+    if stats_null is not None:
+        for name, arr in stats_null.items():
+            data[f"null_{name}"] = arr.rename(draw="null_draw")
+    ds = xr.Dataset(data)
+    ds = ds.assign_coords(draw=np.arange(ds.sizes["draw"]))
+    ds["draw_index"] = ("draw", np.asarray(fits.draw_index, dtype=np.int64))
+    ds["draw_index"].attrs["description"] = "pooled posterior draw of each fit used as this draw"
+    if stats_null is not None:
+        ds = ds.assign_coords(null_draw=np.arange(len(pair)))
+        ds["null_pair"] = ("null_draw", pair)
+        ds["null_pair"].attrs["description"] = "position on the draw axis of the observed draw this null draw came from"
+    ds["reference_skewers"] = (("skewer", "trait"), refs.skewers)
+    ds["reference_subspace_axes"] = (("trait", "subspace_axis"), refs.subspace_axes)
+    ds["reference_eigentensors"] = (("eigentensor", "trait", "trait2"), refs.tensor["E"])
+    ds["reference_tensor_vectors"] = (("eigentensor", "trait", "tensor_vector"), refs.tensor["e"])
+    ds["reference_tensor_epsilon"] = (("eigentensor", "tensor_vector"), refs.tensor["epsilon"])
+    ds["reference_gmax"] = (("population", "trait"), refs.gmax)
+    return ds.assign_coords(trait2=traits)
+
+
+def write_outputs(result: CompareResult, out: str | os.PathLike, cautions: list[str]) -> None:
+    """Write the tables, ``draws.nc`` and ``summary.json`` into ``out`` (atomically)."""
+    from ..io import output_dir, write_json
+
+    with output_dir(out) as tmp:
+        for method, frame in result.tables.items():
+            frame.to_csv(tmp / f"{method}.csv", index=False)
+        result.references.to_csv(tmp / "references.csv", index=False)
+        result.loadings.to_csv(tmp / "loadings.csv", index=False)
+        result.checks.to_csv(tmp / "draw_checks.csv", index=False)
+        ds = result.draws.copy()
+        ds.attrs["cautions"] = list(cautions)
+        ds.to_netcdf(tmp / "draws.nc", engine="h5netcdf")
+        write_json(tmp / "summary.json", {**result.summary, "cautions": list(cautions)})
