@@ -8,12 +8,16 @@ or fail.
 
     python benchmarks/null_benchmark.py [--draws 1000] [--populations 6] [--traits 8]
                                         [--animals 2000] [--estimator mendelian] [--keep DIR]
+                                        [--with-compare]
+
+With ``--with-compare`` it then runs ``ped2g compare`` on the same fits and null and prints the
+two stages' combined wall time and the larger of their peaks.
 """
 
 from __future__ import annotations
 
 import argparse
-import resource
+import os
 import subprocess
 import sys
 import tempfile
@@ -72,6 +76,7 @@ def main() -> None:
     parser.add_argument("--animals", type=int, default=2000)
     parser.add_argument("--estimator", choices=["mendelian", "sample"], default="mendelian")
     parser.add_argument("--memory", type=float, default=None, help="--memory passed to ped2g null (MB)")
+    parser.add_argument("--with-compare", action="store_true", help="also time 'ped2g compare'")
     parser.add_argument("--keep", type=Path, default=None, help="build the inputs here and keep them")
     args = parser.parse_args()
 
@@ -93,15 +98,30 @@ def main() -> None:
            "--out", str(root / "null")]
     if args.memory is not None:
         cmd += ["--memory", str(args.memory)]
-    start = time.perf_counter()
-    subprocess.run(cmd, check=True)
-    wall = time.perf_counter() - start
-    peak_mb = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
+    wall, peak_mb = timed(cmd)
     print(f"ped2g null: {args.draws} draws x {args.populations} populations x {args.traits} traits, "
           f"{args.animals} animals per pedigree, estimator {args.estimator}: "
           f"wall {wall:.1f} s, peak RSS {peak_mb:.0f} MB")
     summary = pd.read_json(root / "null" / "summary.json", typ="series")
     print(f"chunk of {summary['chunk_draws']} draws; stage's own run time {summary['run_seconds']} s")
+    if args.with_compare:
+        cmd = [sys.executable, "-m", "ped2g", "compare", "--config", str(config), "--fits", *fits,
+               "--null", str(root / "null" / "null_G.nc"), "--out", str(root / "compare")]
+        wall_c, peak_c = timed(cmd)
+        print(f"ped2g compare: wall {wall_c:.1f} s, peak RSS {peak_c:.0f} MB")
+        print(f"null + compare: wall {wall + wall_c:.1f} s, peak RSS {max(peak_mb, peak_c):.0f} MB")
+
+
+def timed(cmd: list[str]) -> tuple[float, float]:
+    """Run ``cmd``; its wall time (s) and its own peak resident memory (MB, from wait4)."""
+    start = time.perf_counter()
+    proc = subprocess.Popen(cmd)
+    _, status, usage = os.wait4(proc.pid, 0)
+    wall = time.perf_counter() - start
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    if proc.returncode != 0:
+        raise SystemExit(f"{' '.join(cmd[2:4])} failed with status {proc.returncode}")
+    return wall, usage.ru_maxrss / 1024
 
 
 if __name__ == "__main__":
