@@ -101,12 +101,27 @@ class Pedigree:
     @classmethod
     def from_frame(cls, frame: pd.DataFrame) -> "Pedigree":
         """Build from a table with the columns of ``pedigree.csv`` (already clean and ordered)."""
+        n = len(frame)
+        cols = [frame[c].fillna("").astype(str).reset_index(drop=True) for c in ("id", "sire", "dam")]
+        # one hash pass over every identifier instead of a Python loop over rows
+        codes, names = pd.factorize(pd.concat(cols, ignore_index=True))
         ids = frame["id"].astype(str).to_numpy(dtype=object)
-        index = {name: i for i, name in enumerate(ids)}
+        id_codes = codes[:n]
+        repeated = np.bincount(id_codes, minlength=len(names))[id_codes] > 1
+        if repeated.any():
+            raise ValueError(f"pedigree has the id {ids[np.argmax(repeated)]!r} more than once")
+        first = np.full(len(names), -1, dtype=np.int64)
+        first[id_codes] = np.arange(n)
+        blank = np.asarray(names, dtype=object) == ""
 
         def parents(col: str) -> np.ndarray:
-            values = frame[col].fillna("").astype(str).to_numpy(dtype=object)
-            return np.array([index[v] if v else -1 for v in values], dtype=np.int64)
+            k = {"sire": 1, "dam": 2}[col]
+            c = codes[k * n:(k + 1) * n]
+            pos = np.where(blank[c], -1, first[c]).astype(np.int64)
+            absent = (pos < 0) & ~blank[c]
+            if absent.any():
+                raise KeyError(f"{col} {names[c[np.argmax(absent)]]!r} is not an id of the pedigree")
+            return pos
 
         return cls(ids=ids, sire=parents("sire"), dam=parents("dam"),
                    generation=frame["generation"].to_numpy(dtype=np.int64),
