@@ -180,8 +180,8 @@ def compare(fits: FitSet, null: NullInput | None, config: dict[str, Any], budget
         "null_estimator": null_attrs.get("estimator"),
         "null_cautions": [str(c) for c in np.atleast_1d(null_attrs.get("cautions", []))],
         "warnings": warnings,
-        "fits": [str(f.path) for f in fits.fits],
-        "null": None if null_path is None else str(null_path),
+        "fits": [{"path": str(f.path), "sha256": _sha256(Path(f.path) / "posterior.nc")} for f in fits.fits],
+        "null": None if null_path is None else {"path": str(null_path), "sha256": _sha256(null_path)},
     }
     draws.attrs.update(ped2g_kind="compare", ped2g_version=__version__, scale=scale_name,
                        interval_mass=mass, skewers=int(cfg["skewers"]), subspace_dims=k,
@@ -191,6 +191,13 @@ def compare(fits: FitSet, null: NullInput | None, config: dict[str, Any], budget
                        warnings=warnings or ["none"])
     return CompareResult(tables=tables, references=refs_table, loadings=loadings, checks=checks_df,
                          draws=draws, summary=summary, warnings=warnings)
+
+
+def _sha256(path: Path) -> str | None:
+    from ..io import file_sha256
+
+    path = path / "null_G.nc" if path.is_dir() else path
+    return file_sha256(path) if path.is_file() else None
 
 
 def reference_table(refs: References, m: int, t: int, S: int, mass: float) -> pd.DataFrame:
