@@ -13,7 +13,8 @@ write to --out:
                  left empty
   ainverse.mtx   the inverse of the additive relationship matrix (Matrix Market, symmetric,
                  rows and columns in the order of pedigree.csv)
-  changes.csv    every change made to the table: row (line in the file), id, problem, action
+  changes.csv    every change made to the table: row (line in the file; for an added founder,
+                 the first line that names it), id, problem, action
   summary.json   counts of animals, founders, families, generations, inbreeding and changes
 
 Repairs made and logged: white space around ids is stripped; exact duplicate rows are dropped;
