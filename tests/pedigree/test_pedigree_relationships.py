@@ -226,3 +226,23 @@ def test_random_pedigrees_match_the_tabular_method(n, seed, selfing, p_unknown):
 def test_inbreeding_rejects_offspring_before_parents():
     with pytest.raises(ValueError, match="parents before offspring"):
         inbreeding([-1, 2, -1], [-1, -1, -1])
+
+
+def test_deep_inbred_pedigree_matches_column_method():
+    # A small closed population over many generations (parents among the previous 40 animals,
+    # families of full sibs): F from Meuwissen & Luo must equal diag(T D T') - 1 computed by the
+    # column sweeps of relationship_matrix (a different algorithm), an exact identity.
+    rng = np.random.default_rng(11)
+    n = 2500
+    sire = np.full(n, -1, dtype=np.int64)
+    dam = np.full(n, -1, dtype=np.int64)
+    for i in range(40, n, 2):
+        s, d = rng.integers(i - 40, i, size=2)
+        sire[i:i + 2], dam[i:i + 2] = s, d  # two full sibs
+    ped = make_pedigree([(str(i), str(s) if s >= 0 else None, str(d) if d >= 0 else None)
+                         for i, (s, d) in enumerate(zip(sire, dam))])
+    assert ped.inbreeding.max() > 0.5          # genuinely deep inbreeding
+    a = relationship_matrix(ped)
+    np.testing.assert_allclose(ped.inbreeding, np.diag(a) - 1, atol=1e-9)
+    ainv = ainverse(ped)
+    np.testing.assert_allclose(ainv @ a[:, :50], np.eye(n)[:, :50], atol=1e-8)
