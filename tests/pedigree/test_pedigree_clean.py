@@ -56,6 +56,8 @@ def test_messy_fixture_is_cleaned_and_every_change_logged():
         (8, "x9", "dam has no row of its own"),
     }
     assert list(changes.columns) == ["row", "id", "problem", "action"]
+    assert changes.loc[changes["problem"] == "duplicate row", "action"].tolist() == [
+        "dropped (same as line 5)"]
     # parents before offspring
     assert np.all(ped.sire < np.arange(ped.n)) and np.all(ped.dam < np.arange(ped.n))
 
