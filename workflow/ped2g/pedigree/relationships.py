@@ -165,6 +165,11 @@ def inbreeding(sire, dam) -> np.ndarray:
     linear in its number of ancestors. Animals with an unknown parent have ``F = 0``; full sibs
     share ``F``, so each (sire, dam) pair is traced once. Selfing (``sire == dam``) is exact:
     the parent receives both halves, giving ``F = (1 + F_parent)/2``.
+
+    Cost: the sum over distinct parent pairs of their number of ancestors. Field and breeding
+    pedigrees of 10^6 animals over ~10 generations take about a second; a small closed
+    population traced over hundreds of generations (every animal descending from nearly
+    every earlier one) grows quadratically.
     """
     sire, dam = _as_parent_arrays(sire, dam)
     if len(sire) == 0:
