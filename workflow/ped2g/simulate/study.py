@@ -729,7 +729,8 @@ def _truth(s: StudySettings, seed: int, params: dict, pop_truth: dict, features:
     return {
         "about": ("Invented study simulated by ped2g; every number below is a true parameter of "
                   "the simulation, not an estimate."),
-        "made_with": {"command": f"ped2g simulate --seed {seed}", "seed": seed,
+        "made_with": {"command": f"ped2g.simulate.study.simulate_study(settings, seed={seed}) "
+                                 "with the settings below", "seed": seed,
                       "ped2g_version": __version__},
         "traits": list(s.traits),
         "populations": pop_truth,
