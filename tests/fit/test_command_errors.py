@@ -1,0 +1,121 @@
+"""Bad input to 'ped2g fit' ends with one clear line and exit status 2 (before any sampling)."""
+
+import numpy as np
+import pandas as pd
+import pytest
+import yaml
+
+from ped2g.cli import main
+from ped2g.fit.prepare import prepare
+from ped2g.config import validate
+from ped2g.pedigree.core import Pedigree
+
+
+def write_study(tmp_path, phen_rows=None, config_extra=None):
+    ped = pd.DataFrame({"id": [f"a{i}" for i in range(12)],
+                        "sire": ["", "", "", "", "a0", "a0", "a2", "a2", "a4", "a4", "a6", "a6"],
+                        "dam": ["", "", "", "", "a1", "a3", "a1", "a3", "a5", "a7", "a7", "a5"]})
+    ped.to_csv(tmp_path / "ped.csv", index=False)
+    rng = np.random.default_rng(0)
+    if phen_rows is None:
+        phen_rows = [{"id": f"a{i}", "pop": "north", "mass": f"{rng.normal(10, 1):.3f}",
+                      "wing": f"{rng.normal(5, 1):.3f}"} for i in range(4, 12)]
+    pd.DataFrame(phen_rows).to_csv(tmp_path / "phen.csv", index=False)
+    cfg = {"data": {"pedigree": str(tmp_path / "ped.csv"), "phenotypes": str(tmp_path / "phen.csv"),
+                    "columns": {"population": "pop"}},
+           "traits": ["mass", "wing"]}
+    for key, value in (config_extra or {}).items():
+        cfg[key] = value
+    path = tmp_path / "config.yaml"
+    path.write_text(yaml.safe_dump(cfg))
+    return path
+
+
+def run_fit(tmp_path, capsys, config, population="north"):
+    # The ped2g log handler keeps the stream it was created with; point it at pytest's capture
+    # for this call and back at the real stderr afterwards.
+    import logging
+    import sys
+
+    handlers = [h for h in logging.getLogger("ped2g").handlers if type(h) is logging.StreamHandler]
+    for handler in handlers:
+        handler.stream = sys.stderr
+    try:
+        status = main(["fit", "--config", str(config), "--population", population, "--out",
+                       str(tmp_path / "out"), "--no-progress"])
+    finally:
+        for handler in handlers:
+            handler.stream = sys.__stderr__
+    err = capsys.readouterr().err.strip().splitlines()
+    return status, err
+
+
+def assert_one_line_error(status, err, *patterns):
+    assert status == 2
+    lines = [ln for ln in err if "error:" in ln]
+    assert len(lines) == 1, err
+    for p in patterns:
+        assert p in lines[0], lines[0]
+    assert not (lines[0] and any("Traceback" in ln for ln in err))
+
+
+def test_missing_trait_column(tmp_path, capsys):
+    cfg = write_study(tmp_path, config_extra={"traits": ["mass", "tarsus"]})
+    status, err = run_fit(tmp_path, capsys, cfg)
+    assert_one_line_error(status, err, "no column 'tarsus'", "traits")
+    assert not (tmp_path / "out").exists()
+
+
+def test_non_numeric_trait_names_the_line(tmp_path, capsys):
+    rows = [{"id": f"a{i}", "pop": "north", "mass": str(10 + i), "wing": str(i % 3)} for i in range(4, 12)]
+    rows[3]["mass"] = "heavy"
+    cfg = write_study(tmp_path, phen_rows=rows)
+    status, err = run_fit(tmp_path, capsys, cfg)
+    assert_one_line_error(status, err, "line 5", "'mass'", "'heavy'")
+
+
+def test_population_without_records(tmp_path, capsys):
+    cfg = write_study(tmp_path)
+    status, err = run_fit(tmp_path, capsys, cfg, population="south")
+    assert_one_line_error(status, err, "population 'south' has no records", "north")
+
+
+def test_trait_without_variance(tmp_path, capsys):
+    rows = [{"id": f"a{i}", "pop": "north", "mass": "7.5", "wing": str(i)} for i in range(4, 12)]
+    cfg = write_study(tmp_path, phen_rows=rows)
+    status, err = run_fit(tmp_path, capsys, cfg)
+    assert_one_line_error(status, err, "trait 'mass' has no variance")
+
+
+def test_too_few_records_for_the_parameters(tmp_path, capsys):
+    rows = [{"id": f"a{i}", "pop": "north", "mass": str(i), "wing": str(i * i % 7) if i < 7 else ""}
+            for i in range(4, 12)]
+    cfg = write_study(tmp_path, phen_rows=rows)
+    status, err = run_fit(tmp_path, capsys, cfg)
+    assert_one_line_error(status, err, "trait 'wing' has 3 records", "parameters")
+
+
+@pytest.mark.parametrize("extra,pattern", [
+    ({"modle": {}}, "unknown key 'modle'"),
+    ({"sampling": {"chains": "four"}}, "sampling.chains"),
+    ({"model": {"engine": "fastest"}}, "model.engine"),
+])
+def test_config_mistakes_name_the_key(tmp_path, capsys, extra, pattern):
+    cfg = write_study(tmp_path, config_extra=extra)
+    status, err = run_fit(tmp_path, capsys, cfg)
+    assert_one_line_error(status, err, pattern)
+
+
+def test_phenotyped_animal_absent_from_pedigree_is_added_as_founder():
+    ped = Pedigree(ids=np.array(["s", "d", "o1", "o2"], dtype=object), sire=np.array([-1, -1, 0, 0]),
+                   dam=np.array([-1, -1, 1, 1]), generation=np.array([0, 0, 1, 1]), inbreeding=np.zeros(4))
+    ids = ["o1", "o2", "stray"] * 3
+    frame = pd.DataFrame({"id": ids, "population": "p", "x": [str(v) for v in range(9)],
+                          "z": [str(v * v % 5) for v in range(9)]})
+    frame.index = pd.Index(range(2, 11), name="line")
+    data = prepare(validate({"traits": ["x", "z"]}), frame, ped, "p")
+    assert "stray" in data.pedigree.index
+    i = data.pedigree.index["stray"]
+    assert data.pedigree.sire[i] == -1 and data.pedigree.dam[i] == -1 and data.phenotyped[i]
+    assert any("added as founders" in note and "stray" in note for note in data.notes)
+    assert data.repeated_records

@@ -1,0 +1,107 @@
+"""Running NUTS on an engine's model: nutpie (numba backend, the default) or PyMC's own sampler.
+
+The sampler seed comes from the run seed through :func:`ped2g.rng.seed_sequence` with the names
+``("fit", population, "sampler")``, so each population's chains are reproducible and independent
+of the order in which populations are fitted. Progress is shown by the sampler's own progress bar.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ..errors import UserError
+from ..rng import seed_sequence
+
+SAMPLERS = ("nutpie", "pymc")
+
+
+@dataclass
+class SamplingRun:
+    """The draws and what it took to get them.
+
+    Attributes
+    ----------
+    idata : arviz.InferenceData
+        Posterior draws (warm-up removed) and sample_stats.
+    info : dict
+        sampler, seed, chains, warmup, draws, target_accept, compile_seconds, sampling_seconds,
+        gradient_evaluations (warm-up included), divergences (kept draws), seconds_per_gradient.
+    """
+
+    idata: Any
+    info: dict[str, Any] = field(default_factory=dict)
+
+
+def sampler_seed(seed: int, population: str) -> int:
+    """A 32-bit seed for the sampler of one population, derived from the run seed."""
+    return int(seed_sequence(seed, "fit", population, "sampler").generate_state(1)[0])
+
+
+def _count(idata, group: str, stat: str) -> int:
+    if group not in idata.groups() or stat not in idata[group]:
+        return 0
+    return int(np.asarray(idata[group][stat].values).sum())
+
+
+def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
+        compiled=None) -> SamplingRun:
+    """Sample ``model`` with the settings of ``config["sampling"]``.
+
+    Parameters
+    ----------
+    model
+        A PyMC model from an engine's ``build_model``.
+    sampling
+        Keys sampler, chains, warmup, draws, target_accept, seed.
+    population
+        Names the seed stream.
+    compiled
+        An already compiled nutpie model (e.g. the same model with other data through
+        ``compiled.with_data``); skips compilation.
+    """
+    sampler = sampling.get("sampler", "nutpie")
+    if sampler not in SAMPLERS:
+        raise UserError(f"config key 'sampling.sampler' is {sampler!r}; allowed: {', '.join(SAMPLERS)}")
+    chains = int(sampling.get("chains", 4))
+    warmup = int(sampling.get("warmup", 1000))
+    draws = int(sampling.get("draws", 1000))
+    target_accept = float(sampling.get("target_accept", 0.9))
+    seed = sampler_seed(int(sampling.get("seed", 1)), population)
+    cores = max(1, min(chains, os.cpu_count() or 1))
+    info: dict[str, Any] = dict(sampler=sampler, seed=seed, run_seed=int(sampling.get("seed", 1)),
+                                chains=chains, warmup=warmup, draws=draws, target_accept=target_accept)
+    if sampler == "nutpie":
+        import nutpie
+
+        start = time.perf_counter()
+        if compiled is None:
+            compiled = nutpie.compile_pymc_model(model, backend="numba")
+        info["compile_seconds"] = time.perf_counter() - start
+        start = time.perf_counter()
+        idata = nutpie.sample(compiled, draws=draws, tune=warmup, chains=chains, cores=cores, seed=seed,
+                              target_accept=target_accept, progress_bar=progress, save_warmup=True)
+        info["sampling_seconds"] = time.perf_counter() - start
+        info["compiled"] = compiled
+    else:
+        import pymc as pm
+
+        start = time.perf_counter()
+        with model:
+            idata = pm.sample(draws=draws, tune=warmup, chains=chains, cores=cores, random_seed=seed,
+                              target_accept=target_accept, progressbar=progress,
+                              discard_tuned_samples=False, compute_convergence_checks=False)
+        info["compile_seconds"] = None
+        info["sampling_seconds"] = time.perf_counter() - start
+    grads = (_count(idata, "sample_stats", "n_steps")
+             + _count(idata, "warmup_sample_stats", "n_steps"))
+    info["gradient_evaluations"] = grads
+    info["divergences"] = _count(idata, "sample_stats", "diverging")
+    info["seconds_per_gradient"] = info["sampling_seconds"] / grads * cores if grads else None
+    for group in [g for g in idata.groups() if g.startswith("warmup")]:
+        del idata[group]
+    return SamplingRun(idata=idata, info=info)
