@@ -187,6 +187,10 @@ def test_shapes_and_argument_errors():
         simulate_breeding_values(ped, np.array([[1.0, 0.5], [0.0, 1.0]]), np.random.default_rng(0))
     with pytest.raises(UserError, match="at least 1"):
         simulate_breeding_values(ped, G2, np.random.default_rng(0), n_draws=0)
+    flat = Pedigree(ids=ped.ids, sire=ped.sire, dam=ped.dam, generation=np.zeros(6, dtype=np.int64),
+                    inbreeding=ped.inbreeding)
+    with pytest.raises(UserError, match="animal 3 is not in a later generation than its parent"):
+        simulate_breeding_values(flat, G2, np.random.default_rng(0))
 
 
 def test_covariance_factor_is_cholesky_for_positive_definite():

@@ -172,6 +172,14 @@ def simulate_breeding_values(
     U = phi.copy() if return_mendelian else phi
     sire = np.asarray(ped.sire, dtype=np.int64)
     dam = np.asarray(ped.dam, dtype=np.int64)
+    gen = np.asarray(ped.generation)
+    for parent in (sire, dam):
+        known = np.flatnonzero(parent >= 0)
+        late = known[gen[parent[known]] >= gen[known]]
+        if late.size:
+            raise UserError(
+                f"pedigree generation numbers are inconsistent: animal {ped.ids[late[0]]} is not in "
+                "a later generation than its parent; rebuild the pedigree with 'ped2g pedigree'")
     for members in ped.generations[1:]:
         # Parents are all in earlier generations, so their values are final here. Animals with
         # both parents known take one gather-add-scatter (a third faster than one per parent).
