@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+import logging
 from pathlib import Path
 
 import numpy as np
@@ -144,7 +146,14 @@ def test_non_positive_definite_draws_are_left_out_and_counted(tmp_path, fit_fold
     bad = write_fit(tmp_path / "fits" / "west", "west", ["a", "b", "c"], G,
                     mean=np.full((40, 3), 12.0))
     cfg = write_config(tmp_path / "c.yaml")
-    assert run("--config", cfg, "--fits", *fit_folders, bad, "--out", tmp_path / "out") == 0
+    logger = logging.getLogger("ped2g.compare")        # ped2g's loggers do not propagate to root
+    logger.addHandler(caplog.handler)
+    try:
+        assert run("--config", cfg, "--fits", *fit_folders, bad, "--out", tmp_path / "out") == 0
+    finally:
+        logger.removeHandler(caplog.handler)
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert summary["not_positive_definite"]["observed:west"] == 2
     checks = pd.read_csv(tmp_path / "out" / "draw_checks.csv")
     row = checks[(checks.source == "observed") & (checks.population == "west")]
     assert row["n_not_positive_definite"].item() == 2
@@ -152,6 +161,9 @@ def test_non_positive_definite_draws_are_left_out_and_counted(tmp_path, fit_fold
     ev = pd.read_csv(tmp_path / "out" / "evolvability.csv")
     assert ev.loc[ev.population == "west", "n_draws"].eq(38).all()
     assert ev.loc[ev.population == "north", "n_draws"].eq(40).all()
+    dist = pd.read_csv(tmp_path / "out" / "distance.csv")
+    with_west = (dist.population == "west") | (dist.population2 == "west")
+    assert dist.loc[with_west, "n_draws"].eq(38).all() and dist.loc[~with_west, "n_draws"].eq(40).all()
     sub = pd.read_csv(tmp_path / "out" / "subspace.csv")
     assert sub.loc[sub.statistic == "eigenvalue", "n_draws"].eq(38).all()   # set-level statistic
     assert "not positive definite" in caplog.text and "west: 2 of 40" in caplog.text

@@ -46,11 +46,12 @@ def unit_skewers(n: int, t: int, rng: np.random.Generator) -> np.ndarray:
 def _chunk(G: np.ndarray, B: np.ndarray) -> dict[str, np.ndarray]:
     s, m = G.shape[:2]
     Z = B @ np.swapaxes(G, -1, -2)                                # responses (s, m, N, t)
-    norm = np.linalg.norm(Z, axis=-1)                             # (s, m, N)
+    norm = np.sqrt(np.einsum("smnt,smnt->smn", Z, Z))             # (s, m, N)
     lam_max = np.abs(np.linalg.eigvalsh(G)).max(axis=-1)          # (s, m)
     valid = norm > ZERO_RESPONSE_TOL * lam_max[..., None]
     safe = np.where(valid, norm, 1.0)
-    Zn = np.where(valid[..., None], Z / safe[..., None], 0.0)
+    Z *= np.where(valid, 1.0 / safe, 0.0)[..., None]              # unit responses (0 if dropped)
+    Zn = Z
     logn = np.log(safe)
     rbar = np.ones((s, m, m))
     angle = np.zeros((s, m, m))

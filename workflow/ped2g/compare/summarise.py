@@ -109,7 +109,9 @@ def summarise_statistic(obs: xr.DataArray, null: xr.DataArray | None, pair: np.n
                         mass: float, scale: str) -> pd.DataFrame:
     """Tidy rows for one statistic (see the module docstring for the columns).
 
-    ``obs`` has dims ``(draw, ...)``; ``null`` (optional) the same with ``null_draw`` first.
+    ``obs`` has dims ``(draw, ...)``; ``null`` (optional) the same dims, its first axis the null
+    draws; ``pair`` gives, per null draw, the position of its observed draw (see
+    :func:`paired_comparison`).
     """
     dims = list(obs.dims[1:])
     S = obs.sizes["draw"]
