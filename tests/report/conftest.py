@@ -1,8 +1,8 @@
-"""Fixtures of the report tests (the invented study is written by :mod:`.study`)."""
+"""Fixtures of the report tests (the invented study is written by report_study.py)."""
 
 import pytest
 
-from .study import make_study
+from report_study import make_study
 
 
 @pytest.fixture(scope="session")

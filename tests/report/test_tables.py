@@ -11,7 +11,7 @@ from ped2g.posterior import posterior_dataset
 from ped2g.report import tables
 from ped2g.report.loaders import FitInputs
 
-from .study import MRODE_PEDIGREE
+from report_study import MRODE_PEDIGREE
 
 CHECKS = {"max_rhat": 1.01, "min_ess": 100, "max_divergences": 0}
 
@@ -136,7 +136,8 @@ def test_compare_overlap_rule():
 
 
 def test_row_labels_name_pairs_indices_and_traits():
-    frame = pd.DataFrame({"population": ["a", "a", np.nan], "population2": ["b", np.nan, np.nan],
-                          "index": [np.nan, 2.0, 1.0], "trait": [np.nan, np.nan, "wing"],
-                          "statistic": ["s", "s", "s"]})
-    assert tables.row_labels(frame) == ["a vs b", "a #2", "#1 wing"]
+    # Canonical columns after the loader's renaming: axis (component or trait), axis2.
+    frame = pd.DataFrame({"population": ["a", "a", np.nan, "c"], "population2": ["b", np.nan, np.nan, np.nan],
+                          "axis": [np.nan, 2.0, 1.0, "1"], "axis2": [np.nan, np.nan, "wing", "2"],
+                          "statistic": ["s", "s", "s", "s"]})
+    assert tables.row_labels(frame) == ["a vs b", "a #2", "#1 wing", "c #1 #2"]

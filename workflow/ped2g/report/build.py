@@ -23,8 +23,8 @@ from markupsafe import Markup
 from ..io import output_dir, write_json
 from . import html, tables
 from .figures import (MAX_RANK_PANELS, FigureStore, comparison_figure, covariance_unit,
-                      g_heatmaps_figure, heritability_figure, pairwise_matrix_figure,
-                      rank_plots_figure, slug)
+                      eigentensor_figure, g_heatmaps_figure, heritability_figure, loadings_figure,
+                      pairwise_matrix_figure, rank_plots_figure, slug)
 from .loaders import ResultInputs, read_phenotypes, read_results
 from .methods_text import CAUTION_REFERENCES, REFERENCES, cautions, methods_paragraph
 from .provenance import checksums, package_versions, run_context, stage_records
@@ -47,6 +47,7 @@ METHOD_TITLES = {
     "tensor": "Genetic covariance tensor (eigentensors, loadings, coordinates)",
     "gmax": "g_max and its angle to divergence",
     "evolvability": "Evolvability measures",
+    "dimensions": "Effective number of dimensions",
     "distance": "Riemannian distance between G matrices",
 }
 METHOD_NOTES = {
@@ -59,6 +60,8 @@ METHOD_NOTES = {
     "gmax": "Angle in degrees between g_max and the divergence vector: 0 means divergence along the "
             "line of most genetic variance, 90 perpendicular to it.",
     "evolvability": "Average response along random unit selection gradients (Hansen & Houle 2008).",
+    "dimensions": "How many trait combinations carry appreciable genetic variance: 1 when G has one "
+                  "dominant axis, the number of traits when variance is spread evenly.",
     "distance": "Zero for equal matrices; larger values mean more different matrices.",
 }
 MAX_HTML_ROWS = 60
@@ -189,7 +192,8 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
         paragraph, refs = methods_paragraph(config, pops, traits, engines, n_changes,
                                             passed=len(pops) - len(failed),
                                             methods=list(inputs.compare), null_present=inputs.null_present,
-                                            versions=versions)
+                                            versions=versions,
+                                            compare_record=inputs.compare_extras.get("summary"))
         refs = sorted(set(refs) | {REFERENCES[k] for k in CAUTION_REFERENCES})
         sec = sections["methods"]
         sec.note("Generated from the settings and outputs of this run; adapt it for a paper and keep "
@@ -205,7 +209,13 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
                                    [pedigree_path, pheno_path], versions, saved, argv)
 
         # -- cautions --------------------------------------------------------------------------
-        sections["cautions"].items(cautions(config, failed, inputs.null_present, has_null_cols, n_changes))
+        sec = sections["cautions"]
+        sec.items(cautions(config, failed, inputs.null_present, has_null_cols, n_changes))
+        recorded = tables.stage_cautions(inputs)
+        if recorded:
+            sec.heading("Recorded by the stages")
+            sec.note("The assumptions and cautions each stage wrote beside its results.")
+            sec.items(recorded)
 
         env = Environment(loader=PackageLoader("ped2g.report", "templates"),
                           autoescape=select_autoescape(["html", "j2"]))
@@ -236,7 +246,7 @@ def _data_section(sec: Section, inputs: ResultInputs, pheno, pheno_path: Path, t
         sec.table(html.table(ped))
     if inputs.pedigree_summary:
         sec.heading("Pedigree stage summary")
-        sec.table(html.key_values(inputs.pedigree_summary))
+        sec.table(html.key_values(tables.record_items(inputs.pedigree_summary)))
     sec.heading("Phenotype records and missingness")
     counts = tables.phenotype_counts(pheno, inputs.populations, traits)
     if counts is None:
@@ -350,18 +360,36 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
                          saved: _Tables, store: FigureStore) -> bool:
     mass = config["compare"]["interval_mass"]
     scale = config["compare"]["scale"]
+    extras = inputs.compare_extras
+    traits = next(iter(inputs.fits.values())).traits
     if inputs.null_summary is not None:
         sec.heading("Randomisation null")
-        sec.table(html.key_values(inputs.null_summary))
+        sec.table(html.key_values(tables.record_items(inputs.null_summary)))
     elif not inputs.null_present:
         sec.note("No randomisation null was found (null/null_G.nc): the comparisons below have no null "
                  "reference. Run 'ped2g null' and 'ped2g compare' to add one.")
     if not inputs.compare:
         sec.note("No comparison tables were found (compare/*.csv): run 'ped2g compare' to add them.")
         return False
+    if extras.get("summary"):
+        sec.heading("Comparison settings")
+        sec.table(html.key_values(tables.record_items(extras["summary"])))
+    checks = extras.get("draw_checks")
+    if checks is not None and not checks.empty:
+        saved.save("compare_draw_checks", checks)
+        sec.note("Draws whose G is not positive definite are left out of the statistics they enter "
+                 "(never repaired):")
+        bad = pd.DataFrame(False, index=checks.index, columns=checks.columns)
+        for col in checks.columns:
+            if col.startswith("n_not"):
+                bad[col] = pd.to_numeric(checks[col], errors="coerce").fillna(0) > 0
+        sec.table(html.table(checks, misses=bad))
     sec.text(f"Observed statistics (blue) against the same statistics on the null G's (grey), each as "
              f"posterior median and {mass:.0%} HPD interval; G matrices on the {scale} scale. "
-             "p_obs_gt_null is the paired posterior probability that the observed value exceeds the null.")
+             "P(observed > null) is the paired posterior probability that the observed value exceeds "
+             "the null; highlighted rows are those whose intervals do not overlap (a strict criterion, "
+             "see Cautions).")
+    loadings = extras.get("loadings")
     has_null_cols = False
     for method, frame in inputs.compare.items():
         sec.heading(METHOD_TITLES.get(method, method))
@@ -370,26 +398,77 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
         display = tables.compare_display(frame)
         has_null_cols |= "null_estimate" in display and display["null_estimate"].notna().any()
         saved.save(f"compare_{method}", display)
+        if "description" in frame:
+            described = frame.drop_duplicates("statistic")[["statistic", "description"]].dropna()
+            if len(described):
+                sec.items([f"{r.statistic}: {r.description}" for r in described.itertuples()])
         compact = tables.compare_compact(display, mass)
         sec.table(html.table(compact, misses=_no_overlap(compact), max_rows=MAX_HTML_ROWS))
+        forest, matrices, too_long = {}, {}, []
         for statistic, part in frame.groupby("statistic", sort=False):
             part = part.reset_index(drop=True)
-            base = f"compare_{method}_{statistic}"
-            pairwise = "population2" in part and part["population2"].notna().all() and \
-                "population" in part and "index" not in part.columns
-            if pairwise and len(pops) > 2:
-                sec.figure(store.add(f"{base}_matrix", pairwise_matrix_figure(part, pops, str(statistic),
-                                                                              str(statistic)),
-                                     f"{statistic}, matrix", f"Posterior median {statistic} between every "
-                                     "pair of populations."))
+            no_axis = "axis" not in part or part["axis"].isna().all()
+            if "population2" in part and part["population2"].notna().all() and no_axis and len(pops) > 2:
+                matrices[str(statistic)] = part
             if len(part) <= MAX_FOREST_ROWS:
-                sec.figure(store.add(base, comparison_figure(part, str(statistic),
-                                                             f"{statistic} (median and {mass:.0%} HPD)"),
-                                     f"{statistic}", f"{METHOD_TITLES.get(method, method)}: {statistic}, "
-                                     "observed against the null."))
+                forest[str(statistic)] = part
             else:
-                sec.note(f"{statistic} has {len(part)} rows, too many to plot; see tables/compare_{method}.csv.")
+                too_long.append(str(statistic))
+        title = METHOD_TITLES.get(method, method)
+        if matrices:
+            sec.figure(store.add(f"compare_{method}_matrix", pairwise_matrix_figure(matrices, pops, title),
+                                 f"{title}: every pair of populations",
+                                 "Posterior median of each pairwise statistic."))
+        if forest:
+            sec.figure(store.add(f"compare_{method}", comparison_figure(forest, title, f"G on the {scale} scale"),
+                                 title, "Observed statistics (blue) against the randomisation null (grey), "
+                                 f"posterior median and {mass:.0%} HPD interval."))
+        for statistic in too_long:
+            sec.note(f"{statistic} has too many rows to plot; see tables/compare_{method}.csv.")
+        _loadings_figures(sec, method, loadings, traits, store)
+    references = extras.get("references")
+    if references is not None and not references.empty:
+        saved.save("compare_references", references)
+        sec.heading("Reference values")
+        sec.note("Fixed settings and random-direction reference values the comparisons used.")
+        sec.table(html.table(references, max_rows=MAX_HTML_ROWS))
+    if loadings is not None and not loadings.empty:
+        saved.save("compare_loadings", loadings)
     return bool(has_null_cols)
+
+
+#: Which loadings (compare/loadings.csv ``reference``) go with which method, and how to plot them.
+LOADING_PLOTS = {
+    "subspace": [("subspace_axis", "axis", "Reference axes of H: trait loadings")],
+    "tensor": [("eigentensor_vector", "axis2", "Eigenvectors of the leading eigentensor: trait loadings")],
+    "gmax": [("gmax_posterior_mean", "population", "g_max of the posterior-mean G: trait loadings"),
+             ("divergence_posterior_mean", None, "Divergence axis of the population means: trait loadings")],
+}
+
+
+def _loadings_figures(sec: Section, method: str, loadings: pd.DataFrame | None, traits: list[str],
+                      store: FigureStore) -> None:
+    if loadings is None or loadings.empty or "reference" not in loadings:
+        return
+    if method == "tensor":
+        part = loadings[loadings["reference"] == "eigentensor"]
+        if len(part):
+            sec.figure(store.add("loadings_eigentensors", eigentensor_figure(part, traits),
+                                 "Eigentensors", "The leading eigentensors of the posterior-mean covariance "
+                                 "tensor as trait x trait matrices: the pattern of (co)variances that "
+                                 "differs most among populations."))
+    for reference, group, title in LOADING_PLOTS.get(method, []):
+        part = loadings[loadings["reference"] == reference].copy()
+        if part.empty:
+            continue
+        if reference == "eigentensor_vector":
+            first = sorted(part["axis"].dropna().unique(), key=float)[:1]
+            part = part[part["axis"].isin(first)]
+        if group is None:
+            part["component"] = "divergence"
+            group = "component"
+        sec.figure(store.add(f"loadings_{reference}", loadings_figure(part, traits, group, title),
+                             title, f"{title} (compare/loadings.csv, reference {reference})."))
 
 
 def _no_overlap(display: pd.DataFrame) -> pd.DataFrame | None:

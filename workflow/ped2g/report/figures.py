@@ -223,57 +223,133 @@ def rank_plots_figure(elements: dict[str, np.ndarray], population: str, bins: in
 # ---------------------------------------------------------------------------------------------
 # Comparisons
 # ---------------------------------------------------------------------------------------------
-def comparison_figure(frame: pd.DataFrame, statistic: str, xlabel: str) -> Figure:
-    """Forest plot of one statistic: observed estimate and HPD, beside the null's when present."""
-    labels = row_labels(frame)
-    y = np.arange(len(frame))
-    has_null = {"null_estimate", "null_lower", "null_upper"} <= set(frame.columns) and \
-        frame["null_estimate"].notna().any()
-    fig, ax = plt.subplots(figsize=(7.5, 0.42 * len(frame) + 1.4))
-    shift = 0.17 if has_null else 0.0
+def comparison_figure(frames: dict[str, pd.DataFrame], title: str, scale_note: str) -> Figure:
+    """Forest plots of a method's statistics, one panel per statistic: the observed posterior
+    median and HPD interval (blue) beside the null's (grey) where the null exists."""
+    sizes = [max(len(f), 1) for f in frames.values()]
+    fig, axes = plt.subplots(len(frames), 1, figsize=(7.8, 0.34 * sum(sizes) + 1.05 * len(frames) + 0.4),
+                             squeeze=False, gridspec_kw={"height_ratios": [n + 2.2 for n in sizes]})
+    legend_done = False
+    for ax, (statistic, frame) in zip(axes[:, 0], frames.items()):
+        labels = row_labels(frame)
+        y = np.arange(len(frame))
+        has_null = {"null_estimate", "null_lower", "null_upper"} <= set(frame.columns) and \
+            frame["null_estimate"].notna().any()
+        shift = 0.17 if has_null else 0.0
 
-    def draw(est, lo, hi, offset, colour, label):
-        est, lo, hi = (np.asarray(v, dtype=float) for v in (est, lo, hi))
-        ok = np.isfinite(lo) & np.isfinite(hi)
-        err = np.where(ok, [est - np.where(ok, lo, est), np.where(ok, hi, est) - est], 0.0)
-        ax.errorbar(est, y + offset, xerr=np.abs(err), fmt="o", color=colour, capsize=2,
-                    markersize=4, label=label)
+        def draw(est, lo, hi, offset, colour, label):
+            est, lo, hi = (np.asarray(v, dtype=float) for v in (est, lo, hi))
+            ok = np.isfinite(lo) & np.isfinite(hi)
+            err = np.where(ok, [est - np.where(ok, lo, est), np.where(ok, hi, est) - est], 0.0)
+            ax.errorbar(est, y + offset, xerr=np.abs(err), fmt="o", color=colour, capsize=2,
+                        markersize=4, label=label)
 
-    lo = frame["lower"] if "lower" in frame else np.full(len(frame), np.nan)
-    hi = frame["upper"] if "upper" in frame else np.full(len(frame), np.nan)
-    draw(frame["estimate"], lo, hi, -shift, OBSERVED_COLOUR, "observed")
-    if has_null:
-        draw(frame["null_estimate"], frame["null_lower"], frame["null_upper"], shift, NULL_COLOUR,
-             "randomisation null")
-    ax.set_yticks(y, labels)
-    ax.invert_yaxis()
-    ax.set_xlabel(xlabel)
-    ax.set_title(statistic)
-    ax.grid(axis="y", visible=False)
+        nan = np.full(len(frame), np.nan)
+        draw(frame["estimate"], frame["lower"] if "lower" in frame else nan,
+             frame["upper"] if "upper" in frame else nan, -shift, OBSERVED_COLOUR, "observed")
+        if has_null:
+            draw(frame["null_estimate"], frame["null_lower"], frame["null_upper"], shift, NULL_COLOUR,
+                 "randomisation null")
+        ax.set_yticks(y, labels, fontsize=8)
+        ax.set_ylim(len(frame) - 0.5, -0.5)
+        ax.set_xlabel(statistic, fontsize=9)
+        ax.tick_params(axis="x", labelsize=8)
+        ax.grid(axis="y", visible=False)
+        if not legend_done:
+            ax.legend(fontsize=8, loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=2, frameon=False)
+            legend_done = True
+    fig.suptitle(f"{title} (median and HPD interval; {scale_note})", fontsize=10)
+    fig.tight_layout()
+    return fig
+
+
+def pairwise_matrix_figure(frames: dict[str, pd.DataFrame], populations: list[str], title: str) -> Figure:
+    """Heatmaps of pairwise statistics (population x population, symmetric), one panel each,
+    cells annotated with the posterior median."""
+    seen: set[str] = set()
+    for f in frames.values():
+        seen |= set(f["population"].astype(str)) | set(f["population2"].astype(str))
+    pops = [p for p in populations if p in seen] + sorted(seen - set(populations))
+    index = {p: i for i, p in enumerate(pops)}
+    n = len(frames)
+    size = max(3.0, 0.55 * len(pops) + 1.8)
+    fig, axes = plt.subplots(1, n, figsize=((size + 0.9) * n, size), squeeze=False)
+    for ax, (statistic, frame) in zip(axes[0], frames.items()):
+        mat = np.full((len(pops), len(pops)), np.nan)
+        for r in frame.itertuples():
+            i, j = index[str(r.population)], index[str(r.population2)]
+            mat[i, j] = mat[j, i] = r.estimate
+        annot = np.vectorize(lambda v: fmt(v) if np.isfinite(v) else "")(mat)
+        sns.heatmap(mat, ax=ax, annot=annot, fmt="", cmap="viridis", square=True,
+                    xticklabels=pops, yticklabels=pops, cbar_kws={"label": statistic, "shrink": 0.8},
+                    mask=~np.isfinite(mat), annot_kws={"fontsize": 8})
+        ax.grid(False)
+        ax.set_title(statistic, fontsize=10)
+    fig.suptitle(title, fontsize=10)
+    fig.tight_layout()
+    return fig
+
+
+def loadings_figure(frame: pd.DataFrame, traits: list[str], group: str, title: str,
+                    ylabel: str = "loading") -> Figure:
+    """Grouped bars of trait loadings (``trait``, ``value``), one colour per ``group`` value
+    (a component number or a population)."""
+    groups = list(dict.fromkeys(frame[group].tolist()))
+    fig, ax = plt.subplots(figsize=(max(4.5, 1.1 * len(traits) + 2.5), 3.2))
+    width = 0.8 / max(len(groups), 1)
+    palette = sns.color_palette("colorblind", len(groups))
+    x = np.arange(len(traits))
+    for k, g in enumerate(groups):
+        part = frame[frame[group] == g].set_index("trait")["value"]
+        ax.bar(x - 0.4 + width * (k + 0.5), [part.get(t, np.nan) for t in traits], width,
+               color=palette[k], label=_axis_name(g, group))
+    ax.axhline(0.0, color="0.3", lw=0.8)
+    ax.set_xticks(x, traits, rotation=30 if len(traits) > 5 else 0, ha="right" if len(traits) > 5 else "center")
+    ax.set_xlabel("trait")
+    ax.set_ylabel(ylabel)
+    ax.set_title(title)
+    ax.grid(axis="x", visible=False)
     ax.legend(fontsize=8, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
     fig.tight_layout()
     return fig
 
 
-def pairwise_matrix_figure(frame: pd.DataFrame, populations: list[str], statistic: str,
-                           value_label: str) -> Figure:
-    """Heatmap of a pairwise statistic (population x population), symmetric, cells annotated."""
-    pops = [p for p in populations if p in set(frame["population"]) | set(frame["population2"])]
-    pops += sorted((set(frame["population"]) | set(frame["population2"])) - set(pops))
-    index = {p: i for i, p in enumerate(pops)}
-    mat = np.full((len(pops), len(pops)), np.nan)
-    for r in frame.itertuples():
-        i, j = index[r.population], index[r.population2]
-        mat[i, j] = mat[j, i] = r.estimate
-    size = max(3.2, 0.6 * len(pops) + 1.8)
-    fig, ax = plt.subplots(figsize=(size + 1.2, size))
-    annot = np.vectorize(lambda v: fmt(v) if np.isfinite(v) else "")(mat)
-    sns.heatmap(mat, ax=ax, annot=annot, fmt="", cmap="viridis", square=True,
-                xticklabels=pops, yticklabels=pops, cbar_kws={"label": value_label},
-                mask=~np.isfinite(mat))
-    ax.grid(False)
-    ax.set_xlabel("population")
-    ax.set_ylabel("population")
-    ax.set_title(statistic)
-    fig.tight_layout()
+def _axis_name(value, group: str) -> str:
+    if group == "axis":
+        try:
+            return f"#{int(float(value))}"
+        except (TypeError, ValueError):
+            return str(value)
+    return str(value)
+
+
+def eigentensor_figure(frame: pd.DataFrame, traits: list[str], max_tensors: int = 3) -> Figure:
+    """Heatmaps of the leading eigentensors E_k (trait x trait), on one symmetric colour scale."""
+    axes_ids = sorted(frame["axis"].dropna().unique(), key=float)[:max_tensors]
+    n = len(axes_ids)
+    t = len(traits)
+    size = max(2.8, 0.6 * t + 1.4)
+    fig, axes = plt.subplots(1, n, figsize=(size * n + 1.0, size), squeeze=False)
+    index = {tr: i for i, tr in enumerate(traits)}
+    mats = []
+    for a in axes_ids:
+        mat = np.full((t, t), np.nan)
+        for r in frame[frame["axis"] == a].itertuples():
+            if r.trait in index and r.trait2 in index:
+                mat[index[r.trait], index[r.trait2]] = r.value
+        mats.append(mat)
+    lim = float(np.nanmax(np.abs(mats))) or 1.0
+    image = None
+    for ax, a, mat in zip(axes.flat, axes_ids, mats):
+        image = ax.imshow(mat, cmap="RdBu_r", vmin=-lim, vmax=lim)
+        if t <= 6:
+            for i in range(t):
+                for j in range(t):
+                    ax.text(j, i, fmt(mat[i, j], 2), ha="center", va="center", fontsize=7)
+        ax.set_xticks(range(t), traits, rotation=40, ha="right")
+        ax.set_yticks(range(t), traits if ax is axes.flat[0] else [""] * t)
+        ax.set_title(f"eigentensor E{_axis_name(a, 'axis')[1:]}")
+        ax.grid(False)
+    cbar = fig.colorbar(image, ax=axes.ravel().tolist(), shrink=0.8)
+    cbar.set_label("element of the eigentensor (unitless)")
     return fig

@@ -30,8 +30,8 @@ COMPARE_COLUMNS: dict[str, list[str]] = {
     "statistic": ["statistic", "measure", "quantity"],
     "population": ["population", "population1", "pop", "pop1"],
     "population2": ["population2", "pop2", "other_population"],
-    "index": ["index", "k", "component", "dimension"],
-    "trait": ["trait"],
+    "axis": ["axis", "index", "k", "component"],
+    "axis2": ["axis2", "trait"],
     "estimate": ["estimate", "median", "mean", "observed", "value"],
     "lower": ["hpd_lower", "lower", "hpd_low", "observed_hpd_lower"],
     "upper": ["hpd_upper", "upper", "hpd_high", "observed_hpd_upper"],
@@ -39,7 +39,12 @@ COMPARE_COLUMNS: dict[str, list[str]] = {
     "null_lower": ["null_hpd_lower", "null_lower", "null_hpd_low"],
     "null_upper": ["null_hpd_upper", "null_upper", "null_hpd_high"],
     "p_obs_gt_null": ["p_obs_gt_null", "prob_obs_gt_null", "p_greater"],
+    "overlap": ["hpd_overlap", "intervals_overlap"],
+    "description": ["description"],
 }
+#: Files in compare/ that are not per-method tables, read by their own loaders.
+COMPARE_AUX_FILES = {"references": "references.csv", "loadings": "loadings.csv",
+                     "draw_checks": "draw_checks.csv"}
 PARAMETER_COLUMNS: dict[str, list[str]] = {
     "parameter": ["parameter", "name", "variable", "param"],
     "r_hat": ["r_hat", "rhat", "R_hat"],
@@ -55,7 +60,7 @@ CHANGE_COLUMNS: dict[str, list[str]] = {
 # Keys of diagnostics.json / summary.json read by name.
 DIVERGENCE_KEYS = ["divergences", "n_divergences", "divergent", "num_divergences"]
 #: Preferred order of the comparison methods in the report (others follow alphabetically).
-COMPARE_ORDER = ["skewers", "subspace", "tensor", "gmax", "evolvability", "distance"]
+COMPARE_ORDER = ["skewers", "subspace", "tensor", "gmax", "evolvability", "dimensions", "distance"]
 
 
 def _rename(frame: pd.DataFrame, aliases: dict[str, list[str]]) -> pd.DataFrame:
@@ -220,6 +225,8 @@ def read_compare_tables(root: Path) -> dict[str, pd.DataFrame]:
         return {}
     tables = {}
     for path in folder.glob("*.csv"):
+        if path.name in COMPARE_AUX_FILES.values():
+            continue
         frame = _rename(_read_csv(path, "comparison table"), COMPARE_COLUMNS)
         if frame.empty:
             continue
@@ -238,6 +245,18 @@ def read_compare_tables(root: Path) -> dict[str, pd.DataFrame]:
         return (COMPARE_ORDER.index(name) if name in COMPARE_ORDER else len(COMPARE_ORDER), name)
 
     return {name: tables[name] for name in sorted(tables, key=order)}
+
+
+def read_compare_extras(root: Path) -> dict[str, Any]:
+    """The compare stage's other outputs: ``references``, ``loadings``, ``draw_checks`` (tables)
+    and ``summary`` (``compare/summary.json``); each None when absent."""
+    folder = root / "compare"
+    out: dict[str, Any] = {}
+    for key, name in COMPARE_AUX_FILES.items():
+        path = folder / name
+        out[key] = _read_csv(path, "comparison table") if path.is_file() else None
+    out["summary"] = _read_json(folder / "summary.json", "comparison summary")
+    return out
 
 
 def read_phenotypes(path: str | os.PathLike, population_column: str,
@@ -297,6 +316,7 @@ class ResultInputs:
     null_summary: dict[str, Any] | None
     null_present: bool
     compare: dict[str, pd.DataFrame]
+    compare_extras: dict[str, Any] = field(default_factory=dict)
     files_read: list[Path] = field(default_factory=list)
 
     @property
@@ -326,11 +346,13 @@ def read_results(results: str | os.PathLike, populations: list[str]) -> ResultIn
     candidates += [root / "null" / n for n in ("null_G.nc", "summary.json")]
     compare_dir = root / "compare"
     if compare_dir.is_dir():
-        candidates += sorted(compare_dir.glob("*.csv")) + [compare_dir / "draws.nc"]
+        candidates += sorted(compare_dir.glob("*.csv")) + [compare_dir / "draws.nc",
+                                                           compare_dir / "summary.json"]
     return ResultInputs(root=root, fits=fits,
                         pedigree_summary=read_pedigree_summary(root),
                         pedigree_changes=read_pedigree_changes(root),
                         null_summary=read_null_summary(root),
                         null_present=(root / "null" / "null_G.nc").is_file(),
                         compare=read_compare_tables(root),
+                        compare_extras=read_compare_extras(root),
                         files_read=[p for p in candidates if p.is_file()])

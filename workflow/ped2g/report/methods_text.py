@@ -39,6 +39,8 @@ REFERENCES: dict[str, str] = {
                              "15:1593-1623.",
     "Houle 1992": "Houle D (1992) Comparing evolvability and variability of quantitative traits. Genetics "
                   "130:195-204.",
+    "Kirkpatrick 2009": "Kirkpatrick M (2009) Patterns of quantitative genetic variation in multiple "
+                        "dimensions. Genetica 136:271-284.",
     "Krzanowski 1979": "Krzanowski WJ (1979) Between-groups comparison of principal components. Journal of "
                        "the American Statistical Association 74:703-707.",
     "Kruuk 2004": "Kruuk LEB (2004) Estimating genetic parameters in natural populations using the "
@@ -69,7 +71,7 @@ METHOD_SENTENCES: dict[str, tuple[str, list[str]]] = {
                 "to {skewers} unit selection gradients β drawn uniformly on the sphere, one fixed set for "
                 "every draw", ["Cheverud 1996", "Cheverud & Marroig 2007"]),
     "subspace": ("Krzanowski's common subspace: the eigenvalues of H = Σ A_i A_i', where A_i holds the "
-                 "{subspace_dims} leading eigenvectors of population i's G", ["Krzanowski 1979",
+                 "{subspace_dims} of population i's G", ["Krzanowski 1979",
                                                                               "Aguirre et al. 2014"]),
     "tensor": ("the fourth-order genetic covariance tensor: the variance among populations along each "
                "eigentensor fixed from the posterior-mean G's, with the eigentensors' trait loadings and each "
@@ -78,6 +80,8 @@ METHOD_SENTENCES: dict[str, tuple[str, list[str]]] = {
              "population means", ["Schluter 1996"]),
     "evolvability": ("evolvability, conditional evolvability, respondability and autonomy averaged over "
                      "random unit selection gradients", ["Hansen & Houle 2008"]),
+    "dimensions": ("the effective number of dimensions of G, Σλ/λ_1, and the participation ratio "
+                   "(Σλ)²/Σλ²", ["Kirkpatrick 2009"]),
     "distance": ("the Riemannian distance between G matrices, sqrt(Σ ln² λ_i) over the eigenvalues of "
                  "G_i⁻¹G_j", ["Förstner & Moonen 2003", "Mitteroecker & Bookstein 2009"]),
 }
@@ -123,7 +127,8 @@ def _list(items: list[str]) -> str:
 
 def methods_paragraph(config: dict[str, Any], populations: list[str], traits: list[str],
                       engines: list[str], n_changes: int | None, passed: int, methods: list[str],
-                      null_present: bool, versions: dict[str, str]) -> tuple[str, list[str]]:
+                      null_present: bool, versions: dict[str, str],
+                      compare_record: dict[str, Any] | None = None) -> tuple[str, list[str]]:
     """The methods paragraph and the references it cites.
 
     Parameters
@@ -136,20 +141,23 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         Number of fits that met every convergence check.
     methods
         The comparison methods whose tables are present (``compare/<method>.csv`` stems).
+    compare_record
+        ``compare/summary.json``: the number of skewers and subspace dimensions actually used
+        (the config's values otherwise).
     """
     cite = Citations()
     v = lambda name: versions.get(name, "(version not found)")  # noqa: E731
     s = config["sampling"]
     priors = config["model"]["priors"]
     sentences = []
-    change_text = (f"; it made {n_changes} change{'s' if n_changes != 1 else ''} to the raw pedigree, "
-                   "each listed in the report" if n_changes is not None else "")
+    change_text = (f" The pedigree stage made {n_changes} change{'s' if n_changes != 1 else ''} to the "
+                   "raw pedigree, each listed in the report." if n_changes is not None else "")
     sentences.append(
         f"We analysed {len(traits)} trait{'s' if len(traits) != 1 else ''} ({_list(traits)}) in "
         f"{len(populations)} population{'s' if len(populations) != 1 else ''} ({_list(populations)}) "
         f"with ped2g {v('ped2g')}. The pedigree was checked and ordered with parents before offspring, "
         f"and inbreeding coefficients and the inverse relationship matrix were computed "
-        f"({cite('Wright 1922', 'Henderson 1976', 'Quaas 1976')}){change_text}.")
+        f"({cite('Wright 1922', 'Henderson 1976', 'Quaas 1976')}).{change_text}")
     extra = [f"{r['name']} (grouped by {r['column']})" for r in config["random"]]
     fixed = [f"{k} ({v_})" for k, v_ in config["fixed"].items()]
     engine_text = {"marginal": "with the breeding values integrated out analytically",
@@ -160,7 +168,7 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         f"For each population we fitted a Bayesian multivariate animal model "
         f"({cite('Henderson 1984', 'Kruuk 2004')}), y = Xb + Za + e with a ~ N(0, G ⊗ A) and "
         f"e ~ N(0, R ⊗ I), where A is the additive relationship matrix from the pedigree; the fixed "
-        f"effects were an intercept per trait{'; ' + _list(fixed) if fixed else ''}"
+        f"effects were {_list(['an intercept per trait', *fixed])}"
         f"{', and further random effects ' + _list(extra) + ' each had their own covariance matrix' if extra else ''}. "
         f"The model was written in PyMC {v('pymc')} {eng}.")
     family = priors.get("sd_family", "half_normal").replace("_", "-")
@@ -182,11 +190,14 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         f"Posterior distributions are summarised by their median and {mass:.0%} highest posterior "
         f"density (HPD) interval ({cite('Chen & Shao 1999')}).")
     parts = []
-    k = config["compare"]["subspace_dims"] or max(len(traits) // 2, 1)
+    record = compare_record or {}
+    k = record.get("subspace_dims") or config["compare"]["subspace_dims"] or max(len(traits) // 2, 1)
+    n_skewers = record.get("skewers") or config["compare"]["skewers"]
     for method in methods:
         if method in METHOD_SENTENCES:
             text, refs = METHOD_SENTENCES[method]
-            text = text.format(skewers=config["compare"]["skewers"], subspace_dims=k)
+            text = text.format(skewers=n_skewers, subspace_dims=f"k = {k} leading eigenvector"
+                               + ("s" if k != 1 else ""))
             parts.append(f"{text} ({cite(*refs)})")
     if parts:
         scale = config["compare"]["scale"]

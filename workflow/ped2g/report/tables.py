@@ -312,24 +312,35 @@ def estimate_matrix(table: pd.DataFrame, population: str, quantity: str, traits:
 # ---------------------------------------------------------------------------------------------
 # Comparisons
 # ---------------------------------------------------------------------------------------------
-LABEL_COLUMNS = ("population", "population2", "index", "trait")
+LABEL_COLUMNS = ("population", "population2", "axis", "axis2")
 DISPLAY_COLUMNS = ("statistic", *LABEL_COLUMNS, "estimate", "lower", "upper", "null_estimate",
                    "null_lower", "null_upper", "p_obs_gt_null", "intervals_overlap")
 
 
+def _axis_text(value: Any) -> str:
+    """``#3`` for a component number, the name itself for a trait."""
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return str(value)
+    return f"#{int(number)}" if number.is_integer() else f"#{number}"
+
+
 def row_labels(frame: pd.DataFrame) -> list[str]:
-    """A short label per row from the population, pair, index and trait columns present."""
+    """A short label per row from the population (or pair) and axis columns present.
+
+    ``north vs south``; ``north #2`` (component 2); ``#1 wing`` (component 1, trait wing);
+    ``#1 #2`` (component 2 within component 1).
+    """
     labels = []
     for _, row in frame.iterrows():
         parts = []
         if "population" in frame and _present(row.get("population")):
             pair = _present(row.get("population2")) if "population2" in frame else False
             parts.append(f"{row['population']} vs {row['population2']}" if pair else str(row["population"]))
-        if "index" in frame and _present(row.get("index")):
-            idx = row["index"]
-            parts.append(f"#{int(idx) if isinstance(idx, float) and float(idx).is_integer() else idx}")
-        if "trait" in frame and _present(row.get("trait")):
-            parts.append(str(row["trait"]))
+        for col in ("axis", "axis2"):
+            if col in frame and _present(row.get(col)):
+                parts.append(_axis_text(row[col]))
         labels.append(" ".join(parts) if parts else str(row.get("statistic", "")))
     return labels
 
@@ -344,12 +355,16 @@ def compare_display(frame: pd.DataFrame) -> pd.DataFrame:
     Two intervals overlap when ``lower <= null_upper`` and ``null_lower <= upper``.
     """
     out = frame.copy()
-    if {"lower", "upper", "null_lower", "null_upper"} <= set(out.columns):
+    if "overlap" in out.columns:
+        text = out["overlap"].astype(str).str.lower()
+        out["intervals_overlap"] = np.where(text.isin(["true", "1", "1.0", "yes"]), "yes",
+                                            np.where(text.isin(["false", "0", "0.0", "no"]), "no", ""))
+    elif {"lower", "upper", "null_lower", "null_upper"} <= set(out.columns):
         have = out[["lower", "upper", "null_lower", "null_upper"]].notna().all(axis=1)
         overlap = (out["lower"] <= out["null_upper"]) & (out["null_lower"] <= out["upper"])
         out["intervals_overlap"] = np.where(have, np.where(overlap, "yes", "no"), "")
     cols = [c for c in DISPLAY_COLUMNS if c in out.columns]
-    cols += [c for c in out.columns if c not in cols and c != "method"]
+    cols += [c for c in out.columns if c not in cols and c not in ("method", "overlap")]
     return out[cols]
 
 
@@ -376,3 +391,33 @@ def compare_compact(display: pd.DataFrame, mass: float) -> pd.DataFrame:
     if "intervals_overlap" in display:
         out["intervals overlap"] = display["intervals_overlap"].to_numpy()
     return out
+
+
+#: Keys of the stages' JSON records that the report shows elsewhere (cautions, provenance) or
+#: that are too long for a settings table.
+RECORD_SKIP = {"cautions", "null_cautions", "assumptions", "definitions", "fits", "input", "c_note",
+               "ped2g_version", "default_reason"}
+
+
+def record_items(record: dict[str, Any]) -> list[tuple[str, Any]]:
+    """The key-value items of a stage's JSON record worth a settings table (long ones left out)."""
+    return [(k, v) for k, v in record.items() if k not in RECORD_SKIP]
+
+
+def stage_cautions(inputs: ResultInputs) -> list[str]:
+    """Assumptions and cautions the stages recorded (pedigree, null, compare), each once."""
+    found: list[str] = []
+    sources = [("pedigree", inputs.pedigree_summary, ("assumptions", "cautions")),
+               ("null", inputs.null_summary, ("cautions",)),
+               ("compare", inputs.compare_extras.get("summary") if inputs.compare_extras else None,
+                ("cautions",))]
+    seen: set[str] = set()
+    for stage, record, keys in sources:
+        for key in keys:
+            items = (record or {}).get(key) or []
+            for item in items if isinstance(items, list) else [items]:
+                text = str(item).strip()
+                if text and text not in seen:
+                    seen.add(text)
+                    found.append(f"{stage}: {text}")
+    return found

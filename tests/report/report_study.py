@@ -126,9 +126,27 @@ def write_compare(folder: Path, seed: int = 3) -> None:
         pd.DataFrame(data).to_csv(folder / f"{name}.csv", index=False)
 
 
-def make_study(root: Path, *, null: bool = True, compare: bool = True, bad: str | None = "south",
+def run_stages(config: Path, results: Path, null: bool = True) -> None:
+    """Run the real ``ped2g null`` and ``ped2g compare`` on the fake fits (in this process)."""
+    from ped2g.cli import main
+
+    fits = [str(results / "fits" / p) for p in POPULATIONS]
+    if null:
+        assert main(["null", "--config", str(config), "--fits", *fits, "--out", str(results / "null")]) == 0
+    args = ["compare", "--config", str(config), "--fits", *fits, "--out", str(results / "compare")]
+    if null:
+        args += ["--null", str(results / "null")]
+    assert main(args) == 0
+
+
+def make_study(root: Path, *, null: bool = True, compare: str | None = "stages", bad: str | None = "south",
                missing_parameters: str | None = "east") -> dict[str, Path]:
-    """Write config, raw tables and a results folder under ``root``; return their paths."""
+    """Write config, raw tables and a results folder under ``root``; return their paths.
+
+    ``compare``: "stages" runs the real null and compare stages (null only if ``null``);
+    "synthetic" writes invented comparison tables with older column names (index, trait,
+    estimate) and a stand-in null; None writes no comparison.
+    """
     root.mkdir(parents=True, exist_ok=True)
     data = root / "data"
     data.mkdir(exist_ok=True)
@@ -167,12 +185,14 @@ def make_study(root: Path, *, null: bool = True, compare: bool = True, bad: str 
     for k, pop in enumerate(POPULATIONS):
         write_fit(results / "fits" / pop, pop, seed=k + 1, bad_chain=(pop == bad),
                   parameters=(pop != missing_parameters), divergences=3 if pop == bad else 0)
-    if null:
-        (results / "null").mkdir()
-        xr.Dataset({"G": (("draw", "population"), np.ones((4, 3)))}).to_netcdf(
-            results / "null" / "null_G.nc", engine="h5netcdf")
-        (results / "null" / "summary.json").write_text(json.dumps(
-            {"estimator": "mendelian", "draws": 240, "seconds": 3.2}))
-    if compare:
+    if compare == "stages":
+        run_stages(config_path, results, null=null)
+    elif compare == "synthetic":
+        if null:
+            (results / "null").mkdir()
+            xr.Dataset({"G": (("draw", "population"), np.ones((4, 3)))}).to_netcdf(
+                results / "null" / "null_G.nc", engine="h5netcdf")
+            (results / "null" / "summary.json").write_text(json.dumps(
+                {"estimator": "mendelian", "draws": 240, "seconds": 3.2}))
         write_compare(results / "compare")
     return {"root": root, "config": config_path, "results": results, "out": root / "report"}

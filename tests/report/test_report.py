@@ -1,0 +1,186 @@
+"""The whole report: sections in order, embedded figures, files beside it, refusals."""
+
+from __future__ import annotations
+
+import base64
+import io
+import json
+from html.parser import HTMLParser
+
+import pandas as pd
+import pytest
+from PIL import Image
+
+from ped2g.cli import main
+from ped2g.config import load_config
+from ped2g.errors import UserError
+from ped2g.report.build import SECTION_ORDER, build_report
+from report_study import POPULATIONS, make_study
+
+# Every test here builds a report on results of the real null and compare stages.
+pytestmark = pytest.mark.slow
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), section 5.2
+
+
+class _Page(HTMLParser):
+    """Collects section ids in document order, <img> sources and highlighted cells."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.sections: list[str] = []
+        self.images: list[str] = []
+        self.miss_cells = 0
+        self._in_section: str | None = None
+        self.text_by_section: dict[str, list[str]] = {}
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if tag == "section":
+            self.sections.append(a.get("id"))
+            self._in_section = a.get("id")
+        if tag == "img":
+            self.images.append(a.get("src", ""))
+        if tag == "td" and a.get("class") == "miss":
+            self.miss_cells += 1
+
+    def handle_data(self, data):
+        if self._in_section:
+            self.text_by_section.setdefault(self._in_section, []).append(data)
+
+    def text(self, section: str) -> str:
+        return " ".join(self.text_by_section.get(section, []))
+
+
+def _parse(path) -> _Page:
+    page = _Page()
+    page.feed(path.read_text(encoding="utf-8"))
+    return page
+
+
+def test_sections_are_all_there_in_the_required_order(built_report):
+    paths, _ = built_report
+    page = _parse(paths["out"] / "report.html")
+    assert page.sections == [sid for sid, _ in SECTION_ORDER]
+    assert [sid for sid, _ in SECTION_ORDER] == ["run", "data", "diagnostics", "estimates",
+                                                  "comparisons", "methods", "provenance", "cautions"]
+
+
+def test_every_image_is_an_embedded_png_and_matches_the_files(built_report):
+    paths, result = built_report
+    page = _parse(paths["out"] / "report.html")
+    assert len(page.images) == len(result.figures) >= 8
+    for src in page.images:
+        assert src.startswith("data:image/png;base64,")
+        raw = base64.b64decode(src.split(",", 1)[1], validate=True)
+        assert raw[:8] == PNG_SIGNATURE
+        with Image.open(io.BytesIO(raw)) as im:
+            im.verify()
+    for name in result.figures:
+        png = paths["out"] / "figures" / f"{name}.png"
+        pdf = paths["out"] / "figures" / f"{name}.pdf"
+        assert png.read_bytes()[:8] == PNG_SIGNATURE
+        assert pdf.read_bytes()[:5] == b"%PDF-"  # PDF 1.7 (ISO 32000-1), section 7.5.2
+        assert base64.b64encode(png.read_bytes()).decode() in "".join(page.images)
+
+
+def test_tables_are_written_as_csv(built_report):
+    paths, result = built_report
+    folder = paths["out"] / "tables"
+    for name in ("run_settings", "pedigree_by_population", "phenotype_counts", "pedigree_changes",
+                 "diagnostics_summary", "diagnostics_parameters", "estimates", "checksums_inputs",
+                 "checksums_results", "package_versions", "compare_skewers", "compare_distance"):
+        assert name in result.tables
+        frame = pd.read_csv(folder / f"{name}.csv")
+        assert len(frame) > 0
+    est = pd.read_csv(folder / "estimates.csv")
+    assert set(est["population"]) == set(POPULATIONS)
+    assert (est["hpd_lower"] <= est["median"]).all() and (est["median"] <= est["hpd_upper"]).all()
+
+
+def test_diagnostics_highlight_the_stuck_chain_fit(built_report):
+    # The study's 'south' fit has one chain scaled by 1.6 and 3 divergences: it must be flagged,
+    # and the other two (i.i.d. draws) must pass.
+    paths, result = built_report
+    assert result.failed_fits == ["south"]
+    summary = pd.read_csv(paths["out"] / "tables" / "diagnostics_summary.csv").set_index("population")
+    assert summary.loc["south", "max_r_hat"] > 1.05 and summary.loc["south", "divergences"] == 3
+    page = _parse(paths["out"] / "report.html")
+    assert page.miss_cells >= 4
+    assert "south" in page.text("cautions")
+
+
+def test_units_and_trait_names_reach_the_report(built_report):
+    paths, _ = built_report
+    html = (paths["out"] / "report.html").read_text(encoding="utf-8")
+    assert "wing (mm)" in html and "mass (g)" in html
+
+
+def test_methods_text_and_provenance(built_report):
+    paths, _ = built_report
+    from importlib.metadata import version
+
+    methods = (paths["out"] / "methods.txt").read_text(encoding="utf-8")
+    assert f"NumPy {version('numpy')}" in methods
+    assert "Krzanowski WJ (1979)" in methods and "randomisation null" in methods
+    prov = json.loads((paths["out"] / "provenance.json").read_text())
+    sums = {row["file"]: row["sha256"] for row in prov["inputs"]}
+    import hashlib
+
+    phen = paths["root"] / "data" / "phenotypes.csv"
+    assert sums[str(phen)] == hashlib.sha256(phen.read_bytes()).hexdigest()  # hashlib as reference
+    assert prov["seeds"][0] == {"stage": "config", "record": "sampling.seed", "value": 7}
+    assert any(r["record"] == "run_seconds" for r in prov["run_times"])
+
+
+def test_missing_null_and_comparisons_give_notes_not_errors(tmp_path):
+    paths = make_study(tmp_path, compare=None)
+    config = load_config(paths["config"])
+    result = build_report(config, paths["results"], paths["out"], config_path=paths["config"])
+    page = _parse(paths["out"] / "report.html")
+    assert page.sections == [sid for sid, _ in SECTION_ORDER]
+    text = page.text("comparisons")
+    assert "No randomisation null was found" in text
+    assert "No comparison tables were found" in text
+    assert "no reference for how much difference sampling alone" in page.text("cautions")
+    assert not any(name.startswith("compare_") for name in result.figures)
+
+
+def test_older_column_names_are_read_through_the_aliases(tmp_path):
+    # Comparison tables with index/trait/estimate columns (no description, no overlap column).
+    paths = make_study(tmp_path, compare="synthetic")
+    config = load_config(paths["config"])
+    build_report(config, paths["results"], paths["out"], config_path=paths["config"])
+    skewers = pd.read_csv(paths["out"] / "tables" / "compare_skewers.csv")
+    assert {"estimate", "lower", "upper", "intervals_overlap"} <= set(skewers.columns)
+    loading = pd.read_csv(paths["out"] / "tables" / "compare_tensor.csv")
+    assert {"axis", "axis2"} <= set(loading.columns)
+
+
+def test_missing_fit_is_one_clear_line_and_leaves_no_report(tmp_path, capsys):
+    paths = make_study(tmp_path, compare=None)
+    (paths["results"] / "fits" / "east" / "posterior.nc").unlink()
+    status = main(["report", "--config", str(paths["config"]), "--results", str(paths["results"]),
+                   "--out", str(paths["out"])])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert status == 2
+    assert len(err) == 1 and "'east'" in err[0] and "ped2g fit" in err[0]
+    assert not (paths["out"] / "report.html").exists()
+    assert not list(tmp_path.glob(".report.tmp-*"))
+
+
+def test_broken_comparison_table_fails_before_anything_looks_finished(tmp_path):
+    paths = make_study(tmp_path, compare="synthetic")
+    pd.DataFrame({"method": ["gmax"], "statistic": ["angle"], "population": ["north"]}).to_csv(
+        paths["results"] / "compare" / "gmax.csv", index=False)
+    config = load_config(paths["config"])
+    with pytest.raises(UserError, match=r"gmax\.csv has no estimate column"):
+        build_report(config, paths["results"], paths["out"], config_path=paths["config"])
+    assert not paths["out"].exists()
+
+
+def test_results_folder_without_fits_is_refused(tmp_path):
+    config = load_config(make_study(tmp_path / "s", compare=None)["config"])
+    (tmp_path / "empty").mkdir()
+    with pytest.raises(UserError, match="has no fits/ folder"):
+        build_report(config, tmp_path / "empty", tmp_path / "out")
