@@ -12,7 +12,7 @@ import pytest
 import xarray as xr
 
 from ped2g.cli import main
-from ped2g.compare.command import METHODS
+from ped2g.compare.pipeline import METHOD_ORDER as METHODS
 from ped2g.compare.summarise import COLUMNS
 from ped2g.null.io import write_null
 from ped2g.posterior import load_fit_set
@@ -35,6 +35,8 @@ def test_writes_every_table_without_null(tmp_path, fit_folders):
     cfg = write_config(tmp_path / "c.yaml")
     assert run("--config", cfg, "--fits", *fit_folders, "--out", tmp_path / "out") == 0
     out = tmp_path / "out"
+    assert sorted(p.stem for p in out.glob("*.csv")) == sorted(
+        [*METHODS, "references", "loadings", "draw_checks"])
     for method in METHODS:
         table = pd.read_csv(out / f"{method}.csv", keep_default_na=False, na_values=[""])
         assert list(table.columns) == COLUMNS

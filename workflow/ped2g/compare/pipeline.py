@@ -26,6 +26,7 @@ from .matrices import positive_definite, symmetrise
 from .statistics import DrawSet, References, build_references, draw_statistics
 from .summarise import summarise_method
 
+#: The methods, in the order :func:`ped2g.compare.statistics.draw_statistics` runs them (one table each).
 METHOD_ORDER = ("skewers", "subspace", "tensor", "gmax", "evolvability", "dimensions", "distance")
 
 
@@ -160,7 +161,7 @@ def compare(fits: FitSet, null: NullInput | None, config: dict[str, Any], budget
         stats_null = draw_statistics(null_set, refs, pops, traits, budget_bytes)
 
     tables = {}
-    for method in METHOD_ORDER:
+    for method in dict.fromkeys(a.attrs["method"] for a in stats_obs.values()):   # in run order
         names = [n for n, a in stats_obs.items() if a.attrs["method"] == method]
         tables[method] = summarise_method({n: stats_obs[n] for n in names},
                                           None if stats_null is None else {n: stats_null[n] for n in names},
