@@ -59,3 +59,19 @@ def test_angle_invariant_to_a_common_rotation():
     a = gmax.angle(gmax.leading_axis(G)["vector"], d)
     b = gmax.angle(gmax.leading_axis(Q @ G @ Q.T)["vector"], Q @ d)
     assert abs(a - b) < 1e-9
+
+
+def test_angle_between_populations_is_the_rotation_angle():
+    # Rotating a 2 x 2 G with distinct eigenvalues by theta turns g_max by theta (exact).
+    G = np.diag([3.0, 1.0])
+    angles = [0.0, 20.0, 60.0, 90.0]
+    mats = []
+    for a in angles:
+        c, s = np.cos(np.radians(a)), np.sin(np.radians(a))
+        Q = np.array([[c, -s], [s, c]])
+        mats.append(Q @ G @ Q.T)
+    vec = gmax.leading_axis(np.array(mats)[None])["vector"]
+    out = gmax.pair_angles(vec)[0]
+    np.testing.assert_allclose(out[0], angles, atol=1e-6)
+    np.testing.assert_allclose(out, out.T, atol=1e-12)
+    assert abs(out[1, 2] - 40.0) < 1e-6

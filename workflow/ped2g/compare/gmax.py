@@ -7,7 +7,8 @@ mu_bar)'``; for two populations ``d_max`` is the difference of their means). The
 
 .. math:: \\theta = \\arccos(|g_{max} \\cdot d_{max}|) \\in [0^\\circ, 90^\\circ]
 
-(absolute value because eigenvector signs are arbitrary). Both vectors are taken in one common
+(absolute value because eigenvector signs are arbitrary); the angle between the g_max of two
+populations is computed the same way. For the divergence angle both vectors are taken in one common
 coordinate system, the pooled scale of each draw (:func:`ped2g.compare.scale.pooled_factors`),
 so g_max here may differ slightly from the g_max of each population's own standardised G.
 
@@ -59,6 +60,13 @@ def angle(vectors: np.ndarray, direction: np.ndarray) -> np.ndarray:
     u = vectors / np.linalg.norm(vectors, axis=-1, keepdims=True)
     d = direction / np.linalg.norm(direction, axis=-1, keepdims=True)
     cos = np.abs(np.einsum("...i,...i->...", u, d))
+    return np.degrees(np.arccos(np.clip(cos, 0.0, 1.0)))
+
+
+def pair_angles(vectors: np.ndarray) -> np.ndarray:
+    """Angle (degrees, 0-90) between the g_max of every pair: vectors (S, m, t) -> (S, m, m)."""
+    u = vectors / np.linalg.norm(vectors, axis=-1, keepdims=True)
+    cos = np.abs(np.einsum("smi,sri->smr", u, u))
     return np.degrees(np.arccos(np.clip(cos, 0.0, 1.0)))
 
 

@@ -174,6 +174,8 @@ def draw_statistics(ds: DrawSet, refs: References, populations: list[str], trait
         "(lambda_1 - lambda_2) / lambda_1; small values mean an unstable g_max")
     put("gmax", "loading", (*pop, "trait"), gmax.signed_vectors(lead["vector"], refs.gmax), valid,
         "element of g_max, signed to agree with the g_max of the posterior-mean G")
+    put("gmax", "angle_between", pair, gmax.pair_angles(lead["vector"]), pair_ok,
+        "angle between the g_max of the two populations (degrees, 0-90)", "upper")
     lead_c = gmax.leading_axis(_safe(ds.G_common, valid))
     put("gmax", "angle_to_divergence", pop,
         gmax.angle(lead_c["vector"], ds.divergence[:, None, :]), valid,
