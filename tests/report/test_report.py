@@ -184,3 +184,19 @@ def test_results_folder_without_fits_is_refused(tmp_path):
     (tmp_path / "empty").mkdir()
     with pytest.raises(UserError, match="has no fits/ folder"):
         build_report(config, tmp_path / "empty", tmp_path / "out")
+
+
+def test_every_figure_name_is_explained_in_the_snakemake_caption(built_report):
+    # workflow/report/figures.rst names each figure file pattern in double back-quotes;
+    # <x> stands for a name part and * for any ending.
+    import re
+    from pathlib import Path
+
+    caption = (Path(__file__).resolve().parents[2] / "workflow" / "report" / "figures.rst").read_text()
+    patterns = []
+    for name in re.findall(r"``([^`]+)``", caption):
+        regex = re.sub(r"<[^>]+>", "[a-z0-9_]+", re.escape(name)).replace(r"\*", ".*")
+        patterns.append(re.compile(regex + r"\Z"))
+    _, result = built_report
+    for figure in result.figures:
+        assert any(p.match(figure) for p in patterns), f"{figure} is not explained in figures.rst"
