@@ -75,3 +75,18 @@ def test_null_columns_and_overlap():
     assert rows.loc[0, "p_obs_gt_null"] == 1.0
     assert 0.3 < rows.loc[1, "p_obs_gt_null"] < 0.7
     assert pd.notna(rows["null_hpd_lower"]).all()
+
+
+def test_statistic_of_the_whole_draw_gives_one_row():
+    x = np.arange(20.0)
+    rows = summarise_statistic(labelled(x, ("draw",)), labelled(x - 1, ("draw",)), np.arange(20), 0.9, "original")
+    assert len(rows) == 1 and rows.loc[0, "population"] == "" and rows.loc[0, "axis"] == ""
+    assert rows.loc[0, "p_obs_gt_null"] == 1.0 and rows.loc[0, "mean"] == 9.5
+
+
+def test_labels_follow_the_array_layout():
+    x = np.zeros((4, 2, 3))
+    x[:, 1, 2] = 7.0
+    rows = summarise_statistic(labelled(x, ("draw", "population", "axis")), None, None, 0.9, "original")
+    hit = rows[rows["mean"] == 7.0]
+    assert hit["population"].tolist() == ["p1"] and hit["axis"].tolist() == [3]

@@ -116,12 +116,11 @@ def summarise_statistic(obs: xr.DataArray, null: xr.DataArray | None, pair: np.n
     dims = list(obs.dims[1:])
     S = obs.sizes["draw"]
     x = obs.values.reshape(S, -1)
-    labels = pd.MultiIndex.from_product([obs[d].values.tolist() for d in dims], names=dims) \
-        if dims else pd.MultiIndex.from_tuples([()], names=[])
+    grids = np.meshgrid(*[np.asarray(obs[d].values, dtype=object) for d in dims], indexing="ij")
+    positions = {d: g.reshape(-1) for d, g in zip(dims, grids)}
     rows = pd.DataFrame(index=range(x.shape[1]))
     rows["method"] = obs.attrs["method"]
     rows["statistic"] = obs.attrs["statistic"]
-    positions = {d: np.asarray(labels.get_level_values(d)) for d in dims}
     rows["population"] = positions.get("population", "")
     rows["population2"] = positions.get("population2", "")
     others = [d for d in dims if d not in ("population", "population2")]
