@@ -166,10 +166,12 @@ def inbreeding(sire, dam) -> np.ndarray:
     share ``F``, so each (sire, dam) pair is traced once. Selfing (``sire == dam``) is exact:
     the parent receives both halves, giving ``F = (1 + F_parent)/2``.
 
-    Cost: the sum over distinct parent pairs of their number of ancestors. Field and breeding
-    pedigrees of 10^6 animals over ~10 generations take about a second; a small closed
-    population traced over hundreds of generations (every animal descending from nearly
-    every earlier one) grows quadratically.
+    Cost: the sum over distinct parent pairs of their number of ancestors. Measured on a
+    shared 2-core machine: 10^6 animals over 10 overlapping generations (the benchmark
+    pedigree) about 0.7 s; a closed population of 1000 traced for 30 generations
+    (3 x 10^4 animals) 1.7 s of CPU, and for 100 generations (10^5 animals, each descending
+    from nearly every earlier one) 39 s of CPU -- deep closed pedigrees grow faster than
+    linearly.
     """
     sire, dam = _as_parent_arrays(sire, dam)
     if len(sire) == 0:
