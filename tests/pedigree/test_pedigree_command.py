@@ -47,6 +47,7 @@ def test_outputs_of_a_messy_table(tmp_path, capsys):
                                   "sire has no row of its own": 1,
                                   "white space around the id": 1}
     assert summary["input"]["columns"] == {"id": "animal", "sire": "father", "dam": "mother"}
+    assert summary["input"]["rows"] == 7   # data lines in the fixture
     assert not [p for p in out.parent.iterdir() if p.name.startswith(".")]
 
 

@@ -70,15 +70,18 @@ def run(args: argparse.Namespace) -> int:
     ped, changes = read_raw_pedigree(raw, id_col=args.id_col, sire_col=args.sire_col,
                                      dam_col=args.dam_col, missing=missing,
                                      hermaphrodite=args.hermaphrodite)
-    log.info("read %s: %d animals after cleaning, %d changes (%.1f s)", raw, ped.n, len(changes),
-             time.perf_counter() - start)
+    problems = changes["problem"]
+    rows_read = (ped.n - int(problems.str.endswith("has no row of its own").sum())
+                 + int((problems == "duplicate row").sum()))
+    log.info("read %s: %d rows, %d animals after cleaning, %d changes (%.1f s)", raw, rows_read,
+             ped.n, len(changes), time.perf_counter() - start)
     t = time.perf_counter()
     ainv = ainverse(ped)
     log.info("built A-inverse: %d x %d, %d non-zeros (%.1f s)", ped.n, ped.n, ainv.nnz,
              time.perf_counter() - t)
     summary = summarise(ped, changes)
     summary = {
-        "input": {"path": str(raw), "sha256": file_sha256(raw),
+        "input": {"path": str(raw), "sha256": file_sha256(raw), "rows": rows_read,
                   "columns": {"id": args.id_col, "sire": args.sire_col, "dam": args.dam_col},
                   "missing_parent_codes": sorted(set(missing)),
                   "hermaphrodite": bool(args.hermaphrodite)},
