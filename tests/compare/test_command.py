@@ -248,3 +248,16 @@ def test_bad_memory_budget_is_refused(tmp_path, fit_folders, capsys):
     cfg = write_config(tmp_path / "c.yaml")
     assert run("--config", cfg, "--fits", *fit_folders, "--out", tmp_path / "out", "--memory", "0") == 2
     assert "--memory" in error_line(capsys)
+
+
+def test_mean_scale_divides_by_each_draws_means(tmp_path, fit_folders):
+    # Mean-standardised: the mean evolvability of a population is mean_s tr(G / mu mu') / t
+    # (Houle 1992's I_A averaged over traits), computed here directly from the fits.
+    cfg = write_config(tmp_path / "c.yaml", scale="mean")
+    assert run("--config", cfg, "--fits", *fit_folders, "--out", tmp_path / "out") == 0
+    fits = load_fit_set(fit_folders)
+    ia = np.diagonal(fits.G, axis1=-2, axis2=-1) / fits.mean ** 2           # (S, m, t)
+    ev = pd.read_csv(tmp_path / "out" / "evolvability.csv").query("statistic == 'evolvability'")
+    assert ev["population"].tolist() == fits.populations
+    np.testing.assert_allclose(ev["mean"], ia.mean(-1).mean(0), rtol=1e-10)
+    assert (ev["scale"] == "mean").all()
