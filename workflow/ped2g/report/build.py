@@ -66,6 +66,7 @@ METHOD_NOTES = {
 }
 MAX_HTML_ROWS = 60
 MAX_FOREST_ROWS = 60
+COLLAPSE_AFTER = 12  # longer tables are folded (one click opens them)
 
 
 @dataclass
@@ -270,7 +271,7 @@ def _data_section(sec: Section, inputs: ResultInputs, pheno, pheno_path: Path, t
         if by is not None:
             saved.save("pedigree_changes_by_problem", by)
             sec.table(html.table(by))
-        sec.table(html.table(changes, max_rows=MAX_HTML_ROWS))
+        sec.table(html.table(changes, max_rows=MAX_HTML_ROWS, collapse_after=COLLAPSE_AFTER))
 
 
 def _diagnostics_section(sec: Section, inputs: ResultInputs, checks: dict[str, Any], saved: _Tables,
@@ -292,14 +293,19 @@ def _diagnostics_section(sec: Section, inputs: ResultInputs, checks: dict[str, A
     sec.heading("Per parameter")
     for pop, src in sources.items():
         sec.note(f"{pop}: R-hat and ESS {src}.")
-    missed = detail[detail["miss"] != ""]
-    shown = pd.concat([missed, detail[detail["miss"] == ""]]).head(MAX_HTML_ROWS)
-    sec.table(html.table(shown.reset_index(drop=True),
-                         misses=tables.detail_misses(shown.reset_index(drop=True), checks),
-                         digits={"r_hat": 4}))
+    missed = detail[detail["miss"] != ""].reset_index(drop=True)
+    if len(missed):
+        sec.text(f"{len(missed)} parameter value{'s' if len(missed) != 1 else ''} miss a check:")
+        sec.table(html.table(missed, misses=tables.detail_misses(missed, checks), digits={"r_hat": 4}))
+    else:
+        sec.text("Every parameter meets the R-hat and ESS checks.")
+    shown = detail.head(MAX_HTML_ROWS).reset_index(drop=True)
+    sec.note("All parameters:")
+    sec.table(html.table(shown, misses=tables.detail_misses(shown, checks), digits={"r_hat": 4},
+                         collapse_after=COLLAPSE_AFTER))
     if len(detail) > len(shown):
-        sec.note(f"{len(detail) - len(shown)} more parameters (all meeting the checks) are in "
-                 "tables/diagnostics_parameters.csv; every miss is shown above.")
+        sec.note(f"{len(detail) - len(shown)} more parameters are in tables/diagnostics_parameters.csv"
+                 + ("; every miss is listed above." if len(missed) else "."))
     sec.heading("Rank plots of the elements of G")
     sec.note("Each chain's draws ranked among all chains: with good mixing every line is flat at the "
              f"dashed level. Elements are shown worst R-hat first, at most {MAX_RANK_PANELS} per population.")
@@ -431,7 +437,7 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
         saved.save("compare_references", references)
         sec.heading("Reference values")
         sec.note("Fixed settings and random-direction reference values the comparisons used.")
-        sec.table(html.table(references, max_rows=MAX_HTML_ROWS))
+        sec.table(html.table(references, max_rows=MAX_HTML_ROWS, collapse_after=COLLAPSE_AFTER))
     if loadings is not None and not loadings.empty:
         saved.save("compare_loadings", loadings)
     return bool(has_null_cols)
@@ -492,17 +498,18 @@ def _provenance_section(sec: Section, config: dict[str, Any], config_path: Path 
     files = [p for p in [config_path, *input_files] if p is not None]
     in_sums = checksums(files)
     saved.save("checksums_inputs", pd.DataFrame(in_sums))
-    sec.table(html.table(pd.DataFrame(in_sums)))
+    sec.table(html.table(pd.DataFrame(in_sums), collapse_after=COLLAPSE_AFTER))
     sec.heading("Stage outputs read")
     out_sums = checksums(inputs.files_read, relative_to=inputs.root)
     saved.save("checksums_results", pd.DataFrame(out_sums))
-    sec.table(html.table(pd.DataFrame(out_sums)))
+    sec.table(html.table(pd.DataFrame(out_sums), collapse_after=COLLAPSE_AFTER))
     sec.heading("Package versions")
     vt = pd.DataFrame(list(versions.items()), columns=["package", "version"])
     saved.save("package_versions", vt)
-    sec.table(html.table(vt))
+    sec.table(html.table(vt, collapse_after=COLLAPSE_AFTER))
     records: dict[str, dict[str, Any] | None] = {"pedigree": inputs.pedigree_summary,
-                                                "null": inputs.null_summary}
+                                                "null": inputs.null_summary,
+                                                "compare": inputs.compare_extras.get("summary")}
     for pop, fit in inputs.fits.items():
         records[f"fit {pop}"] = fit.diagnostics
     times, seeds = stage_records(records)

@@ -43,12 +43,13 @@ def fmt(value: Any, digits: int = 3) -> str:
 
 def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int | None = None,
           index: bool = False, caption: str | None = None,
-          digits: dict[str, int] | None = None) -> Markup:
+          digits: dict[str, int] | None = None, collapse_after: int | None = None) -> Markup:
     """Render ``frame`` as an HTML table; cells where ``misses`` is True get class ``miss``.
 
     Rows beyond ``max_rows`` are left out with a note (the CSV holds them all). ``digits`` gives
     the significant figures of named columns (default 3), e.g. 4 for R-hat so that 1.012 does
-    not print as 1.01 beside a 1.01 threshold.
+    not print as 1.01 beside a 1.01 threshold. A table longer than ``collapse_after`` rows is
+    folded into a ``<details>`` element that the reader opens with one click.
     """
     digits = digits or {}
     shown = frame if max_rows is None else frame.iloc[:max_rows]
@@ -70,6 +71,8 @@ def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int
     parts.append("</tbody></table></div>")
     if max_rows is not None and len(frame) > max_rows:
         parts.append(f'<p class="note">{len(frame) - max_rows} more rows are in the CSV table.</p>')
+    if collapse_after is not None and len(shown) > collapse_after:
+        parts = [f"<details><summary>Show the table ({len(shown)} rows)</summary>", *parts, "</details>"]
     return Markup("".join(parts))
 
 

@@ -232,8 +232,9 @@ def cautions(config: dict[str, Any], failed_fits: list[str], null_present: bool,
         "year) that is not modelled inflates G.",
         "Founders and animals with unknown parents are treated as unrelated members of one base "
         "population with the same G; immigrants from a genetically different source break this.",
-        f"The priors matter when data are few: half-normal (or half-t) priors on the standard deviations "
-        f"with scale {priors['sd_scale']} x the phenotypic SD, and LKJ(η = {priors['lkj_eta']}) priors "
+        f"The priors matter when data are few: {priors.get('sd_family', 'half_normal').replace('_', '-')} "
+        f"priors on the standard deviations with scale {priors['sd_scale']} x the phenotypic SD, and "
+        f"LKJ(η = {priors['lkj_eta']}) priors "
         "that pull correlations towards zero. With small pedigrees the posterior of G may largely reflect "
         "these choices; refit with other prior settings before drawing conclusions from weakly informed "
         "elements.",
@@ -242,8 +243,9 @@ def cautions(config: dict[str, Any], failed_fits: list[str], null_present: bool,
         + (f"The pedigree stage made {n_changes} changes (listed in the Data section); check that they "
            "are right for your study." if n_changes else
            "Check the Data section for the changes the pedigree stage made."),
-        f"Reading intervals: two {mass:.0%} intervals that do not overlap is a much stricter criterion "
-        "than a test at the 5% level (Schenker & Gentleman 2001), and overlapping intervals do not show "
+        f"Reading intervals: requiring two {mass:.0%} intervals not to overlap is a much stricter "
+        f"criterion than a test at the {1 - mass:.0%} level (Schenker & Gentleman 2001), and overlapping "
+        "intervals do not show "
         "that two quantities are equal. Use the paired posterior probability (p_obs_gt_null) and the "
         "posterior of differences, not overlap alone.",
         "HPD intervals are single intervals even when a posterior has several modes, are not invariant "
