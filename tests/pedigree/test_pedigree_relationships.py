@@ -155,7 +155,7 @@ def test_repeated_selfing_approaches_one():
 
 
 # Facts of the trade (Wright 1922; Falconer & Mackay 1996, ch. 9 [recalled]; K. Holsinger's
-# lecture notes on covariances among relatives for parent-offspring, full and half sibs).
+# course notes (EEB348) on covariances among relatives for parent-offspring, full and half sibs).
 FAMILY = [("gs", None, None), ("gd", None, None), ("gs2", None, None), ("gd2", None, None),
           ("s", "gs", "gd"), ("d", None, None), ("fs1", "s", "d"), ("fs2", "s", "d"),
           ("d2", None, None), ("hs", "s", "d2"), ("u", "gs", "gd"), ("m", None, None),
