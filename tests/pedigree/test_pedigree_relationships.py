@@ -154,7 +154,7 @@ def test_repeated_selfing_approaches_one():
     np.testing.assert_allclose(ped.inbreeding, 1 - 0.5 ** np.arange(21), atol=TOL)
 
 
-# Facts of the trade (Wright 1922; Falconer & Mackay 1996, ch. 9 [recalled]; K. Holsinger's
+# Facts of the trade, common practice (Wright 1922; Falconer & Mackay 1996, ch. 9 [recalled]; K. Holsinger's
 # course notes (EEB348) on covariances among relatives for parent-offspring, full and half sibs).
 FAMILY = [("gs", None, None), ("gd", None, None), ("gs2", None, None), ("gd2", None, None),
           ("s", "gs", "gd"), ("d", None, None), ("fs1", "s", "d"), ("fs2", "s", "d"),
