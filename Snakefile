@@ -14,6 +14,9 @@ min_version("9.27")
 configfile: "config/config.yaml"
 
 
+report: "workflow/report/workflow.rst"
+
+
 # Validates the config against workflow/schemas/config.schema.yaml, checks that the input
 # tables and their columns exist, reads the populations from the phenotype table and writes
 # the effective config and per-stage settings under results/config/. Any mistake ends here,

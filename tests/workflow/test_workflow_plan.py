@@ -128,7 +128,21 @@ def test_command_line_override_is_validated_too(tmp_path):
     result = snakemake(tmp_path, "-n", "--config", "sampling={draws: 5}", config=config)
     assert result.returncode == 2
     assert result.stderr.strip().count("\n") == 0
-    assert "sampling.draws" in result.stderr
+    assert "--config overrides: key 'sampling.draws': 5 is less than the minimum of 10" in result.stderr
+
+
+def test_command_line_override_reaches_the_stages_with_its_type(tmp_path):
+    # Snakemake reads nested --config values as strings; the workflow gives them the schema's type
+    config = make_study(tmp_path)
+    result = snakemake(tmp_path, "-n", "--config", "compare={skewers: 60, subspace_dims: 1}",
+                       "checks={on_failure: stop}", config=config)
+    assert result.returncode == 0, result.stderr[-3000:]
+    effective = yaml.safe_load((tmp_path / "results/config/effective.yaml").read_text())
+    assert effective["compare"]["skewers"] == 60 and effective["compare"]["subspace_dims"] == 1
+    assert effective["checks"]["on_failure"] == "stop"
+    assert effective["sampling"]["draws"] == 100  # the rest of the study's config is kept
+    compare = yaml.safe_load((tmp_path / "results/config/compare.yaml").read_text())
+    assert compare["compare"]["skewers"] == 60
 
 
 def test_study_config_does_not_inherit_the_demo_config(tmp_path):

@@ -51,6 +51,36 @@ def fail(message):
 # --------------------------------------------------------------------------------------------
 
 
+def coerce(value, node):
+    """Give --config override values the types the schema asks for.
+
+    Snakemake reads a nested --config value such as ``compare={skewers: 60}`` with every scalar
+    as a string. Where the schema wants a number, a boolean or null, a string that reads as one
+    in YAML is converted; everything else is left as it is (and validation names it if wrong).
+    """
+    if isinstance(value, dict):
+        props = node.get("properties", {})
+        extra = node.get("additionalProperties")
+        return {k: coerce(v, props.get(k, extra if isinstance(extra, dict) else {}))
+                for k, v in value.items()}
+    if isinstance(value, list):
+        return [coerce(v, node.get("items", {})) for v in value]
+    if not isinstance(value, str):
+        return value
+    branches = node.get("oneOf", [node])
+    wanted = {b.get("type") for b in branches}
+    try:
+        parsed = yaml.safe_load(value)
+    except yaml.YAMLError:
+        return value
+    kinds = {"integer": int, "number": (int, float), "boolean": bool, "null": type(None)}
+    for kind, types in kinds.items():
+        if kind in wanted and isinstance(parsed, types) and not (
+                kind != "boolean" and isinstance(parsed, bool)):
+            return parsed
+    return value
+
+
 def user_config():
     """The config the user meant, and a name for it in messages.
 
@@ -60,21 +90,24 @@ def user_config():
     file(s) and --config overrides count.
     """
     settings = workflow.config_settings
-    if settings.configfiles:
-        merged = {}
-        for path in settings.configfiles:
-            try:
-                with open(path, encoding="utf-8") as handle:
-                    update_config(merged, yaml.safe_load(handle) or {})
-            except yaml.YAMLError as err:
-                mark = getattr(err, "problem_mark", None)
-                where = f" line {mark.line + 1}" if mark is not None else ""
-                fail(f"config {path}{where} is not valid YAML: {getattr(err, 'problem', err)}")
-        if settings.config:
-            update_config(merged, dict(settings.config))
-        names = ", ".join(os.path.relpath(p) for p in settings.configfiles)
-        return merged, f"config {names}"
-    return dict(config), "config config/config.yaml"
+    files = list(settings.configfiles) or [Path(p) for p in workflow.configfiles[:1]]
+    merged = {}
+    for path in files:
+        try:
+            with open(path, encoding="utf-8") as handle:
+                loaded = yaml.safe_load(handle)
+        except yaml.YAMLError as err:
+            mark = getattr(err, "problem_mark", None)
+            where = f" line {mark.line + 1}" if mark is not None else ""
+            fail(f"config {path}{where} is not valid YAML: {getattr(err, 'problem', err)}")
+        if loaded is not None and not isinstance(loaded, dict):
+            fail(f"config {path}: the config must be a mapping of keys to values")
+        update_config(merged, loaded or {})
+    if settings.config:
+        update_config(merged, coerce(dict(settings.config), ped2g.config.schema()))
+    names = ", ".join(os.path.relpath(p) for p in files) or "(none)"
+    overrides = " with --config overrides" if settings.config else ""
+    return merged, f"config {names}{overrides}"
 
 
 def check_tables(cfg, source):

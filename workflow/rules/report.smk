@@ -1,4 +1,5 @@
-# Stage 5: one report from everything above.
+# Stage 5: one report from everything above. Its files are also registered for Snakemake's own
+# report (`snakemake --report report.zip`), with the captions in workflow/report/.
 
 
 rule report:
@@ -10,7 +11,33 @@ rule report:
         config=ancient(EFFECTIVE_CONFIG),
         settings=settings_file("report"),
     output:
-        html=f"{RESULTS}/report/report.html",
+        html=report(
+            f"{RESULTS}/report/report.html",
+            caption="../report/report_html.rst",
+            category="Report",
+        ),
+        methods=report(
+            f"{RESULTS}/report/methods.txt",
+            caption="../report/methods.rst",
+            category="Report",
+        ),
+        provenance=report(
+            f"{RESULTS}/report/provenance.json",
+            caption="../report/provenance.rst",
+            category="Report",
+        ),
+        figures=report(
+            directory(f"{RESULTS}/report/figures"),
+            patterns=["{name}.png"],
+            caption="../report/figures.rst",
+            category="Figures",
+        ),
+        tables=report(
+            directory(f"{RESULTS}/report/tables"),
+            patterns=["{name}.csv"],
+            caption="../report/tables.rst",
+            category="Tables",
+        ),
     params:
         results=RESULTS,
         out=f"{RESULTS}/report",
