@@ -18,6 +18,7 @@ import io
 import json
 import logging
 import os
+import re
 import shutil
 import sys
 import time
@@ -87,6 +88,45 @@ def read_table(path: str | os.PathLike, what: str = "table") -> pd.DataFrame:
     delimiter = max(["\t", ",", ";"], key=header_line.count)
     if header_line.count(delimiter) == 0:
         delimiter = "\t" if path.suffix.lower() in {".tsv", ".tab"} else ","
+    fast = _read_plain_text(text, delimiter)
+    if fast is not None:
+        _check_header(list(fast.columns), path, what)
+        return fast
+    return _read_text_rowwise(text, delimiter, path, what)
+
+
+_BLANK_LINE = re.compile(r"(^|\n)[ \t\r]*(\n|$)")
+
+
+def _read_plain_text(text: str, delimiter: str) -> pd.DataFrame | None:
+    """Parse with pandas' C parser when the text has no quotes and no blank lines.
+
+    Then line numbers are simply 2, 3, ... and every row's field count can be checked after
+    parsing; anything unusual (quotes, blank lines, ragged rows) returns None so the row-wise
+    reader can name the exact line.
+    """
+    if '"' in text or _BLANK_LINE.search(text.rstrip("\r\n")):
+        return None
+    counts = pd.Series(text.rstrip("\r\n").split("\n")).str.count(re.escape(delimiter)).to_numpy()
+    if len(counts) < 2 or (counts != counts[0]).any():
+        return None  # ragged rows or no data: let the row-wise reader name the line
+    try:
+        frame = pd.read_csv(io.StringIO(text), sep=delimiter, dtype=str, keep_default_na=False,
+                            na_filter=True, na_values=[], skip_blank_lines=False,
+                            engine="c", quoting=csv.QUOTE_NONE)
+    except (pd.errors.ParserError, ValueError):
+        return None
+    if frame.empty or frame.isna().to_numpy().any():
+        return None
+    if any(str(c).startswith("Unnamed: ") or "." in str(c) and str(c).rsplit(".", 1)[0] in frame.columns
+           for c in frame.columns):
+        return None  # blank or repeated column names: let the slow path explain
+    frame.columns = [str(c).strip() for c in frame.columns]
+    frame.index = pd.RangeIndex(2, len(frame) + 2, name="line")
+    return frame
+
+
+def _read_text_rowwise(text: str, delimiter: str, path: Path, what: str) -> pd.DataFrame:
     reader = csv.reader(io.StringIO(text), delimiter=delimiter)
     rows: list[list[str]] = []
     line_numbers: list[int] = []
