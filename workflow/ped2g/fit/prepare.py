@@ -39,7 +39,7 @@ def parse_numeric(frame: pd.DataFrame, column: str, source: str) -> np.ndarray:
     UserError
         Naming the first line whose cell is not a number (or is infinite).
     """
-    text = frame[column].astype(str).str.strip()
+    text = frame[column].fillna("").astype(str).str.strip()
     is_missing = text.str.lower().isin(MISSING_VALUES)
     values = pd.to_numeric(text.where(~is_missing), errors="coerce").to_numpy(dtype=float)
     bad = (~is_missing.to_numpy()) & ~np.isfinite(values)
@@ -99,7 +99,7 @@ def design_matrix(frame: pd.DataFrame, fixed: dict[str, str], source: str
             names.append(column)
             scales.append(sd)
         elif kind == "categorical":
-            text = frame[column].astype(str).str.strip()
+            text = frame[column].fillna("").astype(str).str.strip()
             empty = text.str.lower().isin(MISSING_VALUES)
             if empty.any():
                 i = int(np.flatnonzero(empty.to_numpy())[0])
@@ -166,7 +166,7 @@ def prepare(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree: Pedigree
         if r["column"] not in phenotypes.columns:
             raise UserError(f"phenotype table {source} has no column '{r['column']}' named in config key "
                             f"'random' ({r['name']}) (columns are: {', '.join(map(str, phenotypes.columns))})")
-    pops = phenotypes[cols["population"]].astype(str).str.strip()
+    pops = phenotypes[cols["population"]].fillna("").astype(str).str.strip()
     frame = phenotypes.loc[pops == population]
     if frame.empty:
         present = ", ".join(sorted(pops.unique())[:20])
@@ -182,7 +182,7 @@ def prepare(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree: Pedigree
         notes.append(f"{int((~has_any).sum())} records with no trait value were dropped")
         frame = frame.loc[has_any]
         Y = Y[has_any]
-    ids = frame[cols["id"]].astype(str).str.strip()
+    ids = frame[cols["id"]].fillna("").astype(str).str.strip()
     if (ids == "").any():
         i = int(np.flatnonzero((ids == "").to_numpy())[0])
         raise UserError(f"{source} line {frame.index[i]}: the id column '{cols['id']}' is empty")
@@ -202,7 +202,7 @@ def prepare(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree: Pedigree
     notes += x_notes
     effects = []
     for r in random:
-        text = frame[r["column"]].astype(str).str.strip()
+        text = frame[r["column"]].fillna("").astype(str).str.strip()
         empty = text.str.lower().isin(MISSING_VALUES)
         if empty.any():
             i = int(np.flatnonzero(empty.to_numpy())[0])
