@@ -16,6 +16,7 @@ import xarray as xr
 import yaml
 from scipy import stats
 
+from ped2g.fit.outputs import parameter_table
 from ped2g.posterior import posterior_dataset
 
 TRAITS = ["wing", "mass", "tarsus"]
@@ -39,20 +40,6 @@ def _wishart_draws(rng: np.random.Generator, scale: np.ndarray, df: int) -> np.n
     return w.rvs(size=CHAINS * DRAWS, random_state=rng).reshape(CHAINS, DRAWS, *scale.shape)
 
 
-def _element_diagnostics(G: np.ndarray, R: np.ndarray) -> pd.DataFrame:
-    rows = []
-    for name, arr in (("G", G), ("R", R)):
-        for i in range(len(TRAITS)):
-            for j in range(i, len(TRAITS)):
-                x = arr[:, :, i, j]
-                rows.append({"parameter": f"{name}[{TRAITS[i]},{TRAITS[j]}]", "mean": x.mean(),
-                             "sd": x.std(), "hpd_lower": np.quantile(x, 0.025),
-                             "hpd_upper": np.quantile(x, 0.975),
-                             "ess_bulk": float(az.ess(x, method="bulk")),
-                             "ess_tail": float(az.ess(x, method="tail")), "r_hat": float(az.rhat(x))})
-    return pd.DataFrame(rows)
-
-
 def write_fit(folder: Path, population: str, seed: int, bad_chain: bool = False,
               parameters: bool = True, divergences: int = 0) -> None:
     """A fake fit folder: posterior.nc (with sample_stats), parameters.csv, diagnostics.json,
@@ -74,9 +61,16 @@ def write_fit(folder: Path, population: str, seed: int, bad_chain: bool = False,
     folder.mkdir(parents=True, exist_ok=True)
     az.InferenceData(posterior=ds, sample_stats=stats_ds).to_netcdf(str(folder / "posterior.nc"))
     if parameters:
-        _element_diagnostics(G, R).to_csv(folder / "parameters.csv", index=False)
+        # the fit stage's own table (parameter, quantity, ..., r_hat, fixed)
+        parameter_table(ds).to_csv(folder / "parameters.csv", index=False, float_format="%.6g")
     (folder / "diagnostics.json").write_text(json.dumps(
-        {"engine": "marginal", "divergences": divergences, "seconds": 12.5 + seed, "seed": 7}))
+        {"population": population, "engine": "marginal", "engine_reason": "invented",
+         "preparation_notes": [f"{population}: 2 phenotyped animals were missing from the pedigree "
+                               "and were added as founders"] if population == "north" else [],
+         "sampling": {"chains": CHAINS, "draws": DRAWS, "sampling_seconds": 10.5 + seed, "seed": 7},
+         "checks": {"divergences": divergences},
+         "wall_seconds": 12.5 + seed,
+         "assumptions": ["Additive genetic effects only (invented assumption text)."]}))
     ped = MRODE_PEDIGREE.copy()
     ped["id"] = [f"{population}_{i}" if i else "" for i in ped["id"]]
     for col in ("sire", "dam"):

@@ -108,6 +108,19 @@ def test_diagnostics_highlight_the_stuck_chain_fit(built_report):
     page = _parse(paths["out"] / "report.html")
     assert page.miss_cells >= 4
     assert "south" in page.text("cautions")
+    # only G, R and h2 are checked, as the fit stage checks them (parameters.csv has more rows)
+    detail = pd.read_csv(paths["out"] / "tables" / "diagnostics_parameters.csv")
+    assert set(detail["parameter"].str.split("[").str[0]) == {"G", "R", "h2"}
+
+
+def test_stage_notes_and_assumptions_are_carried_over(built_report):
+    paths, _ = built_report
+    page = _parse(paths["out"] / "report.html")
+    assert "were added as founders" in page.text("data")
+    cautions = page.text("cautions")
+    assert "fit: Additive genetic effects only (invented assumption text)." in cautions
+    assert cautions.count("invented assumption text") == 1  # three fits, stated once
+    assert "compare: " in cautions and "null: " in cautions
 
 
 def test_units_and_trait_names_reach_the_report(built_report):

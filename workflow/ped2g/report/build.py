@@ -257,6 +257,11 @@ def _data_section(sec: Section, inputs: ResultInputs, pheno, pheno_path: Path, t
         sec.note("Counted from the phenotype table named in the config; a cell that is not a number "
                  "counts as missing.")
         sec.table(html.table(counts))
+    notes = [f"{pop}: {note}" for pop, fit in inputs.fits.items()
+             for note in ((fit.diagnostics or {}).get("preparation_notes") or [])]
+    if notes:
+        sec.heading("How the fit stage prepared the data")
+        sec.items(notes)
     sec.heading("Changes the pedigree stage made")
     changes = inputs.pedigree_changes
     if changes is None:

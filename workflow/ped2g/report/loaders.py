@@ -295,10 +295,16 @@ class FitInputs:
         return [str(t) for t in self.idata.posterior["trait"].values]
 
     def divergences(self) -> int | None:
-        """Divergent transitions: from diagnostics.json, else from ``sample_stats.diverging``."""
-        for key in DIVERGENCE_KEYS:
-            if self.diagnostics and isinstance(self.diagnostics.get(key), (int, float)):
-                return int(self.diagnostics[key])
+        """Divergent transitions: from diagnostics.json (top level, or its ``checks`` or ``sampling``
+        record), else from ``sample_stats.diverging``."""
+        records = [self.diagnostics or {}]
+        records += [v for k, v in (self.diagnostics or {}).items() if k in ("checks", "sampling")
+                    and isinstance(v, dict)]
+        for record in records:
+            for key in DIVERGENCE_KEYS:
+                value = record.get(key)
+                if isinstance(value, (int, float)) and not isinstance(value, bool):
+                    return int(value)
         stats = getattr(self.idata, "sample_stats", None)
         if stats is not None and "diverging" in stats:
             return int(np.asarray(stats["diverging"].values).sum())

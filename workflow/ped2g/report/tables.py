@@ -136,9 +136,18 @@ def changes_by_problem(changes: pd.DataFrame | None) -> pd.DataFrame | None:
 # Fit diagnostics
 # ---------------------------------------------------------------------------------------------
 def _matrix_labels(name: str, traits: list[str], strict_upper: bool = False) -> list[tuple[str, int, int]]:
+    """(label, i, j) for the distinct elements i <= j of a symmetric matrix variable.
+
+    Labels name the row trait first with the row at or below the diagonal (``G[mass,wing]`` for
+    G[wing, mass] when wing comes first), as the fit stage's parameters.csv does, so the two
+    tables can be matched by label.
+    """
     t = len(traits)
-    return [(f"{name}[{traits[i]},{traits[j]}]", i, j)
+    return [(f"{name}[{traits[j]},{traits[i]}]", i, j)
             for i in range(t) for j in range(i + (1 if strict_upper else 0), t)]
+
+#: Quantities whose R-hat and ESS are checked (as the fit stage checks them).
+CHECKED_QUANTITIES = ("G", "R", "h2")
 
 
 def draws_of(fit: FitInputs, name: str) -> np.ndarray:
@@ -159,7 +168,7 @@ def _computed_parameter_diagnostics(fit: FitInputs) -> pd.DataFrame:
     import arviz as az
 
     rows = []
-    for name in ("G", "R"):
+    for name in ("G", "R"):  # h2 is a function of G and R and adds no chain information here
         for label, chains in element_draws(fit, name).items():
             if np.ptp(chains) == 0:
                 continue  # held fixed (e.g. model.fixed_covariances): not a sampled parameter
@@ -176,6 +185,10 @@ def parameter_diagnostics(fit: FitInputs) -> tuple[pd.DataFrame, str]:
     """
     table = fit.parameters
     if table is not None and {"parameter", "r_hat", "ess_bulk", "ess_tail"} <= set(table.columns):
+        if "quantity" in table.columns:
+            table = table[table["quantity"].isin(CHECKED_QUANTITIES)]
+        if "fixed" in table.columns:
+            table = table[~table["fixed"].astype(str).str.lower().isin(["true", "1"])]
         return table[["parameter", "r_hat", "ess_bulk", "ess_tail"]].copy(), "read from parameters.csv"
     return _computed_parameter_diagnostics(fit), "computed by the report from posterior.nc with ArviZ"
 
@@ -407,7 +420,9 @@ def record_items(record: dict[str, Any]) -> list[tuple[str, Any]]:
 def stage_cautions(inputs: ResultInputs) -> list[str]:
     """Assumptions and cautions the stages recorded (pedigree, null, compare), each once."""
     found: list[str] = []
+    fit_records = [("fit", f.diagnostics, ("assumptions", "cautions")) for f in inputs.fits.values()]
     sources = [("pedigree", inputs.pedigree_summary, ("assumptions", "cautions")),
+               *fit_records,
                ("null", inputs.null_summary, ("cautions",)),
                ("compare", inputs.compare_extras.get("summary") if inputs.compare_extras else None,
                 ("cautions",))]
