@@ -213,3 +213,23 @@ def test_every_figure_name_is_explained_in_the_snakemake_caption(built_report):
     _, result = built_report
     for figure in result.figures:
         assert any(p.match(figure) for p in patterns), f"{figure} is not explained in figures.rst"
+
+
+def test_a_single_population_without_comparisons(tmp_path):
+    import shutil
+
+    import yaml
+
+    paths = make_study(tmp_path, compare=None, bad=None)
+    for pop in ("south", "east"):
+        shutil.rmtree(paths["results"] / "fits" / pop)
+    raw = yaml.safe_load(paths["config"].read_text())
+    raw["populations"] = ["north"]
+    paths["config"].write_text(yaml.safe_dump(raw))
+    result = build_report(load_config(paths["config"]), paths["results"], paths["out"],
+                          config_path=paths["config"])
+    page = _parse(paths["out"] / "report.html")
+    assert page.sections == [sid for sid, _ in SECTION_ORDER]
+    assert result.failed_fits == []
+    assert "g_heatmaps" in result.figures and "rank_north" in result.figures
+    assert "1 population (north)" in (paths["out"] / "report.html").read_text(encoding="utf-8")

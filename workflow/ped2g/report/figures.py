@@ -32,6 +32,7 @@ PNG_DPI = 130
 OBSERVED_COLOUR = "#0072B2"
 NULL_COLOUR = "#999999"
 MAX_RANK_PANELS = 12
+MAX_FOREST_POINTS = 160
 
 sns.set_theme(context="notebook", style="whitegrid", font_scale=0.9)
 
@@ -145,16 +146,21 @@ def g_heatmaps_figure(medians: dict[str, np.ndarray], lowers: dict[str, np.ndarr
 
 
 def heritability_figure(table: pd.DataFrame, populations: list[str], traits: list[str]) -> Figure:
-    """Forest plot of h2 per trait and rg per trait pair, each population with its HPD interval."""
+    """Forest plot of h2 per trait and rg per trait pair, each population with its HPD interval.
+
+    The r_G panel is left out when it would hold more than :data:`MAX_FOREST_POINTS` intervals
+    (the estimate tables still list every correlation).
+    """
     h2 = table[table["quantity"] == "h2"]
     rg = table[table["quantity"] == "rg"]
     pairs = [(a, b) for i, a in enumerate(traits) for b in traits[i + 1:]]
     panels = [("heritability h² (proportion of phenotypic variance)", h2, [(t, "") for t in traits],
                (0.0, 1.0))]
-    if pairs:
+    if pairs and len(pairs) * len(populations) <= MAX_FOREST_POINTS:
         panels.append(("genetic correlation r_G", rg, pairs, (-1.0, 1.0)))
     heights = [max(len(rows), 1) for _, _, rows, _ in panels]
-    fig, axes = plt.subplots(1, len(panels), figsize=(5.2 * len(panels), 0.45 * max(heights) * len(populations) + 1.6),
+    row_height = 0.16 * len(populations) + 0.2
+    fig, axes = plt.subplots(1, len(panels), figsize=(5.2 * len(panels), row_height * max(heights) + 1.6),
                              squeeze=False)
     palette = sns.color_palette("colorblind", len(populations))
     for ax, (xlabel, part, rows, xlim) in zip(axes.flat, panels):
