@@ -123,7 +123,7 @@ def _record_layout(data: FitData) -> dict[str, np.ndarray]:
             "y": np.where(miss, 0.0, y), "observed": (~miss).astype(float)}
 
 
-def build_model(data: FitData, model_config: dict):
+def build_model(data: FitData, model_config: dict, animal_effect=None):
     """Build the latent-engine PyMC model on the standardised scale.
 
     Parameters
@@ -131,6 +131,10 @@ def build_model(data: FitData, model_config: dict):
     data : FitData
     model_config : dict
         ``config["model"]``: ``priors`` and ``fixed_covariances`` (original units).
+    animal_effect : callable, optional
+        ``animal_effect(w, chol_G, layout) -> a`` replaces the pedigree recursion (rows of ``a``
+        in the generation order of ``layout``); used only by benchmark baselines (for example a
+        dense Cholesky factor of A). None: the recursion.
 
     Returns
     -------
@@ -160,9 +164,10 @@ def build_model(data: FitData, model_config: dict):
     coords = {"trait": list(data.traits), "trait2": list(data.traits), "x_name": list(data.x_names)}
 
     with pm.Model(coords=coords) as model:
-        sire = pm.Data("gen_sire", lay["sire"])
-        dam = pm.Data("gen_dam", lay["dam"])
-        sqrt_b = pm.Data("gen_sqrt_b", lay["sqrt_b"])
+        if animal_effect is None:
+            sire = pm.Data("gen_sire", lay["sire"])
+            dam = pm.Data("gen_dam", lay["dam"])
+            sqrt_b = pm.Data("gen_sqrt_b", lay["sqrt_b"])
 
         G, chol_G = covariance_prior("G", t, priors, None if fixed is None else fixed["G"])
         R, chol_R = covariance_prior("R", t, priors, None if fixed is None else fixed["R"])
@@ -170,17 +175,20 @@ def build_model(data: FitData, model_config: dict):
         if "beta" not in model.named_vars:
             pm.Deterministic("beta", beta_raw)
 
-        # Breeding values a = T D^1/2 W L_G', generation by generation (generation order).
         w = pm.Normal("w_animal", 0.0, 1.0, shape=(n, t))
-        m = sqrt_b[:, None] * pt.dot(w, chol_G.T)
-        a = pt.zeros((n + 1, t))  # row n: zero sentinel for unknown parents
-        bounds = lay["bounds"]
-        for g in range(len(bounds) - 1):
-            lo, hi = int(bounds[g]), int(bounds[g + 1])
-            block = m[lo:hi]
-            if g > 0:
-                block = block + 0.5 * (a[sire[lo:hi]] + a[dam[lo:hi]])
-            a = pt.set_subtensor(a[lo:hi], block)
+        if animal_effect is None:
+            # Breeding values a = T D^1/2 W L_G', generation by generation (generation order).
+            m = sqrt_b[:, None] * pt.dot(w, chol_G.T)
+            a = pt.zeros((n + 1, t))  # row n: zero sentinel for unknown parents
+            bounds = lay["bounds"]
+            for g in range(len(bounds) - 1):
+                lo, hi = int(bounds[g]), int(bounds[g + 1])
+                block = m[lo:hi]
+                if g > 0:
+                    block = block + 0.5 * (a[sire[lo:hi]] + a[dam[lo:hi]])
+                a = pt.set_subtensor(a[lo:hi], block)
+        else:
+            a = animal_effect(w, chol_G, lay)
 
         effects = []
         for eff in data.random:
