@@ -54,3 +54,17 @@ def test_table_escapes_text_and_limits_rows():
 def test_key_values_shows_nested_values_as_json():
     out = str(key_values({"estimator": "mendelian", "sizes": [3, 4]}))
     assert "mendelian" in out and "[3, 4]" in out
+
+
+def test_figure_names_are_file_safe_and_unique(tmp_path):
+    import matplotlib.pyplot as plt
+
+    from ped2g.report.figures import FigureStore, slug
+
+    assert slug("Île d'Oléron 2") == "le_d_ol_ron_2"
+    store = FigureStore(tmp_path)
+    a = store.add("rank_pop 1", plt.figure(), "a", "a")
+    b = store.add("rank_pop-1", plt.figure(), "b", "b")
+    assert (a.name, b.name) == ("rank_pop_1", "rank_pop_1_2")
+    assert sorted(p.name for p in tmp_path.iterdir()) == [
+        "rank_pop_1.pdf", "rank_pop_1.png", "rank_pop_1_2.pdf", "rank_pop_1_2.png"]

@@ -63,9 +63,11 @@ class FigureStore:
 
     def add(self, name: str, fig: Figure, title: str, caption: str) -> StoredFigure:
         self.folder.mkdir(parents=True, exist_ok=True)
-        name = slug(name)
-        if any(f.name == name for f in self.figures):
-            raise ValueError(f"two figures named {name}")
+        name = base = slug(name)
+        taken = {f.name for f in self.figures}
+        k = 2
+        while name in taken:  # e.g. populations "pop 1" and "pop-1" share a slug
+            name, k = f"{base}_{k}", k + 1
         buf = io.BytesIO()
         fig.savefig(buf, format="png", dpi=PNG_DPI, bbox_inches="tight")
         png = buf.getvalue()
@@ -130,7 +132,7 @@ def g_heatmaps_figure(medians: dict[str, np.ndarray], lowers: dict[str, np.ndarr
         for i in range(t):
             for j in range(t):
                 value = medians[pop][i, j]
-                text = fmt(value)
+                text = fmt(value, 3 if t <= 4 else 2)
                 if t <= 4:
                     text += f"\n[{fmt(lowers[pop][i, j])}, {fmt(uppers[pop][i, j])}]"
                 dark = abs(norm(value) - 0.5) > 0.3 if lowest < 0 else norm(value) > 0.6
