@@ -51,9 +51,9 @@ def test_table_escapes_text_and_limits_rows():
     assert out.count("<tr>") == 3  # header + 2 rows
 
 
-def test_key_values_shows_nested_values_as_json():
-    out = str(key_values({"estimator": "mendelian", "sizes": [3, 4]}))
-    assert "mendelian" in out and "[3, 4]" in out
+def test_key_values_shows_nested_values_compactly():
+    out = str(key_values({"estimator": "mendelian", "sizes": [3, 4], "c": {"north": 0.5520833333}}))
+    assert "mendelian" in out and "[3, 4]" in out and "{north: 0.552}" in out
 
 
 def test_figure_names_are_file_safe_and_unique(tmp_path):

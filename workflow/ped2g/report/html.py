@@ -82,10 +82,17 @@ def key_values(pairs: dict[str, Any] | list[tuple[str, Any]]) -> Markup:
     rows = []
     for key, value in items:
         if isinstance(value, (dict, list)):
-            import json
-
-            value = json.dumps(value, default=str)
+            value = _compact(value)
         rows.append(f"<tr><th scope=\"row\">{html.escape(str(key))}</th>"
                     f"<td>{html.escape(fmt(value))}</td></tr>")
     return Markup('<div class="table-wrap"><table class="kv"><tbody>' + "".join(rows) +
                   "</tbody></table></div>")
+
+
+def _compact(value: Any) -> str:
+    """Nested lists and dicts as short text, numbers to 3 significant figures."""
+    if isinstance(value, dict):
+        return "{" + ", ".join(f"{k}: {_compact(v)}" for k, v in value.items()) + "}"
+    if isinstance(value, (list, tuple)):
+        return "[" + ", ".join(_compact(v) for v in value) + "]"
+    return fmt(value)

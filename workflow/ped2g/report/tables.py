@@ -409,7 +409,7 @@ def compare_compact(display: pd.DataFrame, mass: float) -> pd.DataFrame:
 #: Keys of the stages' JSON records that the report shows elsewhere (cautions, provenance) or
 #: that are too long for a settings table.
 RECORD_SKIP = {"cautions", "null_cautions", "assumptions", "definitions", "fits", "input", "c_note",
-               "ped2g_version", "default_reason"}
+               "ped2g_version", "default_reason", "changes"}
 
 
 def record_items(record: dict[str, Any]) -> list[tuple[str, Any]]:
