@@ -24,8 +24,8 @@ from ..io import output_dir, write_json
 from . import html, tables
 from .figures import (MAX_RANK_PANELS, FigureStore, comparison_figure, covariance_unit,
                       eigentensor_figure, g_heatmaps_figure, heritability_figure, loadings_figure,
-                      pairwise_matrix_figure, rank_plots_figure, slug)
-from .loaders import ResultInputs, read_phenotypes, read_results
+                      null_density_figure, pairwise_matrix_figure, rank_plots_figure, slug)
+from .loaders import ResultInputs, read_compare_draws, read_phenotypes, read_results
 from .methods_text import CAUTION_REFERENCES, REFERENCES, cautions, methods_paragraph
 from .provenance import checksums, package_versions, run_context, stage_records
 
@@ -401,6 +401,7 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
              "the null; highlighted rows are those whose intervals do not overlap (a strict criterion, "
              "see Cautions).")
     loadings = extras.get("loadings")
+    draws = read_compare_draws(inputs.root)
     has_null_cols = False
     for method, frame in inputs.compare.items():
         sec.heading(METHOD_TITLES.get(method, method))
@@ -436,6 +437,7 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
                                  f"posterior median and {mass:.0%} HPD interval."))
         for statistic in too_long:
             sec.note(f"{statistic} has too many rows to plot; see tables/compare_{method}.csv.")
+        _density_figure(sec, method, draws, store)
         _loadings_figures(sec, method, loadings, traits, store)
     references = extras.get("references")
     if references is not None and not references.empty:
@@ -446,6 +448,36 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
     if loadings is not None and not loadings.empty:
         saved.save("compare_loadings", loadings)
     return bool(has_null_cols)
+
+
+#: Statistics of the whole set whose full posterior is drawn against the null (from
+#: compare/draws.nc): method -> (statistic, what it is).
+DENSITY_PLOTS = {"subspace": ("eigenvalue", "eigenvalue of H"),
+                 "tensor": ("variance", "variance along the eigentensor")}
+MAX_DENSITY_PANELS = 8
+
+
+def _density_figure(sec: Section, method: str, draws, store: FigureStore) -> None:
+    if draws is None or method not in DENSITY_PLOTS:
+        return
+    statistic, label = DENSITY_PLOTS[method]
+    name = f"{method}_{statistic}"
+    if name not in draws or f"null_{name}" not in draws:
+        return
+    obs, nul = draws[name], draws[f"null_{name}"]
+    others = [d for d in obs.dims if d != "draw"]
+    if len(others) != 1 or obs.ndim != 2:
+        return
+    dim = others[0]
+    panels_obs, panels_null = {}, {}
+    for k in range(min(obs.sizes[dim], MAX_DENSITY_PANELS)):
+        key = f"{label} #{k + 1}"
+        panels_obs[key] = obs.isel({dim: k}).values
+        panels_null[key] = nul.isel({dim: k}).values
+    title = f"{METHOD_TITLES.get(method, method)}: posterior draws against the null"
+    sec.figure(store.add(f"compare_{method}_draws", null_density_figure(panels_obs, panels_null, title, label),
+                         title, "Histograms of every posterior draw of the statistic (blue) and of its "
+                         "randomisation-null draws (grey), from compare/draws.nc."))
 
 
 #: Which loadings (compare/loadings.csv ``reference``) go with which method, and how to plot them.

@@ -361,3 +361,40 @@ def eigentensor_figure(frame: pd.DataFrame, traits: list[str], max_tensors: int 
     cbar = fig.colorbar(image, ax=axes.ravel().tolist(), shrink=0.8)
     cbar.set_label("element of the eigentensor (unitless)")
     return fig
+
+
+def null_density_figure(observed: dict[str, np.ndarray], null: dict[str, np.ndarray], title: str,
+                        xlabel: str) -> Figure:
+    """Histograms (as densities) of the observed posterior draws of a statistic (blue) and of
+    its null draws (grey), one panel per component."""
+    names = list(observed)
+    n = len(names)
+    ncol = min(n, 4)
+    nrow = int(np.ceil(n / ncol))
+    fig, axes = plt.subplots(nrow, ncol, figsize=(3.2 * ncol, 2.5 * nrow + 0.4), squeeze=False)
+    for ax, name in zip(axes.flat, names):
+        obs = np.asarray(observed[name], dtype=float)
+        obs = obs[np.isfinite(obs)]
+        nul = np.asarray(null.get(name, []), dtype=float)
+        nul = nul[np.isfinite(nul)]
+        both = np.concatenate([obs, nul]) if len(nul) else obs
+        if len(both) == 0:
+            ax.set_visible(False)
+            continue
+        lo, hi = float(both.min()), float(both.max())
+        edges = np.linspace(lo, hi if hi > lo else lo + 1.0, 31)
+        ax.hist(obs, bins=edges, density=True, histtype="stepfilled", alpha=0.45, color=OBSERVED_COLOUR,
+                label="observed")
+        if len(nul):
+            ax.hist(nul, bins=edges, density=True, histtype="step", lw=1.5, color=NULL_COLOUR,
+                    label="randomisation null")
+        ax.set_title(name, fontsize=9)
+        ax.set_xlabel(xlabel, fontsize=8)
+        ax.set_ylabel("density", fontsize=8)
+        ax.tick_params(labelsize=7)
+    for ax in list(axes.flat)[n:]:
+        ax.set_visible(False)
+    axes.flat[0].legend(fontsize=7)
+    fig.suptitle(title, fontsize=10)
+    fig.tight_layout()
+    return fig

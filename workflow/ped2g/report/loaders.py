@@ -259,6 +259,20 @@ def read_compare_extras(root: Path) -> dict[str, Any]:
     return out
 
 
+def read_compare_draws(root: Path):
+    """``compare/draws.nc`` (every per-draw statistic, observed and ``null_``), or None."""
+    import xarray as xr
+
+    path = root / "compare" / "draws.nc"
+    if not path.is_file():
+        return None
+    try:
+        with xr.open_dataset(path, engine="h5netcdf") as ds:
+            return ds.load()
+    except Exception:
+        raise UserError(f"comparison draws {path} is not a readable netCDF file; rerun 'ped2g compare'") from None
+
+
 def read_phenotypes(path: str | os.PathLike, population_column: str,
                     traits: list[str]) -> pd.DataFrame | None:
     """The raw phenotype table (population column and traits as numbers), or None if absent.
