@@ -223,6 +223,7 @@ def test_a_single_population_without_comparisons(tmp_path):
     paths = make_study(tmp_path, compare=None, bad=None)
     for pop in ("south", "east"):
         shutil.rmtree(paths["results"] / "fits" / pop)
+    shutil.rmtree(paths["results"] / "pedigree")  # optional: the Data section says it is missing
     raw = yaml.safe_load(paths["config"].read_text())
     raw["populations"] = ["north"]
     paths["config"].write_text(yaml.safe_dump(raw))
@@ -233,3 +234,4 @@ def test_a_single_population_without_comparisons(tmp_path):
     assert result.failed_fits == []
     assert "g_heatmaps" in result.figures and "rank_north" in result.figures
     assert "1 population (north)" in (paths["out"] / "report.html").read_text(encoding="utf-8")
+    assert "No pedigree/changes.csv was found" in page.text("data")
