@@ -31,7 +31,7 @@ if str(PACKAGE_DIR) not in sys.path:
     sys.path.insert(0, str(PACKAGE_DIR))
 
 from ped2g.errors import UserError  # noqa: E402
-from ped2g.io import read_table, require_columns  # noqa: E402
+from ped2g.io import read_table  # noqa: E402
 import ped2g.config  # noqa: E402
 
 RESULTS = "results"
@@ -304,16 +304,17 @@ PED2G = (f"PYTHONPATH={shlex.quote(str(PACKAGE_DIR))}" + "${{PYTHONPATH:+:$PYTHO
          + f" {shlex.quote(_python())} -m ped2g.cli")
 
 
-def stage_shell(command):
+def stage_shell(command, on_failure=""):
     """Shell text running `ped2g <command>` with all its output in {log}.
 
     On failure the last lines of the log (the stage's one-line error) are also shown on the
-    terminal and the stage's exit status is kept, so Snakemake reports the failed job.
+    terminal, the shell text ``on_failure`` runs, and the stage's exit status is kept, so
+    Snakemake reports the failed job.
     """
     return (
         f"{PED2G} {command} > {{log:q}} 2>&1 "
         "|| {{ status=$?; echo 'ped2g workflow: the last lines of {log}:' >&2; "
-        "tail -n 5 {log:q} >&2; exit $status; }}"
+        "tail -n 5 {log:q} >&2; " + on_failure + " exit $status; }}"
     )
 
 

@@ -31,6 +31,7 @@ rule fit:
     params:
         out=lambda wildcards: fit_dir(wildcards.population),
         pedigree_dir=f"{RESULTS}/pedigree",
+        kept=f"{LOGS}/fit/{{population}}.failed",
     log:
         f"{LOGS}/fit/{{population}}.log",
     benchmark:
@@ -42,11 +43,20 @@ rule fit:
         mem_mb=fit_mem_mb,
         runtime=fit_runtime,
     shell:
+        "rm -rf {params.kept:q}; "
         "scratch=$(mktemp -d \"{resources.tmpdir}/ped2g-fit.XXXXXX\"); "
         "trap 'rm -rf \"$scratch\"' EXIT; "
         "export PYTENSOR_FLAGS=\"${{PYTENSOR_FLAGS:+$PYTENSOR_FLAGS,}}base_compiledir=$scratch/pytensor\"; "
         "export NUMBA_CACHE_DIR=\"$scratch/numba\"; "
         + stage_shell(
             "fit --config {input.config:q} --population {wildcards.population:q} "
-            "--pedigree {params.pedigree_dir:q} --out {params.out:q}"
+            "--pedigree {params.pedigree_dir:q} --out {params.out:q}",
+            # A fit that misses the checks (checks.on_failure: stop) writes its diagnostics
+            # and parameter table, but Snakemake deletes the outputs of a failed job: keep a
+            # copy beside the log so the user can see what missed.
+            on_failure=(
+                "if [ -f {output.diagnostics:q} ]; then mkdir -p {params.kept:q} && "
+                "cp {output.diagnostics:q} {output.parameters:q} {params.kept:q}/ && "
+                "echo 'ped2g workflow: the failed fit diagnostics are kept in {params.kept}' >&2; fi;"
+            ),
         )

@@ -1,0 +1,93 @@
+"""The whole workflow on the tiny invented study: report made, nothing redone, only what changed
+redone, and the same numbers again from the same config and seed.
+
+The tiny study (tests/data/workflow/, 2 populations of 84 animals, 2 traits) runs 2 chains x 100
+draws, far too few for the convergence checks, so its config sets checks.on_failure: flag. The
+numbers are not checked for accuracy here (the stages' own tests do that); this checks the
+wiring.
+"""
+
+from __future__ import annotations
+
+import shutil
+
+import pandas as pd
+import pytest
+
+from workflow_helpers import make_study, planned_jobs, snakemake
+
+pytestmark = pytest.mark.slow
+
+POPULATIONS = ["north", "south"]
+
+
+def _tables(folder, pattern):
+    return {p.relative_to(folder).as_posix(): pd.read_csv(p) for p in sorted(folder.glob(pattern))}
+
+
+def _assert_same_tables(first, second):
+    assert first.keys() == second.keys()
+    for name in first:
+        pd.testing.assert_frame_equal(first[name], second[name], check_exact=True, obj=name)
+
+
+@pytest.fixture(scope="module")
+def finished(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("tiny_study")
+    config = make_study(folder)
+    result = snakemake(folder, "--cores", "2", config=config, timeout=1500)
+    assert result.returncode == 0, (result.stdout + result.stderr)[-5000:]
+    return folder, config, result
+
+
+def test_every_stage_ran_and_the_report_was_written(finished):
+    folder, _config, result = finished
+    assert planned_jobs(result) == {"pedigree": 1, "fit": 2, "null": 1, "compare": 1,
+                                    "report": 1, "all": 1}
+    html = (folder / "results/report/report.html").read_text(encoding="utf-8")
+    assert all(p in html for p in POPULATIONS)
+    assert any((folder / "results/report/figures").glob("*.png"))
+    for p in POPULATIONS:
+        assert (folder / f"results/fits/{p}/posterior.nc").stat().st_size > 0
+        assert (folder / f"logs/fit/{p}.log").stat().st_size > 0
+    for stage in ("pedigree", "null", "compare", "report"):
+        assert (folder / f"logs/{stage}/{stage}.log").stat().st_size > 0
+
+
+def test_a_second_run_does_nothing(finished):
+    folder, config, _ = finished
+    again = snakemake(folder, "--cores", "2", config=config)
+    assert again.returncode == 0, again.stderr[-3000:]
+    assert "Nothing to be done" in again.stdout + again.stderr
+
+
+def test_same_config_and_seed_give_the_same_numbers(finished, tmp_path):
+    folder, config, _ = finished
+    # a fresh folder fits one population again from the raw tables
+    other = tmp_path / "again"
+    other.mkdir()
+    shutil.copytree(folder / "data", other / "data")
+    shutil.copy(config, other / "study.yaml")
+    refit = snakemake(other, "--cores", "2", "results/fits/south/parameters.csv",
+                      config=other / "study.yaml", timeout=900)
+    assert refit.returncode == 0, refit.stderr[-3000:]
+    _assert_same_tables(_tables(folder / "results/fits/south", "*.csv"),
+                        _tables(other / "results/fits/south", "*.csv"))
+    # the null and the comparisons made again in place
+    before = _tables(folder / "results/compare", "*.csv")
+    redo = snakemake(folder, "--cores", "2", "--forcerun", "null", config=config)
+    assert redo.returncode == 0, redo.stderr[-3000:]
+    assert planned_jobs(redo) == {"null": 1, "compare": 1, "report": 1, "all": 1}
+    _assert_same_tables(before, _tables(folder / "results/compare", "*.csv"))
+
+
+def test_a_comparison_setting_reruns_only_compare_and_report(finished):
+    folder, config, _ = finished
+    kept = {p: p.stat().st_mtime_ns for p in
+            [*(folder / "results/fits").rglob("*.nc"), folder / "results/null/null_G.nc",
+             folder / "results/pedigree/pedigree.csv"]}
+    result = snakemake(folder, "--cores", "2", "--config", "compare={skewers: 60}",
+                       config=config)
+    assert result.returncode == 0, result.stderr[-3000:]
+    assert planned_jobs(result) == {"compare": 1, "report": 1, "all": 1}
+    assert {p: p.stat().st_mtime_ns for p in kept} == kept
