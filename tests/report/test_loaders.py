@@ -32,6 +32,17 @@ def test_fit_folders_follow_the_config_order_or_sort(results):
         loaders.fit_folders(results, ["north", "east"])
 
 
+def test_a_fit_folder_without_posterior_is_not_silently_skipped(results):
+    folder = results / "fits" / "north"
+    (folder / "posterior.nc").unlink()
+    with pytest.raises(UserError, match=r"north has no posterior\.nc; its diagnostics\.json says why"):
+        loaders.fit_folders(results, [])
+    (results / "fits" / ".north.tmp-1").mkdir()  # a temporary folder of a running stage is ignored
+    (folder / "diagnostics.json").unlink()
+    with pytest.raises(UserError, match=r"fits/north has no posterior\.nc; run 'ped2g fit' for it, or remove"):
+        loaders.fit_folders(results, [])
+
+
 def test_posterior_not_written_by_ped2g_is_refused(results):
     bad = results / "fits" / "north" / "posterior.nc"
     xr.Dataset({"x": ("a", np.arange(3.0))}).to_netcdf(bad, engine="h5netcdf")

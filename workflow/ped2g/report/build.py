@@ -57,8 +57,9 @@ METHOD_NOTES = {
                 "number of populations means that direction lies in every population's leading subspace.",
     "tensor": "Variance among populations along each eigentensor: the first eigentensor is the pattern of "
               "(co)variance that differs most among populations.",
-    "gmax": "Angle in degrees between g_max and the divergence vector: 0 means divergence along the "
-            "line of most genetic variance, 90 perpendicular to it.",
+    "gmax": "g_max is the direction of most genetic variance. Its angle (degrees) to the main axis of "
+            "divergence among the population means is 0 when populations diverged along it and 90 when "
+            "perpendicular to it; a small eigengap means g_max is poorly determined.",
     "evolvability": "Average response along random unit selection gradients (Hansen & Houle 2008).",
     "dimensions": "How many trait combinations carry appreciable genetic variance: 1 when G has one "
                   "dominant axis, the number of traits when variance is spread evenly.",
@@ -71,6 +72,13 @@ COLLAPSE_AFTER = 12  # longer tables are folded (one click opens them)
 
 @dataclass
 class Section:
+    """One section of the page: an ``id`` (the HTML anchor), a title and blocks in order.
+
+    Each block is ``(kind, value)`` with kind ``text``, ``note``, ``heading``, ``html`` (a rendered
+    table), ``figure`` (a :class:`~ped2g.report.figures.StoredFigure`), ``list``, ``row`` (tables
+    side by side) or ``pre``; the template renders each kind.
+    """
+
     id: str
     title: str
     blocks: list[tuple[str, Any]] = field(default_factory=list)

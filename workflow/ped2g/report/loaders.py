@@ -137,7 +137,15 @@ def fit_folders(root: Path, populations: list[str]) -> dict[str, Path]:
                                 f"is missing; run 'ped2g fit' for population '{pop}' first")
             out[pop] = folder
         return out
-    out = {p.name: p for p in sorted(fits.iterdir()) if (p / "posterior.nc").is_file()}
+    folders = [p for p in sorted(fits.iterdir()) if p.is_dir() and not p.name.startswith(".")]
+    unfinished = [p for p in folders if not (p / "posterior.nc").is_file()]
+    if unfinished:
+        why = ("its diagnostics.json says why (a fit that misses the checks with "
+               "checks.on_failure: stop writes no posterior)" if (unfinished[0] / "diagnostics.json").is_file()
+               else "run 'ped2g fit' for it")
+        raise UserError(f"fit folder {unfinished[0]} has no posterior.nc; {why}, or remove the folder "
+                        "to report on the other populations")
+    out = {p.name: p for p in folders}
     if not out:
         raise UserError(f"no fit found under {fits} (no <population>/posterior.nc); run 'ped2g fit' first")
     return out
