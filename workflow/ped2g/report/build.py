@@ -230,8 +230,8 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
                           autoescape=select_autoescape(["html", "j2"]))
         page = env.get_template("report.html.j2").render(
             title=config["report"]["title"], populations=pops, traits=traits,
-            sections=[sections[sid] for sid, _ in SECTION_ORDER], nav=NAV_LABELS, made=prov["context"]["report made (UTC)"],
-            version=versions.get("ped2g", ""), failed=failed)
+            sections=[sections[sid] for sid, _ in SECTION_ORDER], nav=NAV_LABELS,
+            made=prov["context"]["report made (UTC)"], version=versions.get("ped2g", ""), failed=failed)
         (tmp / "report.html").write_text(page, encoding="utf-8")
         prov["context"]["report seconds"] = round(time.perf_counter() - start, 2)
         write_json(tmp / "provenance.json", prov)

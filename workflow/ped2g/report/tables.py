@@ -39,7 +39,7 @@ def run_settings(config: dict[str, Any], inputs: ResultInputs) -> pd.DataFrame:
         ("model engine (ran)", ", ".join(engines) if engines else "not recorded by the fit stage"),
         ("prior on each standard deviation",
          f"{priors.get('sd_family', 'half_normal').replace('_', '-')} with scale {priors['sd_scale']} "
-         "x the trait's phenotypic SD"),
+         "× the trait's phenotypic SD"),
         ("prior on each correlation matrix", f"LKJ with eta = {priors['lkj_eta']}"),
         ("fixed covariances", "none (G and R estimated)" if model["fixed_covariances"] is None
          else "G and R held fixed at the config's matrices"),
@@ -77,6 +77,13 @@ def _generation_depth(frame: pd.DataFrame) -> np.ndarray:
     return depth
 
 
+def _known(ped: pd.DataFrame, column: str) -> pd.Series:
+    """Whether each animal's parent in ``column`` is known (a non-empty cell)."""
+    if column not in ped:
+        return pd.Series(False, index=ped.index)
+    return ped[column].fillna("").astype(str).str.len().gt(0)
+
+
 def pedigree_by_population(inputs: ResultInputs) -> pd.DataFrame | None:
     """Per population: animals, phenotyped animals, founders, generations and inbreeding.
 
@@ -88,8 +95,7 @@ def pedigree_by_population(inputs: ResultInputs) -> pd.DataFrame | None:
         ped = fit.pedigree_used
         if ped is None:
             continue
-        known = lambda col: ped[col].astype(str).str.len().gt(0) if col in ped else pd.Series(False, index=ped.index)  # noqa: E731
-        founders = int((~known("sire") & ~known("dam")).sum())
+        founders = int((~_known(ped, "sire") & ~_known(ped, "dam")).sum())
         gen = ped["generation"].to_numpy(int) if "generation" in ped else _generation_depth(ped)
         f = pd.to_numeric(ped["inbreeding"], errors="coerce").to_numpy() if "inbreeding" in ped else None
         phen = (int(ped["phenotyped"].astype(str).isin(["1", "True", "true"]).sum())
