@@ -19,7 +19,7 @@ covariances), parameters.csv, breeding_values.csv, pedigree_used.csv and diagnos
 
 # Breeding-value summaries use at most this many evenly thinned draws (all with
 # model.save_breeding_values).
-BREEDING_VALUE_DRAWS = 1000
+BREEDING_VALUE_DRAWS = 400
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -87,6 +87,9 @@ def run(args: argparse.Namespace) -> int:
     model = engine.build_model(data, config["model"])
     sampled = sample.run(model, config["sampling"], population, progress=not args.no_progress)
     info = {k: v for k, v in sampled.info.items() if k != "compiled"}
+    if engine_name == "marginal":
+        info["eigendecomposition_seconds"] = engine.rotation(data).seconds
+    log.info("compiled the model in %.1f s", info["compile_seconds"] or 0.0)
     log.info("sampled %d chains x %d draws in %.1f s (%d gradient evaluations, %d divergences)",
              info["chains"], info["draws"], info["sampling_seconds"], info["gradient_evaluations"],
              info["divergences"])
@@ -96,7 +99,11 @@ def run(args: argparse.Namespace) -> int:
 
     save_all = bool(config["model"].get("save_breeding_values", False))
     rng = generator(int(config["sampling"]["seed"]), "fit", population, "breeding_values")
+    bv_start = time.perf_counter()
     bv = engine.breeding_values(data, sampled.idata, rng, max_draws=None if save_all else BREEDING_VALUE_DRAWS)
+    info["breeding_value_seconds"] = time.perf_counter() - bv_start
+    log.info("breeding values of %d animals from %d draws in %.1f s", data.pedigree.n, bv.shape[0],
+             info["breeding_value_seconds"])
 
     inputs = {"config": str(args.config), "phenotypes": str(phen_path),
               "pedigree": str(args.pedigree or config["data"]["pedigree"])}
