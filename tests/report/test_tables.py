@@ -133,6 +133,11 @@ def test_compare_overlap_rule():
     compact = tables.compare_compact(out, 0.95)
     assert compact["compared"].tolist() == ["a", "b", "c"]
     assert compact["95% HPD"].iloc[0] == "[0, 1.00]"
+    assert "observed − null, 95% HPD" not in compact  # no paired differences given
+    frame["diff_hpd_lower"], frame["diff_hpd_upper"] = [-1.5, -1.6, 0.2], [-0.5, -0.4, 2.5]
+    compact = tables.compare_compact(tables.compare_display(frame), 0.95)
+    assert compact["observed − null, 95% HPD"].tolist() == ["[-1.50, -0.500]", "[-1.60, -0.400]",
+                                                             "[0.200, 2.50]"]
 
 
 def test_row_labels_name_pairs_indices_and_traits():

@@ -405,6 +405,8 @@ def compare_compact(display: pd.DataFrame, mass: float) -> pd.DataFrame:
     if "null_estimate" in display and display["null_estimate"].notna().any():
         out["null"] = display["null_estimate"].to_numpy()
         out[f"null {mass:.0%} HPD"] = interval("null_lower", "null_upper")
+    if {"diff_hpd_lower", "diff_hpd_upper"} <= set(display.columns) and display["diff_hpd_lower"].notna().any():
+        out[f"observed − null, {mass:.0%} HPD"] = interval("diff_hpd_lower", "diff_hpd_upper")
     if "p_obs_gt_null" in display:
         out["P(observed > null)"] = display["p_obs_gt_null"].to_numpy()
     if "intervals_overlap" in display:
