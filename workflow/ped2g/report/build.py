@@ -180,7 +180,7 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
         # -- what was run ---------------------------------------------------------------------
         settings = tables.run_settings(config, inputs)
         saved.save("run_settings", settings)
-        sections["run"].table(html.table(settings))
+        sections["run"].table(html.key_values(list(settings.itertuples(index=False, name=None))))
 
         # -- the data --------------------------------------------------------------------------
         _data_section(sections["data"], inputs, pheno, pheno_path, traits, saved)

@@ -44,8 +44,8 @@ def run_settings(config: dict[str, Any], inputs: ResultInputs) -> pd.DataFrame:
         ("fixed covariances", "none (G and R estimated)" if model["fixed_covariances"] is None
          else "G and R held fixed at the config's matrices"),
         ("sampler", f"{sampling['sampler']} (NUTS)"),
-        ("chains x (warm-up + kept draws)",
-         f"{sampling['chains']} x ({sampling['warmup']} + {sampling['draws']})"),
+        ("chains × (warm-up + kept draws)",
+         f"{sampling["chains"]} × ({sampling['warmup']} + {sampling['draws']})"),
         ("target acceptance", sampling["target_accept"]),
         ("seed", sampling["seed"]),
         ("convergence checks", f"R-hat <= {config['checks']['max_rhat']}, bulk and tail ESS >= "
