@@ -45,7 +45,7 @@ def run_settings(config: dict[str, Any], inputs: ResultInputs) -> pd.DataFrame:
          else "G and R held fixed at the config's matrices"),
         ("sampler", f"{sampling['sampler']} (NUTS)"),
         ("chains × (warm-up + kept draws)",
-         f"{sampling["chains"]} × ({sampling['warmup']} + {sampling['draws']})"),
+         f"{sampling['chains']} × ({sampling['warmup']} + {sampling['draws']})"),
         ("target acceptance", sampling["target_accept"]),
         ("seed", sampling["seed"]),
         ("convergence checks", f"R-hat <= {config['checks']['max_rhat']}, bulk and tail ESS >= "
