@@ -1,6 +1,8 @@
 """'ped2g fit' end to end on a small invented study: every output file, in its documented form.
 
-Checks are exact identities of the outputs (P = G + R when no extra random effects; h2 =
+The study has repeated records, a brood (common-environment) effect and a permanent-environment
+effect of the animal. Checks are exact identities of the outputs (P = G + R + the extra
+covariances; h2 =
 diag(G)/diag(P); parameters.csv summarises the same draws; the pruned pedigree lists every
 phenotyped animal) and the checks logic (a too-short run misses the thresholds, ends with
 status 1 and leaves no posterior.nc).
@@ -13,6 +15,7 @@ import sys
 import numpy as np
 import pandas as pd
 import pytest
+import xarray as xr
 import yaml
 
 from ped2g.cli import main
@@ -37,12 +40,14 @@ def _run(args):
 def study(tmp_path_factory):
     root = tmp_path_factory.mktemp("fitrun")
     s = StudySettings(populations=("north",), traits=("mass", "wing", "tail"), animals=260, founders=30,
-                      phenotyped=180, duplicate_rows=0, absent_parents=0, stray_whitespace=0)
+                      phenotyped=150, records_per_animal=2, permanent_fraction=0.1, brood_fraction=0.1,
+                      duplicate_rows=0, absent_parents=0, stray_whitespace=0)
     st = simulate_study(s, seed=5)
     st.pedigree.to_csv(root / "ped.csv", index=False)
     st.phenotypes.to_csv(root / "phen.csv", index=False)
     cfg = {"data": {"pedigree": str(root / "ped.csv"), "phenotypes": str(root / "phen.csv")},
            "traits": ["mass", "wing", "tail"], "fixed": {"sex": "categorical"},
+           "random": [{"name": "brood", "column": "brood"}, {"name": "permanent", "column": "id"}],
            "sampling": {"chains": 2, "warmup": 150, "draws": 150, "seed": 4},
            "checks": {"on_failure": "flag"}}
     (root / "config.yaml").write_text(yaml.safe_dump(cfg))
@@ -59,7 +64,9 @@ def test_outputs_exist_and_agree(study):
         assert (out / name).is_file(), name
     fit = load_fit(out)
     assert fit.traits == ["mass", "wing", "tail"]
-    np.testing.assert_allclose(fit.P, fit.G + fit.R, rtol=1e-12)
+    post = xr.open_dataset(out / "posterior.nc", group="posterior", engine="h5netcdf")
+    extra = (post["cov_brood"] + post["cov_permanent"]).stack(s=("chain", "draw")).transpose("s", ...).values
+    np.testing.assert_allclose(fit.P, fit.G + fit.R + extra, rtol=1e-12)
     diag = json.loads((out / "diagnostics.json").read_text())
     assert diag["engine"] == "marginal" and diag["sampling"]["sampler"] == "nutpie"
     assert diag["sampling"]["gradient_evaluations"] > 0
@@ -73,6 +80,7 @@ def test_outputs_exist_and_agree(study):
     assert h2 == pytest.approx(np.mean(fit.G[:, 2, 2] / fit.P[:, 2, 2]), rel=1e-5)
     used = pd.read_csv(out / "pedigree_used.csv", dtype=str, keep_default_na=False)
     assert set(st.phenotypes["id"]) == set(used.loc[used["phenotyped"] == "1", "id"])
+    assert diag["random_effects"] == ["brood", "permanent"]
     bv = pd.read_csv(out / "breeding_values.csv")
     assert list(bv.columns[:4]) == ["id", "phenotyped", "mass_mean", "mass_sd"]
     assert len(bv) == len(used)
