@@ -1,0 +1,38 @@
+"""Both samplers reach the known Gaussian posterior, and a seed gives the same draws.
+
+With G and R held at Mrode's (2014) values (Example 3.1, univariate WWG) the posterior of the
+sex effects is Gaussian with mean = the BLUE printed on p. 74 (male 4.358, female 3.404; see
+tests/fit/mrode.py). The sampled posterior mean must lie within 4 Monte Carlo standard errors
+(posterior SD / sqrt(ESS)) plus the book's rounding (5e-4).
+"""
+
+import arviz as az
+import numpy as np
+import pytest
+
+from ped2g.fit import marginal, sample
+from ped2g.fit.prepare import prepare
+
+from mrode import SOLUTIONS, config, pedigree, phenotypes
+
+
+@pytest.mark.parametrize("sampler", ["nutpie", "pymc"])
+def test_sampler_reaches_blue(sampler):
+    cfg = config("E1")
+    cfg["model"]["priors"]["fixed_sd"] = 1.0e3
+    data = prepare(cfg, phenotypes(), pedigree(), "demo")
+    model = marginal.build_model(data, cfg["model"])
+    settings = {"sampler": sampler, "chains": 2, "warmup": 300, "draws": 500, "seed": 3}
+    run = sample.run(model, settings, "demo", progress=False)
+    beta = run.idata.posterior["beta"].values  # (chain, draw, p, t)
+    female = data.y_center[0] + data.y_scale[0] * beta[..., 0, 0]
+    male = female + data.y_scale[0] * beta[..., data.x_names.index("sex[M]"), 0]
+    for draws, want in ((male, SOLUTIONS["E1"]["WWG"][0]), (female, SOLUTIONS["E1"]["WWG"][1])):
+        mcse = draws.std() / np.sqrt(float(az.ess(draws)))
+        assert abs(draws.mean() - want) < 4 * mcse + 5e-4, (draws.mean(), want, mcse)
+    assert run.info["gradient_evaluations"] > 0 and run.info["sampler"] == sampler
+    if sampler == "nutpie":
+        again = sample.run(model, settings, "demo", progress=False, compiled=run.info["compiled"])
+        np.testing.assert_array_equal(again.idata.posterior["beta"].values, beta)
+        other = sample.run(model, settings, "elsewhere", progress=False, compiled=run.info["compiled"])
+        assert not np.array_equal(other.idata.posterior["beta"].values, beta)
