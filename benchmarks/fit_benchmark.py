@@ -131,6 +131,13 @@ def _g_summary(G: np.ndarray) -> tuple[float, float]:
     return float(np.min(ess)), float(np.max(rhat))
 
 
+def _total(idata, group: str, stat: str) -> int:
+    if group not in idata.groups():
+        return 0
+    values = np.asarray(idata[group][stat].values, dtype=float)
+    return int(np.nansum(values))
+
+
 def run_nuts(engine: str, data, args) -> dict:
     import nutpie
 
@@ -158,19 +165,33 @@ def run_nuts(engine: str, data, args) -> dict:
                             f"and O(n^3) work (--dense-max-n {args.dense_max_n})"}
         model, setup = dense_latent.build_model(data, model_config)
         note = "setup = form and factor dense A"
+    options = dict(getattr(marginal if engine == "marginal" else latent, "NUTPIE_OPTIONS", {}))
     start = time.perf_counter()
     compiled = nutpie.compile_pymc_model(model, backend="numba", var_names=["G"])
     compile_s = time.perf_counter() - start
     start = time.perf_counter()
-    idata = nutpie.sample(compiled, chains=args.chains, tune=args.warmup, draws=args.draws,
-                          seed=args.seed, cores=args.cores, progress_bar=False,
-                          target_accept=args.target_accept)
+    sampler = nutpie.sample(compiled, chains=args.chains, tune=args.warmup, draws=args.draws,
+                            seed=args.seed, cores=args.cores, progress_bar=False, blocking=False,
+                            target_accept=args.target_accept, **options)
+    try:
+        idata = sampler.wait(timeout=args.nuts_budget)
+    except TimeoutError:
+        idata = sampler.abort()
+        note = (note + "; " if note else "") + f"stopped by --nuts-budget {args.nuts_budget:.0f} s"
     sample_s = time.perf_counter() - start
-    steps = int(idata.sample_stats["n_steps"].sum())
-    if "warmup_sample_stats" in idata.groups():
-        steps += int(idata.warmup_sample_stats["n_steps"].sum())
-    divergences = int(idata.sample_stats["diverging"].sum())
-    ess, rhat = _g_summary(np.asarray(idata.posterior["G"].values))
+    steps = _total(idata, "sample_stats", "n_steps") + _total(idata, "warmup_sample_stats", "n_steps")
+    divergences = _total(idata, "sample_stats", "diverging")
+    if "posterior" not in idata.groups():
+        return {"setup_s": setup, "compile_s": compile_s, "sample_s": sample_s, "gradients": steps,
+                "ms_per_gradient": 1000 * sample_s / max(steps, 1), "note": note + " (still in warmup)"}
+    G = np.asarray(idata.posterior["G"].values)
+    kept = int(np.min(np.sum(np.all(np.isfinite(G), axis=(-1, -2)), axis=1)))
+    if kept < 4:
+        return {"setup_s": setup, "compile_s": compile_s, "sample_s": sample_s, "gradients": steps,
+                "ms_per_gradient": 1000 * sample_s / max(steps, 1), "note": note + " (too few draws)"}
+    if kept < args.draws:
+        note += f" after {kept} draws per chain"
+    ess, rhat = _g_summary(G[:, :kept])
     total = setup + compile_s + sample_s
     return {"setup_s": setup, "compile_s": compile_s, "sample_s": sample_s, "gradients": steps,
             "ms_per_gradient": 1000 * sample_s / max(steps, 1), "min_ess_G": ess, "max_rhat_G": rhat,
@@ -243,6 +264,8 @@ def main(argv=None) -> int:
     parser.add_argument("--warmup", type=int, default=500)
     parser.add_argument("--draws", type=int, default=500)
     parser.add_argument("--target-accept", type=float, default=0.9)
+    parser.add_argument("--nuts-budget", type=float, default=None,
+                        help="seconds of sampling per NUTS run before it stops early (default: none)")
     parser.add_argument("--gibbs-iterations", type=int, default=2000, help="kept Gibbs iterations per chain")
     parser.add_argument("--gibbs-warmup", type=int, default=500)
     parser.add_argument("--gibbs-budget", type=float, default=600.0,

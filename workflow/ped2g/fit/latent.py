@@ -35,7 +35,14 @@ import numpy as np
 from ..pedigree.core import Pedigree
 from .data import FitData
 
-__all__ = ["applicable", "build_model", "breeding_values", "generation_layout", "pedigree_product"]
+__all__ = ["applicable", "build_model", "breeding_values", "generation_layout", "pedigree_product",
+           "NUTPIE_OPTIONS"]
+
+#: Extra options for ``nutpie.sample`` with this engine. The low-rank modified mass matrix adapts
+#: to the correlation between the scale of G and the standardised breeding values; on the
+#: benchmark data (n = 500, 4 traits, 2 chains of 300 + 300) it raised the minimum bulk ESS over
+#: G from 13 to 33 for about twice the sampling time.
+NUTPIE_OPTIONS = {"low_rank_modified_mass_matrix": True}
 
 
 # --------------------------------------------------------------------------------------------
