@@ -24,6 +24,14 @@ and drawn from one base population with covariance G, no selection on unrecorded
 not in the model (shared environment of relatives, maternal effects, assortative mating) are
 absorbed into G when relatives share them.
 
+Cautions: (1) the elements of G mix far more slowly here than in the marginal engine (bulk ESS
+per draw of a few percent on the benchmark data, against most of one for the marginal engine;
+see benchmarks/fit_benchmark.py), so use this engine where the marginal one does not apply and
+expect to need long chains; the fit stage's R-hat/ESS checks say when the chains are too short.
+(2) Every draw of the standardised breeding values ``w_animal`` is kept in the trace:
+``8 x animals x traits x chains x draws`` bytes (1 GB for 8,000 animals, 4 traits, 4 x 1,000
+draws). (3) nutpie compiles the model with numba; expect tens of seconds before sampling starts.
+
 Engine interface (shared with :mod:`ped2g.fit.marginal`): :func:`applicable`,
 :func:`build_model`, :func:`breeding_values`.
 """
