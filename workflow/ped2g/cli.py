@@ -34,8 +34,16 @@ explicit paths; the Snakemake workflow (Snakefile) runs them all from one config
 Run 'ped2g STAGE --help' for the options of a stage."""
 
 
-class _Formatter(argparse.RawDescriptionHelpFormatter, argparse.ArgumentDefaultsHelpFormatter):
-    pass
+class _Formatter(argparse.RawDescriptionHelpFormatter):
+    """Keeps descriptions as written and adds "(default: X)" only where a default means something."""
+
+    def _get_help_string(self, action: argparse.Action) -> str:
+        text = action.help or ""
+        default = action.default
+        if ("default" in text or default in (None, False, argparse.SUPPRESS)
+                or action.option_strings == [] or isinstance(action, argparse._HelpAction)):
+            return text
+        return f"{text} (default: %(default)s)"
 
 
 def build_parser() -> argparse.ArgumentParser:
