@@ -91,3 +91,18 @@ def test_a_comparison_setting_reruns_only_compare_and_report(finished):
     assert result.returncode == 0, result.stderr[-3000:]
     assert planned_jobs(result) == {"compare": 1, "report": 1, "all": 1}
     assert {p: p.stat().st_mtime_ns for p in kept} == kept
+
+
+def test_a_fit_that_misses_the_checks_stops_the_run_and_keeps_its_diagnostics(tmp_path):
+    # 2 chains x 20 draws cannot reach an ESS of 100000 (at most 40): the check must fail
+    config = make_study(tmp_path, checks={"on_failure": "stop", "min_ess": 100000},
+                        sampling={"warmup": 20, "draws": 20})
+    result = snakemake(tmp_path, "--cores", "2", "results/fits/north/posterior.nc",
+                       config=config, timeout=900)
+    assert result.returncode != 0
+    assert "checks failed: population 'north'" in result.stderr
+    assert "ESS" in result.stderr
+    assert not (tmp_path / "results/fits/north/posterior.nc").exists()
+    kept = tmp_path / "logs/fit/north.failed"
+    assert (kept / "diagnostics.json").stat().st_size > 0
+    assert (kept / "parameters.csv").stat().st_size > 0
