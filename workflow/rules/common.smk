@@ -334,3 +334,39 @@ def all_fit_inputs():
 
 def report_outputs():
     return [f"{RESULTS}/report/report.html"]
+
+
+def pedigree_options():
+    """Command-line options of `ped2g pedigree` from the config's data section."""
+    data = CFG["data"]
+    columns = data["columns"]
+    words = ["--id", columns["id"], "--sire", columns["sire"], "--dam", columns["dam"]]
+    codes = [c for c in data["missing_parent"] if c != ""]  # a blank cell always means unknown
+    for code in codes:
+        if "," in code:
+            fail(f"{SOURCE}: key 'data.missing_parent': the code {code!r} contains a comma; "
+                 "codes for an unknown parent cannot contain commas")
+    words += ["--missing", ",".join(codes)]
+    if data["hermaphrodite"]:
+        words.append("--hermaphrodite")
+    return " ".join(shlex.quote(w) for w in words)
+
+
+def fit_mem_mb(wildcards, attempt):
+    """Memory of a fit in MB: 4 GB, doubled on each retry (see profiles/slurm/config.yaml)."""
+    return 4000 * 2 ** (attempt - 1)
+
+
+def fit_runtime(wildcards, attempt):
+    """Wall time of a fit in minutes: 4 hours, doubled on each retry."""
+    return 240 * 2 ** (attempt - 1)
+
+
+def folder_of(path):
+    """The folder a stage writes into, from one of its declared files."""
+    return os.path.dirname(str(path))
+
+
+def fit_folders(fit_files):
+    """The fit folders, one per population in order, from the fits' declared files."""
+    return list(dict.fromkeys(folder_of(f) for f in fit_files))

@@ -10,8 +10,8 @@ rule compare:
     output:
         draws=f"{RESULTS}/compare/draws.nc",
     params:
-        fits=[fit_dir(p) for p in POPULATIONS],
-        out=f"{RESULTS}/compare",
+        fits=lambda wildcards, input: fit_folders(input.fits),
+        out=lambda wildcards, output: folder_of(output.draws),
     log:
         f"{LOGS}/compare/compare.log",
     conda:

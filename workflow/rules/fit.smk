@@ -6,16 +6,6 @@
 # clusters), removed when the job ends.
 
 
-def fit_mem_mb(wildcards, attempt):
-    """Memory of a fit in MB: 4 GB, doubled on each retry (see profiles/slurm/config.yaml)."""
-    return 4000 * 2 ** (attempt - 1)
-
-
-def fit_runtime(wildcards, attempt):
-    """Wall time of a fit in minutes: 4 hours, doubled on each retry."""
-    return 240 * 2 ** (attempt - 1)
-
-
 rule fit:
     input:
         pedigree=rules.pedigree.output.pedigree,
@@ -29,8 +19,8 @@ rule fit:
         diagnostics=f"{RESULTS}/fits/{{population}}/diagnostics.json",
         pedigree_used=f"{RESULTS}/fits/{{population}}/pedigree_used.csv",
     params:
-        out=lambda wildcards: fit_dir(wildcards.population),
-        pedigree_dir=f"{RESULTS}/pedigree",
+        out=lambda wildcards, output: folder_of(output.posterior),
+        pedigree_dir=lambda wildcards, input: folder_of(input.pedigree),
         kept=f"{LOGS}/fit/{{population}}.failed",
     log:
         f"{LOGS}/fit/{{population}}.log",

@@ -10,8 +10,8 @@ rule null:
         null=f"{RESULTS}/null/null_G.nc",
         summary=f"{RESULTS}/null/summary.json",
     params:
-        fits=[fit_dir(p) for p in POPULATIONS],
-        out=f"{RESULTS}/null",
+        fits=lambda wildcards, input: fit_folders(input.fits),
+        out=lambda wildcards, output: folder_of(output.null),
     log:
         f"{LOGS}/null/null.log",
     conda:

@@ -39,8 +39,8 @@ rule report:
             category="Tables",
         ),
     params:
-        results=RESULTS,
-        out=f"{RESULTS}/report",
+        results=lambda wildcards, input: folder_of(folder_of(input.null[0])),
+        out=lambda wildcards, output: folder_of(output.html),
     log:
         f"{LOGS}/report/report.log",
     conda:
