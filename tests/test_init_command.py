@@ -136,3 +136,13 @@ def test_starter_config_for_the_tiny_study_runs_the_workflow_dry_run(tmp_path):
         capture_output=True, text=True, cwd=tmp_path)
     assert result.returncode == 0, result.stderr[-2000:]
     assert "population=north" in result.stdout and "population=south" in result.stdout
+
+
+def test_covariates_are_offered_as_fixed_effects_of_the_usual_kind():
+    rows = [r + [age, year] for r, age, year in zip(
+        PHENOTYPES, ["age_days", "31", "45", "52", "38", "60"],
+        ["cohort", "2001", "2002", "2003", "2004", "2005"])]
+    g = guess(_frame(PEDIGREE), _frame(rows))
+    assert g.possible_fixed["age_days"] == "numeric"  # a slope on age
+    assert g.possible_fixed["cohort"] == "categorical"  # a level per cohort
+    assert "age_days" not in g.traits and "cohort" not in g.traits

@@ -46,6 +46,9 @@ NOT_TRAITS = re.compile(
     r"brood|clutch|nest|block|batch|rep|replicate|observer|x|y|lat|latitude|lon|long|"
     r"longitude|row|col|column|plot|pen|cage|tank|litter)(_.*)?$")
 
+# Of those, the ones usually entered as a slope rather than a level per value.
+NUMERIC_COVARIATES = re.compile(r"^(age|x|y|lat|latitude|lon|long|longitude|date|day)(_.*)?$")
+
 # Codes that often mean "unknown parent" in sire and dam columns.
 MISSING_CODES = ("0", "NA", "na", "N/A", ".", "-", "-9", "-1", "NULL", "null", "None", "none",
                  "unknown", "Unknown", "?", "missing", "")
@@ -237,7 +240,10 @@ def guess(pedigree, phenotypes, *, id_col=None, sire=None, dam=None, population=
             if share >= NUMERIC_SHARE and count >= 2:
                 values = {c.strip() for c in phenotypes[column]}
                 if NOT_TRAITS.match(normal):
-                    g.possible_fixed[column] = "numeric" if len(values) > 10 else "categorical"
+                    # a slope for measurements (age, coordinates), a level per value otherwise
+                    # (years, cohorts, blocks: common practice)
+                    g.possible_fixed[column] = ("numeric" if NUMERIC_COVARIATES.match(normal)
+                                                else "categorical")
                 elif all(float(v).is_integer() for v in values if _as_number(v) is not None) and \
                         len(values) == len(phenotypes):
                     g.notes.append(f"column '{column}' skipped: whole numbers all different, "
