@@ -1,9 +1,11 @@
 """Choosing the engine: ``model.engine`` is ``marginal``, ``latent`` or ``auto``.
 
 ``auto`` takes the marginal engine (breeding values integrated out; far better mixing of G per
-gradient) whenever it applies -- up to :data:`ped2g.fit.marginal.MAX_RECORDS` records and
-projections that fit in memory -- and the latent engine otherwise (linear cost in the number of
-animals, no dense matrices). The choice and its reason go into diagnostics.json.
+gradient) whenever it applies -- up to :data:`ped2g.fit.marginal.MAX_RECORDS` records -- and its
+pre-rotated projections of missing trait values and extra random-effect levels stay below
+:data:`ped2g.fit.marginal.AUTO_PROJECTION_CELLS` (beyond that each gradient is memory-bound and
+the marginal engine loses its advantage); otherwise the latent engine (linear cost in the number
+of animals, no dense matrices). The choice and its reason go into diagnostics.json.
 """
 
 from __future__ import annotations
@@ -41,8 +43,12 @@ def choose(data: FitData, requested: str) -> tuple[str, ModuleType, str]:
     if requested == "latent":
         latent = _load("latent")
         return "latent", latent, "requested in the config"
-    if ok:
+    cells = marginal.projection_cells(data)
+    if ok and cells <= marginal.AUTO_PROJECTION_CELLS:
         return "marginal", marginal, f"auto: the marginal engine applies ({why})"
+    if ok:
+        why = (f"its projections of missing values and extra random-effect levels have {cells:.3g} cells, "
+               f"above {marginal.AUTO_PROJECTION_CELLS:.3g} where each gradient becomes memory-bound")
     latent = _load("latent")
     ok_l, why_l = latent.applicable(data)
     if not ok_l:

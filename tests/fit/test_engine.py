@@ -1,0 +1,35 @@
+"""The engine choice follows model.engine and the marginal engine's limits."""
+
+import numpy as np
+import pytest
+
+from ped2g.errors import UserError
+from ped2g.fit import engine, marginal
+from ped2g.fit.data import FitData
+from ped2g.pedigree.core import Pedigree
+
+
+def data_with(n, missing_fraction, seed=0):
+    rng = np.random.default_rng(seed)
+    ped = Pedigree(ids=np.array([f"a{i}" for i in range(n)], dtype=object), sire=-np.ones(n, np.int64),
+                   dam=-np.ones(n, np.int64), generation=np.zeros(n, np.int64), inbreeding=np.zeros(n))
+    y = rng.normal(size=(n, 4))
+    y[rng.random((n, 4)) < missing_fraction] = np.nan
+    return FitData(population="p", traits=list("abcd"), pedigree=ped, phenotyped=np.ones(n, bool),
+                   record_animal=np.arange(n), y=y, y_center=np.zeros(4), y_scale=np.ones(4),
+                   X=np.ones((n, 1)), x_names=["intercept"])
+
+
+def test_auto_takes_marginal_for_small_data_and_latent_beyond_its_limits():
+    name, _, reason = engine.choose(data_with(300, 0.1), "auto")
+    assert name == "marginal" and "applies" in reason
+    # 6000 records x ~2400 missing cells = 1.4e7 cells > AUTO_PROJECTION_CELLS
+    name, _, reason = engine.choose(data_with(6000, 0.1), "auto")
+    assert name == "latent" and "memory-bound" in reason
+    big = data_with(marginal.MAX_RECORDS + 1, 0.0)
+    name, _, reason = engine.choose(big, "auto")
+    assert name == "latent" and "exceed" in reason
+    with pytest.raises(UserError, match="model.engine' asks for 'marginal'"):
+        engine.choose(big, "marginal")
+    with pytest.raises(UserError, match="allowed: auto, marginal, latent"):
+        engine.choose(big, "fast")
