@@ -30,7 +30,9 @@ class SamplingRun:
         Posterior draws (warm-up removed) and sample_stats.
     info : dict
         sampler, seed, chains, warmup, draws, target_accept, compile_seconds, sampling_seconds,
-        gradient_evaluations (warm-up included), divergences (kept draws), seconds_per_gradient.
+        gradient_evaluations (warm-up included), divergences (kept draws), seconds_per_gradient
+        (sampling wall time x parallel chains / gradient evaluations: includes sampler overhead
+        and is inflated when other jobs share the cores).
     """
 
     idata: Any
