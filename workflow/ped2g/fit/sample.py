@@ -50,6 +50,14 @@ def _count(idata, group: str, stat: str) -> int:
     return int(np.asarray(idata[group][stat].values).sum())
 
 
+def available_cpus() -> int:
+    """CPUs this process may use: the scheduler's allocation (e.g. a SLURM job), not the node's count."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:  # platforms without sched_getaffinity (macOS)
+        return os.cpu_count() or 1
+
+
 def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
         compiled=None) -> SamplingRun:
     """Sample ``model`` with the settings of ``config["sampling"]``.
@@ -74,7 +82,7 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
     draws = int(sampling.get("draws", 1000))
     target_accept = float(sampling.get("target_accept", 0.9))
     seed = sampler_seed(int(sampling.get("seed", 1)), population)
-    cores = max(1, min(chains, os.cpu_count() or 1))
+    cores = max(1, min(chains, available_cpus()))
     info: dict[str, Any] = dict(sampler=sampler, seed=seed, run_seed=int(sampling.get("seed", 1)),
                                 chains=chains, warmup=warmup, draws=draws, target_accept=target_accept)
     if sampler == "nutpie":
