@@ -215,14 +215,17 @@ def run_gibbs(data, args) -> dict:
         chains = list(pool.map(_gibbs_chain, payloads))
     wall = time.perf_counter() - start
     kept = min(len(c["G"]) for c in chains)
-    if kept < 4:
-        return {"note": f"only {kept} kept iterations within the time budget"}
-    G = np.stack([c["G"][:kept] for c in chains])
     iterations = sum(c["iterations"] for c in chains)
+    ms = 1000 * sum(c["seconds"] for c in chains) / max(iterations, 1)
+    if kept < 4:
+        return {"sample_s": wall, "gradients": iterations, "ms_per_gradient": ms,
+                "note": f"gradients = iterations, ms per iteration; only {kept} kept iterations "
+                        f"within --gibbs-budget (still in warmup)"}
+    G = np.stack([c["G"][:kept] for c in chains])
     ess, rhat = _g_summary(G)
     note = "" if kept == args.gibbs_iterations else f"stopped by --gibbs-budget after {kept} kept iterations"
     return {"setup_s": 0.0, "compile_s": 0.0, "sample_s": wall, "gradients": iterations,
-            "ms_per_gradient": 1000 * sum(c["seconds"] for c in chains) / iterations,
+            "ms_per_gradient": ms,
             "min_ess_G": ess, "max_rhat_G": rhat, "ess_per_s_sampling": ess / wall,
             "ess_per_s_total": ess / wall, "total_s": wall, "divergences": 0,
             "note": ("gradients = iterations, ms per iteration; " + note).strip("; ")}

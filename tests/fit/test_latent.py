@@ -92,12 +92,12 @@ def test_breeding_values_have_covariance_G_kron_A():
     assert lay["order"].shape == (n,)
 
 
-def _toy_data(rng, n_records_missing=True, random_effect=True):
+def _toy_data(rng, with_missing=True, random_effect=True):
     ped = six_animals()
     t = 3
     rec = np.array([2, 3, 4, 5, 5, 4, 3])  # repeated records on animals 4, 5, 6
     y = rng.standard_normal((len(rec), t))
-    if n_records_missing:
+    if with_missing:
         y[0, 1] = np.nan
         y[3, 0] = y[3, 2] = np.nan
         y[5, 2] = np.nan
@@ -133,7 +133,7 @@ def test_log_density_matches_scipy_on_observed_traits():
     C = np.asarray(model.compile_fn(cov_pe, inputs=model.value_vars, on_unused_input="ignore")(point | {"v_pe": v}))
     assert not np.allclose(C, np.eye(3))  # a non-trivial covariance
     lay = latent.generation_layout(data.pedigree)
-    m = np.sqrt(lay["sqrt_b"] ** 2)[:, None] * point["w_animal"] @ np.linalg.cholesky(G).T
+    m = lay["sqrt_b"][:, None] * point["w_animal"] @ np.linalg.cholesky(G).T
     a = latent.pedigree_product(data.pedigree, m[lay["rank"]])
     u = v @ np.linalg.cholesky(C).T
     mu = data.X @ point["beta"] + a[data.record_animal] + u[data.random[0].level]
