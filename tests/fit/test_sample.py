@@ -36,3 +36,21 @@ def test_sampler_reaches_blue(sampler):
         np.testing.assert_array_equal(again.idata.posterior["beta"].values, beta)
         other = sample.run(model, settings, "elsewhere", progress=False, compiled=run.info["compiled"])
         assert not np.array_equal(other.idata.posterior["beta"].values, beta)
+
+
+def test_engine_sampler_options_reach_nutpie():
+    # The latent engine asks nutpie for its low-rank mass-matrix adaptation (latent.NUTPIE_OPTIONS);
+    # the option must reach the sampler and be recorded, and still reach the Gaussian posterior.
+    from ped2g.fit import latent
+
+    cfg = config("E1")
+    cfg["model"]["priors"]["fixed_sd"] = 1.0e3
+    data = prepare(cfg, phenotypes(), pedigree(), "demo")
+    model = marginal.build_model(data, cfg["model"])
+    settings = {"sampler": "nutpie", "chains": 2, "warmup": 300, "draws": 500, "seed": 3}
+    run = sample.run(model, settings, "demo", progress=False, nutpie_options=latent.NUTPIE_OPTIONS)
+    assert run.info["nutpie_options"] == {"low_rank_modified_mass_matrix": True}
+    beta = run.idata.posterior["beta"].values
+    female = data.y_center[0] + data.y_scale[0] * beta[..., 0, 0]
+    mcse = female.std() / np.sqrt(float(az.ess(female)))
+    assert abs(female.mean() - SOLUTIONS["E1"]["WWG"][1]) < 4 * mcse + 5e-4

@@ -85,7 +85,8 @@ def run(args: argparse.Namespace) -> int:
     engine_name, engine, reason = choose(data, config["model"]["engine"])
     log.info("engine: %s (%s)", engine_name, reason)
     model = engine.build_model(data, config["model"])
-    sampled = sample.run(model, config["sampling"], population, progress=not args.no_progress)
+    sampled = sample.run(model, config["sampling"], population, progress=not args.no_progress,
+                         nutpie_options=getattr(engine, "NUTPIE_OPTIONS", None))
     info = {k: v for k, v in sampled.info.items() if k != "compiled"}
     if engine_name == "marginal":
         info["eigendecomposition_seconds"] = engine.rotation(data).seconds

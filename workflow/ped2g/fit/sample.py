@@ -59,7 +59,7 @@ def available_cpus() -> int:
 
 
 def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
-        compiled=None) -> SamplingRun:
+        compiled=None, nutpie_options: dict[str, Any] | None = None) -> SamplingRun:
     """Sample ``model`` with the settings of ``config["sampling"]``.
 
     Parameters
@@ -73,6 +73,9 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
     compiled
         An already compiled nutpie model (e.g. the same model with other data through
         ``compiled.with_data``); skips compilation.
+    nutpie_options
+        Extra keyword arguments for ``nutpie.sample`` that an engine asks for (its
+        ``NUTPIE_OPTIONS``, e.g. the latent engine's low-rank mass-matrix adaptation).
     """
     sampler = sampling.get("sampler", "nutpie")
     if sampler not in SAMPLERS:
@@ -94,7 +97,9 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
         info["compile_seconds"] = time.perf_counter() - start
         start = time.perf_counter()
         idata = nutpie.sample(compiled, draws=draws, tune=warmup, chains=chains, cores=cores, seed=seed,
-                              target_accept=target_accept, progress_bar=progress, save_warmup=True)
+                              target_accept=target_accept, progress_bar=progress, save_warmup=True,
+                              **(nutpie_options or {}))
+        info["nutpie_options"] = dict(nutpie_options or {})
         info["sampling_seconds"] = time.perf_counter() - start
         info["compiled"] = compiled
     else:
