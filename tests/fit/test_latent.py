@@ -21,6 +21,9 @@ from ped2g.pedigree.core import Pedigree
 from ped2g.pedigree.relationships import inbreeding
 
 from mrode import SOLUTIONS, config, pedigree, phenotypes
+# T and D of Mrode (2014), p. 25 (METHODS.md section 1.6, P1) [V], from tests/textbook.py.
+from textbook import P1_D as D_MRODE
+from textbook import P1_T as T_MRODE
 
 
 def six_animals() -> Pedigree:
@@ -32,16 +35,6 @@ def six_animals() -> Pedigree:
                     generation=gen, inbreeding=inbreeding(sire, dam))
 
 
-# Mrode (2014), p. 25 (METHODS.md section 1.6, P1) [V]
-T_MRODE = np.array([
-    [1, 0, 0, 0, 0, 0],
-    [0, 1, 0, 0, 0, 0],
-    [0.5, 0.5, 1, 0, 0, 0],
-    [0.5, 0, 0, 1, 0, 0],
-    [0.5, 0.25, 0.5, 0.5, 1, 0],
-    [0.25, 0.625, 0.25, 0.25, 0.5, 1],
-])
-D_MRODE = np.array([1, 1, 0.5, 0.75, 0.5, 0.46875])
 
 
 def test_pedigree_product_is_mrode_T():

@@ -1,8 +1,6 @@
 """Helpers for the null tests: small pedigrees, an independent tabular A, fit folders.
 
-``tabular_a`` is the textbook tabular method for the additive relationship matrix (Emik &
-Terrill 1949; Mrode 2014, *Linear Models for the Prediction of Animal Breeding Values*, 3rd edn,
-section 2.2), written as a plain loop so it shares no code with ped2g.
+``tabular_a`` is the textbook tabular method for A from ``tests/textbook.py`` (shared oracle).
 """
 
 from __future__ import annotations
@@ -15,19 +13,9 @@ import numpy as np
 from ped2g.pedigree.core import Pedigree
 from ped2g.pedigree.relationships import inbreeding
 from ped2g.posterior import posterior_dataset
+from textbook import tabular_relationship as tabular_a  # noqa: F401  (re-exported)
 
 
-def tabular_a(sire, dam) -> np.ndarray:
-    """A by the tabular method: a_jj = 1 + a_sd/2, a_ij = (a_is + a_id)/2 for i older than j."""
-    n = len(sire)
-    a = np.zeros((n, n))
-    for j in range(n):
-        s, d = int(sire[j]), int(dam[j])
-        a[j, j] = 1.0 + (0.5 * a[s, d] if s >= 0 and d >= 0 else 0.0)
-        for i in range(j):
-            v = (0.5 * a[i, s] if s >= 0 else 0.0) + (0.5 * a[i, d] if d >= 0 else 0.0)
-            a[i, j] = a[j, i] = v
-    return a
 
 
 def pedigree_from_parents(sire, dam, prefix: str = "a") -> Pedigree:

@@ -8,16 +8,7 @@ from ped2g.null.simulate import check_draws, simulate_pooled
 from ped2g.rng import generator
 from ped2g.simulate.breeding_values import simulate_breeding_values
 
-# A of Mrode (2014) Table 2.1 pedigree. Entries for animals {1, 4, 5} as printed on p. 32; the
-# rest as tabulated in METHODS §1.6 (computed there, agreeing with the textbook as recalled [M]).
-MRODE_P1_A = np.array([
-    [1.0000, 0.0000, 0.5000, 0.5000, 0.5000, 0.2500],
-    [0.0000, 1.0000, 0.5000, 0.0000, 0.2500, 0.6250],
-    [0.5000, 0.5000, 1.0000, 0.2500, 0.6250, 0.5625],
-    [0.5000, 0.0000, 0.2500, 1.0000, 0.6250, 0.3125],
-    [0.5000, 0.2500, 0.6250, 0.6250, 1.1250, 0.6875],
-    [0.2500, 0.6250, 0.5625, 0.3125, 0.6875, 1.1250],
-])
+from textbook import P1_A as MRODE_P1_A  # Mrode (2014) Table 2.1 A (see tests/textbook.py)
 
 
 def test_simulated_breeding_values_have_covariance_a_kron_g():

@@ -1,8 +1,7 @@
 """Independent helpers for the pedigree tests (not part of ped2g).
 
-``tabular_relationship`` is the textbook tabular (recursive) method for A (Emik & Terrill 1949;
-Mrode 2014, *Linear Models for the Prediction of Animal Breeding Values*, 3rd edn, section 2.2),
-written here as a plain loop so it shares no code with ``ped2g.pedigree.relationships``.
+``tabular_relationship`` (the textbook tabular method for A, shared with other stages' tests) lives in
+``tests/textbook.py``.
 """
 
 from __future__ import annotations
@@ -10,23 +9,9 @@ from __future__ import annotations
 import numpy as np
 
 from ped2g.pedigree.core import Pedigree
+from textbook import tabular_relationship  # noqa: F401  (re-exported for the pedigree tests)
 
 
-def tabular_relationship(sire, dam) -> np.ndarray:
-    """A by the tabular method: a_jj = 1 + a_sd / 2, a_ij = (a_is + a_id) / 2 for i older than j."""
-    n = len(sire)
-    a = np.zeros((n, n))
-    for j in range(n):
-        s, d = int(sire[j]), int(dam[j])
-        a[j, j] = 1.0 + (0.5 * a[s, d] if s >= 0 and d >= 0 else 0.0)
-        for i in range(j):
-            v = 0.0
-            if s >= 0:
-                v += 0.5 * a[i, s]
-            if d >= 0:
-                v += 0.5 * a[i, d]
-            a[i, j] = a[j, i] = v
-    return a
 
 
 def make_pedigree(rows: list[tuple[str, str | None, str | None]]) -> Pedigree:

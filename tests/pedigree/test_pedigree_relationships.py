@@ -17,6 +17,7 @@ from ped2g.pedigree.relationships import (
     relationship_matrix,
 )
 from pedigree_oracles import make_pedigree, random_parents, tabular_relationship
+from textbook import P1_A
 
 TOL = 1e-9
 
@@ -41,14 +42,7 @@ def test_six_animal_example_inbreeding_and_mendelian_coefficients():
 def test_six_animal_example_relationship_matrix():
     # Mrode (2014) p. 32 prints the block for animals {1, 4, 5}; the full table is the
     # textbook's Table 2.1 A [recalled; every entry also follows by hand from the recursion].
-    expected = np.array([
-        [1.0, 0.0, 0.5, 0.5, 0.5, 0.25],
-        [0.0, 1.0, 0.5, 0.0, 0.25, 0.625],
-        [0.5, 0.5, 1.0, 0.25, 0.625, 0.5625],
-        [0.5, 0.0, 0.25, 1.0, 0.625, 0.3125],
-        [0.5, 0.25, 0.625, 0.625, 1.125, 0.6875],
-        [0.25, 0.625, 0.5625, 0.3125, 0.6875, 1.125],
-    ])
+    expected = P1_A
     ped = make_pedigree(P1)
     np.testing.assert_allclose(relationship_matrix(ped), expected, atol=TOL)
     np.testing.assert_allclose(relationship_matrix(ped, [0, 3, 4]),

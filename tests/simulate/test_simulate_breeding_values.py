@@ -16,22 +16,12 @@ import scipy.linalg
 from ped2g.errors import UserError
 from ped2g.pedigree.core import Pedigree
 from ped2g.simulate.breeding_values import covariance_factor, simulate_breeding_values
+# Mrode (2014) Table 2.1 pedigree, its F (p. 25) and A (p. 32 block; see tests/textbook.py).
+from textbook import P1_A, P1_DAM, P1_F, P1_SIRE
+from textbook import tabular_relationship as _tabular_A
 
 G2 = np.array([[2.0, 0.6], [0.6, 1.0]])
 
-# Mrode (2014) Table 2.1: 3 = 1x2, 4 = 1x?, 5 = 4x3, 6 = 5x2 (sire x dam); F from p. 25.
-P1_SIRE = np.array([-1, -1, 0, 0, 3, 4])
-P1_DAM = np.array([-1, -1, 1, -1, 2, 1])
-P1_F = np.array([0, 0, 0, 0, 0.125, 0.125])
-# A of P1 (METHODS.md §1.6: block {1,4,5} V Mrode p. 32; rest C, recalled agreement with the book M).
-P1_A = np.array([
-    [1.0000, 0.0000, 0.5000, 0.5000, 0.5000, 0.2500],
-    [0.0000, 1.0000, 0.5000, 0.0000, 0.2500, 0.6250],
-    [0.5000, 0.5000, 1.0000, 0.2500, 0.6250, 0.5625],
-    [0.5000, 0.0000, 0.2500, 1.0000, 0.6250, 0.3125],
-    [0.5000, 0.2500, 0.6250, 0.6250, 1.1250, 0.6875],
-    [0.2500, 0.6250, 0.5625, 0.3125, 0.6875, 1.1250],
-])
 
 
 def _generation(sire, dam):
@@ -47,18 +37,6 @@ def _pedigree(sire, dam, F):
     dam = np.asarray(dam, dtype=np.int64)
     return Pedigree(ids=np.array([str(i + 1) for i in range(len(sire))], dtype=object), sire=sire,
                     dam=dam, generation=_generation(sire, dam), inbreeding=np.asarray(F, dtype=float))
-
-
-def _tabular_A(sire, dam):
-    """Tabular method (Mrode 2014 §2.2): a_ij = (a_i,s + a_i,d)/2, a_jj = 1 + a_s,d/2."""
-    n = len(sire)
-    A = np.zeros((n, n))
-    for j in range(n):
-        s, d = sire[j], dam[j]
-        for i in range(j):
-            A[i, j] = A[j, i] = 0.5 * ((A[i, s] if s >= 0 else 0) + (A[i, d] if d >= 0 else 0))
-        A[j, j] = 1.0 + (0.5 * A[s, d] if s >= 0 and d >= 0 else 0.0)
-    return A
 
 
 def _zscores_of_covariance(X, Sigma):
