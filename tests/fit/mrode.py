@@ -57,3 +57,19 @@ def config(example: str) -> dict:
         "fixed": {"sex": "categorical"},
         "model": {"priors": {"fixed_sd": 1.0e4}, "fixed_covariances": {"G": G, "R": R}},
     })
+
+
+def assert_matches_solutions(data, beta, bv, example: str, atol: float = 1e-3) -> None:
+    """Compare standardised-scale solutions with Mrode's (2014) p. 74 table for ``example``.
+
+    ``beta`` is (p, t) with rows named by ``data.x_names`` (intercept = female, plus
+    ``sex[M]``); ``bv`` is (n_animals, t) in pedigree order. Both are put back into original units
+    and laid out as the book's rows: male, female, animals 1..8.
+    """
+    female = data.y_center + data.y_scale * beta[0]
+    male = female + data.y_scale * beta[data.x_names.index("sex[M]")]
+    bv = bv * data.y_scale
+    order = [data.pedigree.index[str(i)] for i in range(1, 9)]
+    for j, trait in enumerate(data.traits):
+        got = np.concatenate([[male[j], female[j]], bv[order, j]])
+        np.testing.assert_allclose(got, SOLUTIONS[example][trait], atol=atol, err_msg=trait)

@@ -20,7 +20,7 @@ from ped2g.fit.prepare import prepare
 from ped2g.pedigree.core import Pedigree
 from ped2g.pedigree.relationships import inbreeding
 
-from mrode import SOLUTIONS, config, pedigree, phenotypes
+from mrode import assert_matches_solutions, config, pedigree, phenotypes
 # T and D of Mrode (2014), p. 25 (METHODS.md section 1.6, P1) [V], from tests/textbook.py.
 from textbook import P1_D as D_MRODE
 from textbook import P1_T as T_MRODE
@@ -155,14 +155,7 @@ def test_mrode_blup_posterior_mode(example):
     data = prepare(cfg, phenotypes(), pedigree(), "demo")
     model = latent.build_model(data, cfg["model"])
     idata, bv = map_breeding_values(data, model)
-    beta = idata.posterior["beta"].values[0, 0]
-    female = data.y_center + data.y_scale * beta[0]
-    male = female + data.y_scale * beta[data.x_names.index("sex[M]")]
-    bv = bv * data.y_scale
-    order = [data.pedigree.index[str(i)] for i in range(1, 9)]
-    for j, trait in enumerate(data.traits):
-        got = np.concatenate([[male[j], female[j]], bv[order, j]])
-        np.testing.assert_allclose(got, SOLUTIONS[example][trait], atol=1e-3, err_msg=trait)
+    assert_matches_solutions(data, idata.posterior["beta"].values[0, 0], bv, example)
 
 
 def test_applicable_everywhere():

@@ -19,7 +19,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 from benchmarks.baselines import gibbs  # noqa: E402
 from ped2g.fit.prepare import prepare  # noqa: E402
 
-from mrode import COVARIANCES, SOLUTIONS, config, pedigree, phenotypes  # noqa: E402
+from mrode import COVARIANCES, assert_matches_solutions, config, pedigree, phenotypes  # noqa: E402
 
 
 def _mrode(example):
@@ -35,13 +35,7 @@ def test_mme_solve_reproduces_mrode(example):
     data, G, R = _mrode(example)
     mme = gibbs.MixedModelEquations(data)
     B, U = mme.solve(data.y, G, R)
-    female = data.y_center + data.y_scale * B[0]
-    male = female + data.y_scale * B[data.x_names.index("sex[M]")]
-    U = U * data.y_scale
-    order = [data.pedigree.index[str(i)] for i in range(1, 9)]
-    for j, trait in enumerate(data.traits):
-        got = np.concatenate([[male[j], female[j]], U[order, j]])
-        np.testing.assert_allclose(got, SOLUTIONS[example][trait], atol=1e-3, err_msg=trait)
+    assert_matches_solutions(data, B, U, example)
 
 
 def test_perturbed_solve_draws_have_mean_and_covariance_of_the_conditional():

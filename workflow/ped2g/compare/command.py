@@ -6,6 +6,8 @@ import argparse
 import time
 from pathlib import Path
 
+from ..cli_options import add_config_and_fits
+
 HELP = "compare the populations' G matrices on every posterior draw (and on the null's draws)"
 
 DESCRIPTION = """\
@@ -51,9 +53,7 @@ DEFAULT_MEMORY_MB = 512.0
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--config", required=True, metavar="CONFIG", help="the study's YAML config")
-    parser.add_argument("--fits", required=True, nargs="+", metavar="DIR",
-                        help="fit folders (posterior.nc and pedigree_used.csv), one per population")
+    add_config_and_fits(parser)
     parser.add_argument("--null", metavar="FILE", default=None,
                         help="null_G.nc written by 'ped2g null' (or its folder); without it the null "
                              "columns stay empty")

@@ -6,6 +6,8 @@ import argparse
 import time
 from pathlib import Path
 
+from ..cli_options import add_config_and_fits
+
 HELP = "build the randomisation null: G of dummy populations made by shuffling simulated animals"
 
 DESCRIPTION = """\
@@ -52,9 +54,7 @@ DEFAULT_CHUNK_MB = 1000
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("--config", required=True, metavar="CONFIG", help="the study's YAML config")
-    parser.add_argument("--fits", required=True, nargs="+", metavar="DIR",
-                        help="fit folders (posterior.nc and pedigree_used.csv), one per population")
+    add_config_and_fits(parser)
     parser.add_argument("--out", required=True, metavar="DIR",
                         help="folder to write null_G.nc and summary.json into")
     parser.add_argument("--memory", type=float, default=DEFAULT_CHUNK_MB, metavar="MB",
