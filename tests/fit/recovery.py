@@ -3,8 +3,11 @@
 Design: one invented study from the simulator (ped2g.simulate.study) fixes the pedigree, the
 phenotyped animals, their sex and the pattern of missing trait values; each replicate draws new
 breeding values down that pedigree (ped2g.simulate.breeding_values) and new residuals, with the
-simulator's true G and R. Because only the records change, the model is compiled once and each
-replicate swaps in its rotated records (nutpie's ``with_data``).
+simulator's true G and R. Because only the records change, the eigendecomposition is computed
+once and shared by the replicates. Both ways of handling the missing cells can be checked
+(``missing_values``): ``gibbs`` (the default; a model per replicate, sampled by PyMC with the
+Gibbs step) and ``nuts`` (compiled once by nutpie, each replicate swaps in its rotated records
+with ``with_data``).
 
 Expected: a well-calibrated 90% HPD interval covers the true value in about 90% of replicates
 (exact when the truth is drawn from the prior; approximately so for a fixed truth and moderate
@@ -51,15 +54,13 @@ def design(seed: int = 11, animals: int = 260, phenotyped: int = 200):
     return data, np.array(truth["G"]), np.array(truth["R"]), cfg
 
 
-def replicate(data, G, R, rng):
-    """A copy of ``data`` with new records (same animals, design and missing pattern)."""
-    U = simulate_breeding_values(data.pedigree, G, rng)[0]
-    n, t = data.n_records, data.n_traits
-    Y = 10.0 + U[data.record_animal] + rng.standard_normal((n, t)) @ np.linalg.cholesky(R).T
-    Y[data.missing] = np.nan
-    c, s = np.nanmean(Y, 0), np.nanstd(Y, 0, ddof=1)
+def with_records(data, y, center=None, scale=None):
+    """A copy of ``data`` with standardised records ``y`` (same missing pattern), sharing the
+    eigendecomposition."""
     new = copy.copy(data)
-    new.y, new.y_center, new.y_scale = (Y - c) / s, c, s
+    new.y = np.where(data.missing, np.nan, y)
+    if center is not None:
+        new.y_center, new.y_scale = center, scale
     rot = marginal.rotation(data)
     new_rot = copy.copy(rot)
     new_rot.rot_y = rot.U.T @ np.where(new.missing, 0.0, new.y)
@@ -67,26 +68,55 @@ def replicate(data, G, R, rng):
     return new
 
 
+def replicate(data, G, R, rng):
+    """A copy of ``data`` with new records (same animals, design and missing pattern)."""
+    U = simulate_breeding_values(data.pedigree, G, rng)[0]
+    n, t = data.n_records, data.n_traits
+    Y = 10.0 + U[data.record_animal] + rng.standard_normal((n, t)) @ np.linalg.cholesky(R).T
+    Y[data.missing] = np.nan
+    c, s = np.nanmean(Y, 0), np.nanstd(Y, 0, ddof=1)
+    return with_records(data, (Y - c) / s, c, s)
+
+
+class Fitter:
+    """Fits replicate data sets of one design by either route for the missing cells."""
+
+    def __init__(self, data, cfg, missing_values: str):
+        self.model_config = {**cfg["model"], "missing_values": missing_values}
+        self.missing_values = missing_values
+        if missing_values == "nuts":
+            import nutpie
+
+            self.model = marginal.build_model(data, self.model_config)
+            self.compiled = nutpie.compile_pymc_model(self.model, backend="numba")
+
+    def posterior(self, rep, settings: dict, name: str):
+        if self.missing_values == "nuts":
+            compiled = self.compiled.with_data(rot_y=marginal.rotation(rep).rot_y)
+            run = sample.run(self.model, settings, name, progress=False, compiled=compiled)
+        else:
+            model = marginal.build_model(rep, self.model_config)
+            run = sample.run(model, settings, name, progress=False,
+                             extra_steps=marginal.extra_steps(model, rep))
+        return run.idata.posterior
+
+
 def coverage(replicates: int, seed: int = 1, mass: float = 0.9, chains: int = 4, warmup: int = 300,
-             draws: int = 300, animals: int = 260, phenotyped: int = 200):
+             draws: int = 300, animals: int = 260, phenotyped: int = 200, missing_values: str = "gibbs"):
     """Whether each replicate's HPD interval of each lower-triangle G element covers the truth.
 
     Returns a boolean array (replicates, t(t+1)/2).
     """
     data, G, R, cfg = design(animals=animals, phenotyped=phenotyped)
     rng = np.random.default_rng(seed)
-    import nutpie
-
-    model = marginal.build_model(data, cfg["model"])
-    base = nutpie.compile_pymc_model(model, backend="numba")
+    fitter = Fitter(data, cfg, missing_values)
     hits, errors = [], []
     iu = np.tril_indices(data.n_traits)
     for r in range(replicates):
         rep = replicate(data, G, R, rng)
-        compiled = base.with_data(rot_y=marginal.rotation(rep).rot_y)
-        run = sample.run(model, {"chains": chains, "warmup": warmup, "draws": draws, "seed": seed + r},
-                         f"rep{r}", progress=False, compiled=compiled)
-        Gd = run.idata.posterior["G"].values.reshape(-1, *G.shape) * np.outer(rep.y_scale, rep.y_scale)
+        post = fitter.posterior(rep, {"chains": chains, "warmup": warmup, "draws": draws, "seed": seed + r},
+                                f"rep{r}")
+        Gd = post["G"].values.reshape(-1, *G.shape) * np.outer(rep.y_scale, rep.y_scale)
         lo, hi = hpd(Gd[:, iu[0], iu[1]], mass, axis=0)
         hits.append((lo <= G[iu]) & (G[iu] <= hi))
         errors.append((Gd.mean(0)[iu] - G[iu]) / Gd.std(0)[iu])
@@ -95,7 +125,8 @@ def coverage(replicates: int, seed: int = 1, mass: float = 0.9, chains: int = 4,
 
 
 def prior_calibration(replicates: int, seed: int = 5, mass: float = 0.9, chains: int = 4, warmup: int = 300,
-                      draws: int = 300, animals: int = 600, phenotyped: int = 500):
+                      draws: int = 300, animals: int = 600, phenotyped: int = 500,
+                      missing_values: str = "gibbs"):
     """Simulation-based calibration: truths drawn from the model's own prior.
 
     Each replicate draws (G, R, beta) from the prior (standardised scale), simulates records on
@@ -109,27 +140,25 @@ def prior_calibration(replicates: int, seed: int = 5, mass: float = 0.9, chains:
     -------
     hits, ranks : numpy.ndarray, shape (replicates, t(t+1)/2)
     """
-    import nutpie
     import pymc as pm
 
     data, _, _, cfg = design(animals=animals, phenotyped=phenotyped)
     model = marginal.build_model(data, cfg["model"])
-    base = nutpie.compile_pymc_model(model, backend="numba")
+    fitter = Fitter(data, cfg, missing_values)
     rng = np.random.default_rng(seed)
     truth = pm.draw([model["G"], model["R"], model["beta"]], draws=replicates, random_seed=seed)
     t = data.n_traits
     iu = np.tril_indices(t)
-    rot = marginal.rotation(data)
     hits, ranks = [], []
     for r in range(replicates):
         G, R, beta = truth[0][r], truth[1][r], truth[2][r]
         U = simulate_breeding_values(data.pedigree, G, rng)[0]
         Y = (data.X @ beta + U[data.record_animal]
              + rng.standard_normal((data.n_records, t)) @ np.linalg.cholesky(R).T)
-        rot_y = rot.U.T @ np.where(data.missing, 0.0, Y)
-        run = sample.run(model, {"chains": chains, "warmup": warmup, "draws": draws, "seed": seed + r},
-                         f"prior{r}", progress=False, compiled=base.with_data(rot_y=rot_y))
-        Gd = run.idata.posterior["G"].values.reshape(-1, t, t)[:, iu[0], iu[1]]
+        post = fitter.posterior(with_records(data, Y),
+                                {"chains": chains, "warmup": warmup, "draws": draws, "seed": seed + r},
+                                f"prior{r}")
+        Gd = post["G"].values.reshape(-1, t, t)[:, iu[0], iu[1]]
         lo, hi = hpd(Gd, mass, axis=0)
         hits.append((lo <= G[iu]) & (G[iu] <= hi))
         ranks.append((Gd < G[iu]).mean(axis=0))
@@ -142,13 +171,17 @@ if __name__ == "__main__":
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--animals", type=int, default=600)
     parser.add_argument("--phenotyped", type=int, default=500)
+    parser.add_argument("--missing-values", choices=("gibbs", "nuts"), default="gibbs",
+                        help="how the marginal engine handles missing cells (default: gibbs)")
     args = parser.parse_args()
-    hits = coverage(args.replicates, args.seed, animals=args.animals, phenotyped=args.phenotyped)
+    hits = coverage(args.replicates, args.seed, animals=args.animals, phenotyped=args.phenotyped,
+                    missing_values=args.missing_values)
     z = coverage.last_errors
     print(f"replicates {len(hits)}, G elements {hits.shape[1]}, 90% HPD coverage "
           f"{hits.mean():.3f} (per element: {np.round(hits.mean(0), 3).tolist()}); "
           f"mean of (posterior mean - truth) / posterior SD per element: {np.round(z.mean(0), 2).tolist()}")
-    hits, ranks = prior_calibration(args.replicates, args.seed, animals=args.animals, phenotyped=args.phenotyped)
+    hits, ranks = prior_calibration(args.replicates, args.seed, animals=args.animals, phenotyped=args.phenotyped,
+                                    missing_values=args.missing_values)
     print(f"truths drawn from the prior: replicates {len(hits)}, 90% HPD coverage {hits.mean():.3f} "
           f"(per element: {np.round(hits.mean(0), 3).tolist()}); mean posterior rank of the truth "
           f"{np.round(ranks.mean(0), 2).tolist()} (0.5 expected)")

@@ -23,9 +23,16 @@ def data_with(n, missing_fraction, seed=0):
 def test_auto_takes_marginal_for_small_data_and_latent_beyond_its_limits():
     name, _, reason = engine.choose(data_with(300, 0.1), "auto")
     assert name == "marginal" and "applies" in reason
-    # 6000 records x ~2400 missing cells = 1.4e7 cells > AUTO_PROJECTION_CELLS
-    name, _, reason = engine.choose(data_with(6000, 0.1), "auto")
+    # Missing cells drawn by the Gibbs step (the default) cost no projections per gradient...
+    many = data_with(6000, 0.1)
+    name, _, reason = engine.choose(many, "auto", {"missing_values": "auto"})
+    assert name == "marginal" and marginal.missing_mode(many, {}) == "gibbs"
+    # ...but as NUTS parameters 6000 records x ~2400 missing cells = 1.4e7 cells > AUTO_PROJECTION_CELLS
+    name, _, reason = engine.choose(many, "auto", {"missing_values": "nuts"})
     assert name == "latent" and "memory-bound" in reason
+    assert marginal.missing_mode(data_with(50, 0.0), {"missing_values": "nuts"}) == "none"
+    with pytest.raises(UserError, match="model.missing_values' is 'maybe'"):
+        marginal.missing_mode(many, {"missing_values": "maybe"})
     big = data_with(marginal.MAX_RECORDS + 1, 0.0)
     name, _, reason = engine.choose(big, "auto")
     assert name == "latent" and "exceed" in reason

@@ -4,7 +4,8 @@ Both engines encode the same model and priors; only the treatment of the breedin
 (sampled through the pedigree recursion versus integrated out exactly). On one small simulated
 data set with missing trait values, the posterior means of every element of G and R and of the
 fixed effects must agree within Monte Carlo error: |difference| <= 4 x the combined Monte Carlo
-standard error (ArviZ ``mcse``, Vehtari et al. 2021), with the SDs agreeing within 25%.
+standard error (ArviZ ``mcse``, Vehtari et al. 2021), with the SDs agreeing within 25%. The
+marginal engine runs both ways of handling the missing cells (Gibbs step; NUTS parameters).
 """
 
 import numpy as np
@@ -55,14 +56,31 @@ def _sample(model, chains, tune, draws, seed, **kw):
                          progress_bar=False, **kw)
 
 
+@pytest.fixture(scope="module")
+def latent_posterior():
+    cfg = {"priors": {"sd_scale": 1.0, "lkj_eta": 2.0, "fixed_sd": 10.0}, "fixed_covariances": None}
+    return _sample(latent.build_model(small_study(), cfg), 4, 500, 500, 12, low_rank_modified_mass_matrix=True)
+
+
 @pytest.mark.slow
-def test_engines_agree_within_monte_carlo_error():
+@pytest.mark.parametrize("missing_values", ["gibbs", "nuts"])
+def test_engines_agree_within_monte_carlo_error(missing_values, latent_posterior):
     import arviz as az
 
+    from ped2g.fit import sample
+
     data = small_study()
-    cfg = {"priors": {"sd_scale": 1.0, "lkj_eta": 2.0, "fixed_sd": 10.0}, "fixed_covariances": None}
-    post_m = _sample(marginal.build_model(data, cfg), 2, 300, 500, 11)
-    post_l = _sample(latent.build_model(data, cfg), 4, 500, 500, 12, low_rank_modified_mass_matrix=True)
+    cfg = {"priors": {"sd_scale": 1.0, "lkj_eta": 2.0, "fixed_sd": 10.0}, "fixed_covariances": None,
+           "missing_values": missing_values}
+    model = marginal.build_model(data, cfg)
+    if missing_values == "nuts":
+        post_m = _sample(model, 2, 300, 500, 11)
+    else:
+        run = sample.run(model, {"chains": 2, "warmup": 300, "draws": 500, "seed": 11}, "p", progress=False,
+                         extra_steps=marginal.extra_steps(model, data))
+        assert run.info["sampler"] == "pymc" and run.info["compound_steps"][0] == "MissingValueStep"
+        post_m = run.idata
+    post_l = latent_posterior
     for name in ("G", "R", "beta"):
         m = post_m.posterior[name]
         lat = post_l.posterior[name]

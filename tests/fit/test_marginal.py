@@ -1,7 +1,10 @@
 """Checks of the marginal engine against dense linear algebra (exact identities).
 
 * The rotated log-likelihood equals scipy's multivariate normal log-density of all records with
-  covariance K (x) G + I (x) R (record-major), K = Z A_pp Z' (general-purpose reference library).
+  covariance K (x) G + I (x) R (record-major), K = Z A_pp Z' (general-purpose reference library),
+  with the missing cells as NUTS parameters and with the completed records of the Gibbs route.
+* The Gibbs step for missing values leaves the exact conditional distribution of the missing
+  cells given the observed ones invariant (dense Gaussian conditioning formula).
 * The breeding values drawn by pathwise conditioning have the mean and covariance of the exact
   Gaussian conditional, Cov(a | y) = S_aa - S_ay V^-1 S_ya (dense formula).
 """
@@ -53,7 +56,7 @@ def test_loglik_equals_dense_normal(repeated, with_random):
     rng = np.random.default_rng(7)
     data = small_data(rng, repeated, with_random)
     t = data.n_traits
-    model = marginal.build_model(data, {"priors": {}})
+    model = marginal.build_model(data, {"priors": {}, "missing_values": "nuts"})
     G, R, C = random_cov(rng, t), random_cov(rng, t), random_cov(rng, t)
     beta = rng.normal(size=(2, t))
     miss = data.missing
@@ -87,6 +90,76 @@ def test_loglik_equals_dense_normal(repeated, with_random):
     V = np.kron(K, G) + np.kron(np.eye(data.n_records), R)
     want = stats.multivariate_normal(mean.ravel(), V).logpdf(Y.ravel())
     assert got == pytest.approx(want, rel=1e-10)
+
+
+def test_gibbs_route_loglik_equals_dense_normal():
+    # With model.missing_values: gibbs the likelihood is that of the completed records, entered
+    # as U'Y_c; the same dense reference with the cells filled in.
+    import pytensor
+
+    from ped2g.fit import augment
+
+    rng = np.random.default_rng(8)
+    data = small_data(rng, repeated=True, with_random=False)
+    t = data.n_traits
+    model = marginal.build_model(data, {"priors": {}})
+    assert augment.ROTATED_NAME in model.named_vars and len(marginal.extra_steps(model, data)) == 1
+    G, R = random_cov(rng, t), random_cov(rng, t)
+    beta = rng.normal(size=(2, t))
+    Y = np.where(data.missing, rng.normal(size=data.y.shape), data.y)
+    rot = marginal.rotation(data)
+    loglik = [p for p in model.potentials if p.name == "loglik"][0]
+    inputs = {model["G"]: G, model["R"]: R, model["beta"]: beta, model[augment.ROTATED_NAME]: rot.U.T @ Y}
+    got = pytensor.function(list(inputs), loglik, on_unused_input="ignore")(*inputs.values())
+    K = relationship_matrix(data.pedigree, subset=data.record_animal)
+    V = np.kron(K, G) + np.kron(np.eye(data.n_records), R)
+    want = stats.multivariate_normal((data.X @ beta).ravel(), V).logpdf(Y.ravel())
+    assert got == pytest.approx(want, rel=1e-10)
+
+
+@pytest.mark.parametrize("with_random", [False, True])
+def test_gibbs_step_keeps_the_exact_conditional_of_missing_cells(with_random):
+    # Run the Gibbs draw (genetic effects, then missing cells) many times with theta fixed: its
+    # stationary distribution must be p(Y_M | Y_O, theta), here computed densely as the Gaussian
+    # conditional mu_M + V_MO V_OO^-1 (y_O - mu_O), V_MM - V_MO V_OO^-1 V_OM.
+    from ped2g.fit import augment
+
+    rng = np.random.default_rng(4)
+    data = small_data(rng, repeated=True, with_random=with_random, missing=0.3, t=3)
+    t, n = data.n_traits, data.n_records
+    G, R, C = random_cov(rng, t), random_cov(rng, t), random_cov(rng, t)
+    beta = rng.normal(size=(2, t))
+    extras = [rng.normal(size=(3, t)) @ np.linalg.cholesky(C).T] if with_random else []
+    rot = marginal.rotation(data)
+    core = augment.MissingValueDraw(data, rot.U, rot.lam, rot.rot_X, rot.rot_Z)
+    mean = data.X @ beta
+    if with_random:
+        mean = mean + extras[0][data.random[0].level]
+    K = relationship_matrix(data.pedigree, subset=data.record_animal)
+    V = np.kron(K, G) + np.kron(np.eye(n), R)          # record-major, like Y.ravel()
+    m = data.missing.ravel()
+    y = np.where(data.missing, 0.0, data.y).ravel()
+    cmean = mean.ravel()[m] + V[np.ix_(m, ~m)] @ np.linalg.solve(V[np.ix_(~m, ~m)], y[~m] - mean.ravel()[~m])
+    ccov = V[np.ix_(m, m)] - V[np.ix_(m, ~m)] @ np.linalg.solve(V[np.ix_(~m, ~m)], V[np.ix_(~m, m)])
+    # flat order of the draw: trait by trait, record order within a trait -> record-major order
+    flat_rows = np.concatenate([np.flatnonzero(data.missing[:, j]) * t + j for j in range(t)])
+    order = np.argsort(flat_rows)
+    _, z = core.initial()
+    S, thin, burn = 8000, 4, 50
+    draw_rng = np.random.default_rng(9)
+    out = np.empty((S, int(m.sum())))
+    for s in range(S * thin + burn):
+        missing, z = core.draw(z, G, R, beta, extras, draw_rng)
+        if s >= burn and (s - burn) % thin == 0:
+            out[(s - burn) // thin] = missing[order]
+    # Thinned by 4 the draws are close to independent (lag-1 autocorrelation of the unthinned
+    # chain is at most about 0.5 here). Tolerances: 5 standard errors of a mean, sd / sqrt(S),
+    # and of a covariance, sqrt((V_ii V_jj + V_ij^2) / S) (normal theory).
+    sd = np.sqrt(np.diag(ccov))
+    assert np.all(np.abs(out.mean(0) - cmean) < 5 * sd / np.sqrt(S)), np.abs(out.mean(0) - cmean) / sd
+    se_cov = np.sqrt((np.outer(sd ** 2, sd ** 2) + ccov ** 2) / S)
+    z_cov = np.abs(np.cov(out.T) - ccov) / se_cov
+    assert z_cov.max() < 5, z_cov.max()
 
 
 def test_breeding_value_draws_match_exact_conditional():

@@ -16,6 +16,7 @@ prepare         config + tables -> FitData (select, link, prune, design matrices
 priors          the one covariance prior used for every covariance matrix, and the fixed-effect prior.
 batched_normal  log-density of n independent k-variate normals with per-record covariances.
 marginal        engine with the breeding values integrated out exactly.
+augment         the marginal engine's Gibbs step for missing trait values (data augmentation).
 latent          engine with the breeding values as (non-centred) parameters.
 engine          the choice between the engines (``model.engine: auto | marginal | latent``).
 sample          running NUTS (nutpie or PyMC) with seeds from :mod:`ped2g.rng`.
@@ -39,6 +40,11 @@ Engine interface
         Covariances come from ped2g.fit.priors.covariance_prior and fixed effects from
         ped2g.fit.priors.fixed_effects_prior, so both engines have the same prior. Large arrays
         (records, index arrays, rotations) enter as pm.Data, not as constants in the graph.
+
+    extra_steps(model, data: FitData) -> list        (optional)
+        PyMC step methods for variables NUTS must not move (the marginal engine's Gibbs step for
+        missing trait values); ped2g.fit.sample then runs PyMC's sampler with these steps
+        before NUTS in every iteration.
 
     breeding_values(data: FitData, idata, rng, max_draws=None, conditional_mean=False) -> np.ndarray
         Breeding values of every animal of data.pedigree, shape (S, n_animals, t), standardised

@@ -82,14 +82,18 @@ def run(args: argparse.Namespace) -> int:
     data = prepare(config, phenotypes, pedigree, population, source=str(phen_path), logger=log)
     log.info("population %s: %d records of %d animals, pedigree of %d animals after pruning, %d missing trait values",
              population, data.n_records, int(data.phenotyped.sum()), data.pedigree.n, int(data.missing.sum()))
-    engine_name, engine, reason = choose(data, config["model"]["engine"])
+    engine_name, engine, reason = choose(data, config["model"]["engine"], config["model"])
     log.info("engine: %s (%s)", engine_name, reason)
     model = engine.build_model(data, config["model"])
+    extra = engine.extra_steps(model, data) if hasattr(engine, "extra_steps") else []
     sampled = sample.run(model, config["sampling"], population, progress=not args.no_progress,
-                         nutpie_options=getattr(engine, "NUTPIE_OPTIONS", None))
+                         nutpie_options=getattr(engine, "NUTPIE_OPTIONS", None), extra_steps=extra)
     info = {k: v for k, v in sampled.info.items() if k != "compiled"}
     if engine_name == "marginal":
         info["eigendecomposition_seconds"] = engine.rotation(data).seconds
+    if extra:
+        log.info("missing trait values drawn by a Gibbs step between NUTS transitions; sampler: PyMC "
+                 "(nutpie has no Gibbs steps; sampling.sampler asked for %s)", info["requested_sampler"])
     log.info("compiled the model in %.1f s", info["compile_seconds"] or 0.0)
     log.info("sampled %d chains x %d draws in %.1f s (%d gradient evaluations, %d divergences)",
              info["chains"], info["draws"], info["sampling_seconds"], info["gradient_evaluations"],

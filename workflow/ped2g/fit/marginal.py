@@ -14,10 +14,17 @@ products by the pre-rotated designs ``U'X`` and ``U'Z_c``. This is the classic r
 make animal-model likelihoods cheap (e.g. Thompson & Shaw 1990 [M]; the same as the "spectral
 decomposition" trick of linear mixed model software, common practice).
 
-What NUTS samples: the covariance parameters, the fixed effects, the missing trait values (as
-parameters; the rotation mixes records so the missing cells cannot simply be dropped; this is
-exact, each enters through a pre-rotated column of ``U'``) and, for extra random effects, their
-levels in non-centred form ``u_c = W_c L_c'`` with ``W_c`` standard normal.
+What NUTS samples: the covariance parameters, the fixed effects and, for extra random effects,
+their levels in non-centred form ``u_c = W_c L_c'`` with ``W_c`` standard normal. Missing trait
+values (the rotation mixes records, so missing cells cannot simply be dropped) are handled
+exactly in one of two ways (``model.missing_values``):
+
+* ``gibbs`` (what ``auto`` picks whenever a cell is missing): a data-augmentation Gibbs step draws
+  the missing cells from their exact conditional distribution between NUTS transitions
+  (:mod:`ped2g.fit.augment`); the dense work is paid once per iteration, not per gradient. This
+  needs PyMC's own NUTS (nutpie has no Gibbs steps), compiled with PyTensor's numba backend.
+* ``nuts``: each missing cell is a NUTS parameter entering through a pre-rotated column of
+  ``U'``; every gradient then streams ``n x n_missing`` numbers from memory.
 
 Breeding values are drawn afterwards from their exact conditional distribution given each draw by
 pathwise conditioning (Matheron's rule; e.g. Wilson et al. 2020, ICML [M])::
@@ -53,6 +60,8 @@ MAX_PROJECTION_CELLS = 2.5e8
 #: memory twice and the engine slows sharply (measured: 0.96 ms per gradient with 0.95e6 cells,
 #: 96 ms with 16.3e6 cells), so ``model.engine: auto`` prefers the latent engine there.
 AUTO_PROJECTION_CELLS = 1.0e7
+#: Ways to handle missing trait values (``model.missing_values``); see the module docstring.
+MISSING_MODES = ("auto", "gibbs", "nuts")
 
 
 @dataclass
@@ -63,29 +72,44 @@ class Rotation:
     lam: np.ndarray          # (n,)
     rot_y: np.ndarray        # (n, t): U' y with missing cells set to 0
     rot_X: np.ndarray        # (n, p)
-    rot_missing: list[np.ndarray]   # per trait j: (n, n_missing_j), columns of U' at the missing rows
     missing_rows: list[np.ndarray]  # per trait j: record positions of the missing cells
     rot_Z: list[np.ndarray]  # per extra random effect: (n, n_levels)
     seconds: float           # time taken by the eigendecomposition
 
 
-def _projection_cells(data: FitData) -> float:
+def missing_mode(data: FitData, model_config: dict | None) -> str:
+    """How missing trait values are handled: ``"none"`` (no missing cell), ``"gibbs"`` or ``"nuts"``."""
+    from ..errors import UserError
+
+    requested = (model_config or {}).get("missing_values", "auto")
+    if requested not in MISSING_MODES:
+        raise UserError(f"config key 'model.missing_values' is {requested!r}; allowed: {', '.join(MISSING_MODES)}")
+    if not data.missing.any():
+        return "none"
+    return "nuts" if requested == "nuts" else "gibbs"
+
+
+def _projection_cells(data: FitData, model_config: dict | None = None) -> float:
     n = data.n_records
-    return float(n) * (int(data.missing.sum()) + sum(r.n_levels for r in data.random))
+    cells = sum(r.n_levels for r in data.random)
+    if missing_mode(data, model_config) == "nuts":
+        cells += int(data.missing.sum())
+    return float(n) * cells
 
 
-def applicable(data: FitData) -> tuple[bool, str]:
+def applicable(data: FitData, model_config: dict | None = None) -> tuple[bool, str]:
     """Whether the marginal engine can fit these data; if not, why.
 
     It needs a dense eigendecomposition of the n x n record relationship matrix, so it is limited
     to :data:`MAX_RECORDS` records, and to pre-rotated projections of at most
-    :data:`MAX_PROJECTION_CELLS` cells (missing trait values and extra random-effect levels).
+    :data:`MAX_PROJECTION_CELLS` cells (extra random-effect levels, and missing trait values
+    when they are NUTS parameters, ``model.missing_values: nuts``).
     """
     n = data.n_records
     if n > MAX_RECORDS:
         return False, (f"{n} records exceed the marginal engine's limit of {MAX_RECORDS} "
                        f"(dense {n}x{n} eigendecomposition, {8 * n * n / 1e9:.1f} GB)")
-    cells = _projection_cells(data)
+    cells = _projection_cells(data, model_config)
     if cells > MAX_PROJECTION_CELLS:
         return False, (f"missing trait values and extra random-effect levels need "
                        f"{8 * cells / 1e9:.1f} GB of pre-rotated projections (limit "
@@ -94,9 +118,9 @@ def applicable(data: FitData) -> tuple[bool, str]:
                   f"({8 * n * n / 1e6:.0f} MB)")
 
 
-def projection_cells(data: FitData) -> float:
-    """Size of the pre-rotated projections (missing cells and extra random-effect levels) in cells."""
-    return _projection_cells(data)
+def projection_cells(data: FitData, model_config: dict | None = None) -> float:
+    """Size of the pre-rotated projections NUTS touches per gradient, in float64 cells."""
+    return _projection_cells(data, model_config)
 
 
 def record_relationships(data: FitData) -> np.ndarray:
@@ -123,20 +147,15 @@ def rotation(data: FitData) -> Rotation:
     Ut = np.ascontiguousarray(U.T)
     miss = data.missing
     y0 = np.where(miss, 0.0, data.y)
-    rot_missing = []
-    missing_rows = []
-    for j in range(data.n_traits):
-        rows = np.flatnonzero(miss[:, j])
-        missing_rows.append(rows)
-        rot_missing.append(np.ascontiguousarray(Ut[:, rows]))
+    missing_rows = [np.flatnonzero(miss[:, j]) for j in range(data.n_traits)]
     rot_Z = []
     for eff in data.random:
         # U' Z_c: sum the columns of U' over the records of each level.
         Zc = np.zeros((data.n_records, eff.n_levels))
         Zc[np.arange(data.n_records), eff.level] = 1.0
         rot_Z.append(Ut @ Zc)
-    rot = Rotation(U=U, lam=lam, rot_y=Ut @ y0, rot_X=Ut @ data.X, rot_missing=rot_missing,
-                   missing_rows=missing_rows, rot_Z=rot_Z, seconds=seconds)
+    rot = Rotation(U=U, lam=lam, rot_y=Ut @ y0, rot_X=Ut @ data.X, missing_rows=missing_rows,
+                   rot_Z=rot_Z, seconds=seconds)
     object.__setattr__(data, "_marginal_rotation", rot)
     return rot
 
@@ -145,15 +164,20 @@ def build_model(data: FitData, model_config: dict):
     """The PyMC model with the breeding values integrated out (see the module docstring).
 
     Free variables: the covariance priors of G, R and each extra effect, ``beta`` (p, t),
-    ``missing`` (one value per missing cell, trait by trait, record order within a trait) and
-    ``<name>_z`` (levels x t) per extra random effect.
+    ``<name>_z`` (levels x t) per extra random effect and, with missing cells, ``missing`` (one
+    value per missing cell, trait by trait, record order within a trait). With
+    ``model.missing_values`` resolving to ``gibbs`` the model also holds ``rot_y_completed``, the
+    rotated completed records; both are then updated by the Gibbs step of :func:`extra_steps`,
+    not by NUTS.
     """
     import pymc as pm
     import pytensor.tensor as pt
 
+    from . import augment
     from .batched_normal import scaled_pair_logp
 
     rot = rotation(data)
+    mode = missing_mode(data, model_config)
     t = data.n_traits
     priors = model_config.get("priors", {}) or {}
     fixed = fixed_covariances(model_config, data.y_scale, data.traits)
@@ -163,29 +187,42 @@ def build_model(data: FitData, model_config: dict):
         R, _ = covariance_prior("R", t, priors, None if fixed is None else fixed["R"])
         beta = fixed_effects_prior(len(data.x_names), t, priors)
         lam = pm.Data("rot_lambda", rot.lam)
-        rot_y = pm.Data("rot_y", rot.rot_y)
         rot_X = pm.Data("rot_X", rot.rot_X)
+        total_missing = int(data.missing.sum())
+        if mode == "gibbs":
+            rot_y = pm.Flat(augment.ROTATED_NAME, shape=rot.rot_y.shape, initval=rot.rot_y)
+            pm.Flat(augment.MISSING_NAME, shape=total_missing, initval=np.zeros(total_missing))
+        else:
+            rot_y = pm.Data("rot_y", rot.rot_y)
         resid = rot_y - rot_X @ beta
         for c, eff in enumerate(data.random):
             cov_c, chol_c = covariance_prior(f"cov_{eff.name}", t, priors)
             z = pm.Normal(f"{eff.name}_z", 0.0, 1.0, shape=(eff.n_levels, t))
             rot_Z = pm.Data(f"rot_Z_{eff.name}", rot.rot_Z[c])
             resid = resid - rot_Z @ (z @ chol_c.T)
-        n_missing = [len(r) for r in rot.missing_rows]
-        total_missing = sum(n_missing)
-        if total_missing:
-            missing = pm.Flat("missing", shape=total_missing)
-        cols = []
-        start = 0
-        for j in range(t):
-            col = resid[:, j]
-            if n_missing[j]:
-                proj = pm.Data(f"rot_missing_{j}", rot.rot_missing[j])
-                col = col + pt.dot(proj, missing[start:start + n_missing[j]])
-                start += n_missing[j]
-            cols.append(col)
+        cols = [resid[:, j] for j in range(t)]
+        if mode == "nuts":
+            missing = pm.Flat(augment.MISSING_NAME, shape=total_missing)
+            Ut = rot.U.T
+            start = 0
+            for j, rows in enumerate(rot.missing_rows):
+                if len(rows):
+                    proj = pm.Data(f"rot_missing_{j}", np.ascontiguousarray(Ut[:, rows]))
+                    cols[j] = cols[j] + pt.dot(proj, missing[start:start + len(rows)])
+                    start += len(rows)
         pm.Potential("loglik", scaled_pair_logp(cols, lam, G, R).sum())
     return model
+
+
+def extra_steps(model, data: FitData) -> list:
+    """Step methods that run beside NUTS: the missing-value Gibbs step when the model has one."""
+    from . import augment
+
+    if augment.ROTATED_NAME not in model.named_vars:
+        return []
+    rot = rotation(data)
+    core = augment.MissingValueDraw(data, rot.U, rot.lam, rot.rot_X, rot.rot_Z, rot_y0=rot.rot_y)
+    return [augment.make_step(model, core, data)]
 
 
 def _posterior_draws(idata, name: str, index: np.ndarray) -> np.ndarray:

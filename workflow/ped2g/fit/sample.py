@@ -1,5 +1,10 @@
 """Running NUTS on an engine's model: nutpie (numba backend, the default) or PyMC's own sampler.
 
+When an engine adds step methods of its own (the marginal engine's Gibbs step for missing trait
+values), the run uses PyMC's sampler -- nutpie has no compound steps -- with NUTS compiled by
+PyTensor's numba backend, and each chain starts from its own point, jittered by U(-1, 1) on the
+unconstrained scale as PyMC's default initialisation does.
+
 The sampler seed comes from the run seed through :func:`ped2g.rng.seed_sequence` with the names
 ``("fit", population, "sampler")``, so each population's chains are reproducible and independent
 of the order in which populations are fitted. Progress is shown by the sampler's own progress bar.
@@ -58,8 +63,50 @@ def available_cpus() -> int:
         return os.cpu_count() or 1
 
 
+def _jittered_starts(model, free, chains: int, seed: int) -> list[dict]:
+    """One start per chain: the model's initial point with U(-1, 1) jitter on the NUTS variables
+    (unconstrained scale), returned as initial values of the random variables."""
+    from pymc.initial_point import make_initial_point_fns_per_chain
+
+    fns = make_initial_point_fns_per_chain(model=model, overrides=None, jitter_rvs=set(free), chains=chains)
+    to_rv = model.compile_fn(model.replace_rvs_by_values(list(free)), inputs=model.value_vars,
+                             on_unused_input="ignore", point_fn=True)
+    seeds = np.random.SeedSequence(seed).generate_state(chains)
+    starts = []
+    for fn, s in zip(fns, seeds):
+        point = fn(int(s))
+        values = to_rv(point)
+        starts.append({rv.name: v for rv, v in zip(free, values)})
+    return starts
+
+
+def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int, cores: int, seed: int,
+                  target_accept: float, progress: bool):
+    """PyMC's sampler with the engine's steps first, then NUTS on every other free variable."""
+    import pymc as pm
+
+    taken = {v.name for step in extra_steps for v in step.vars}
+    nuts_rvs = [rv for rv in model.free_RVs if model.rvs_to_values[rv].name not in taken]
+    step_rvs = [rv for rv in model.free_RVs if model.rvs_to_values[rv].name in taken]
+    keep = [v.name for v in model.free_RVs + model.deterministics
+            if v not in step_rvs or v.name == "missing"]
+    start = time.perf_counter()
+    with model:
+        nuts = pm.NUTS(vars=[model.rvs_to_values[rv] for rv in nuts_rvs], target_accept=target_accept,
+                       compile_kwargs={"mode": "NUMBA"})
+        starts = _jittered_starts(model, nuts_rvs, chains, seed)
+        compile_seconds = time.perf_counter() - start
+        start = time.perf_counter()
+        idata = pm.sample(draws=draws, tune=warmup, chains=chains, cores=cores, random_seed=seed,
+                          step=[*extra_steps, nuts], initvals=starts, var_names=keep,
+                          progressbar=progress, discard_tuned_samples=False,
+                          compute_convergence_checks=False)
+    return idata, compile_seconds, time.perf_counter() - start
+
+
 def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
-        compiled=None, nutpie_options: dict[str, Any] | None = None) -> SamplingRun:
+        compiled=None, nutpie_options: dict[str, Any] | None = None,
+        extra_steps: list | None = None) -> SamplingRun:
     """Sample ``model`` with the settings of ``config["sampling"]``.
 
     Parameters
@@ -76,6 +123,9 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
     nutpie_options
         Extra keyword arguments for ``nutpie.sample`` that an engine asks for (its
         ``NUTPIE_OPTIONS``, e.g. the latent engine's low-rank mass-matrix adaptation).
+    extra_steps
+        Step methods from the engine (``engine.extra_steps``) for variables NUTS must not touch;
+        when given, PyMC's sampler runs them before NUTS in every iteration.
     """
     sampler = sampling.get("sampler", "nutpie")
     if sampler not in SAMPLERS:
@@ -88,7 +138,13 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
     cores = max(1, min(chains, available_cpus()))
     info: dict[str, Any] = dict(sampler=sampler, seed=seed, run_seed=int(sampling.get("seed", 1)),
                                 chains=chains, warmup=warmup, draws=draws, target_accept=target_accept)
-    if sampler == "nutpie":
+    if extra_steps:
+        info["sampler"] = "pymc"
+        info["requested_sampler"] = sampler
+        info["compound_steps"] = [type(step).__name__ for step in extra_steps] + ["NUTS"]
+        idata, info["compile_seconds"], info["sampling_seconds"] = _run_compound(
+            model, extra_steps, chains, warmup, draws, cores, seed, target_accept, progress)
+    elif sampler == "nutpie":
         import nutpie
 
         start = time.perf_counter()
