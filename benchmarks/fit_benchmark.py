@@ -270,6 +270,7 @@ def run_gibbs(data, args) -> dict:
     ms = 1000 * sum(c["seconds"] for c in chains) / max(iterations, 1)
     if kept < 4:
         return {"sample_s": wall, "gradients": iterations, "ms_per_gradient": ms,
+                "ess_per_s_bound": iterations / wall,
                 "note": f"gradients = iterations, ms per iteration; only {kept} kept iterations "
                         f"within --gibbs-budget (still in warmup)"}
     G = np.stack([c["G"][:kept] for c in chains])

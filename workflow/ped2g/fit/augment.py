@@ -33,6 +33,8 @@ slower the chain mixes than with complete records; with 10% of cells missing the
 from __future__ import annotations
 
 import numpy as np
+from pymc.step_methods.compound import BlockedStep, Competence, StepMethodState
+from pymc.util import get_random_generator
 
 from .data import FitData
 
@@ -152,43 +154,51 @@ class MissingValueDraw:
         return self.flatten(filled), new_rot
 
 
-def make_step(model, core: MissingValueDraw, data: FitData):
-    """The PyMC step method that updates ``missing`` and ``rot_y_completed`` by :meth:`MissingValueDraw.draw`."""
+class MissingValueStep(BlockedStep):
+    """PyMC step method: missing trait values (and the rotated completed records) from their
+    exact conditional distribution, by :meth:`MissingValueDraw.draw`.
+
+    Parameters
+    ----------
+    vars : the value variables of ``missing`` and ``rot_y_completed``.
+    core : MissingValueDraw
+    theta_fn : compiled function from a point to (G, R, beta, levels of each extra effect).
+    """
+
+    name = "missing_values"
+    _state_class = StepMethodState
+    stats_dtypes_shapes = {}
+
+    def __init__(self, vars, core: MissingValueDraw, theta_fn, model=None, rng=None, blocked=True):
+        self.vars = vars
+        self.core = core
+        self.theta_fn = theta_fn
+        self.rng = get_random_generator(rng)
+
+    def step(self, point):
+        G, R, beta, *extras = self.theta_fn(point)
+        missing, rot = self.core.draw(point[ROTATED_NAME], G, R, beta, extras, self.rng)
+        point = dict(point)
+        point[MISSING_NAME] = missing
+        point[ROTATED_NAME] = rot
+        return point, [{}]
+
+    @staticmethod
+    def competence(var, has_grad):
+        return Competence.INCOMPATIBLE
+
+
+def make_step(model, core: MissingValueDraw, data: FitData) -> MissingValueStep:
+    """The Gibbs step of ``model`` (built by :func:`ped2g.fit.marginal.build_model`)."""
     import pytensor.tensor as pt
-    from pymc.step_methods.compound import BlockedStep, Competence, StepMethodState
-    from pymc.util import get_random_generator
 
     outs = [model["G"], model["R"], model["beta"]]
     for eff in data.random:
         chol = pt.linalg.cholesky(model[f"cov_{eff.name}"])
         outs.append(model[f"{eff.name}_z"] @ chol.T)
     # As functions of the value variables (compiling the random variables themselves would draw
-    # them from their priors).
-    fn = model.compile_fn(model.replace_rvs_by_values(outs), inputs=model.value_vars,
-                          on_unused_input="ignore", point_fn=True)
-
-    class MissingValueStep(BlockedStep):
-        """Gibbs step: missing trait values from their exact conditional distribution."""
-
-        name = "missing_values"
-        _state_class = StepMethodState
-        stats_dtypes_shapes = {}
-
-        def __init__(self, vars, model=None, rng=None, blocked=True):
-            self.vars = vars
-            self.rng = get_random_generator(rng)
-
-        def step(self, point):
-            G, R, beta, *extras = fn(point)
-            missing, rot = core.draw(point[ROTATED_NAME], G, R, beta, extras, self.rng)
-            point = dict(point)
-            point[MISSING_NAME] = missing
-            point[ROTATED_NAME] = rot
-            return point, [{}]
-
-        @staticmethod
-        def competence(var, has_grad):
-            return Competence.INCOMPATIBLE
-
-    return MissingValueStep(vars=[model.rvs_to_values[model[MISSING_NAME]],
-                                  model.rvs_to_values[model[ROTATED_NAME]]], model=model)
+    # them from their priors). A small graph: PyTensor's Python mode, nothing to compile.
+    theta_fn = model.compile_fn(model.replace_rvs_by_values(outs), inputs=model.value_vars,
+                                on_unused_input="ignore", point_fn=True, mode="FAST_COMPILE")
+    return MissingValueStep([model.rvs_to_values[model[MISSING_NAME]], model.rvs_to_values[model[ROTATED_NAME]]],
+                            core, theta_fn, model=model)

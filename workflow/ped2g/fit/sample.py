@@ -80,6 +80,17 @@ def _jittered_starts(model, free, chains: int, seed: int) -> list[dict]:
     return starts
 
 
+def _warm_up_jit(nuts, point: dict) -> None:
+    """Evaluate NUTS's log-density once here, so that numba compiles it now (and caches it on
+    disk) rather than in every chain's process at its first step: the compile time is then
+    counted as compile time and paid once, not once per chain."""
+    from pymc.blocking import DictToArrayBijection
+
+    func = nuts._logp_dlogp_func   # PyMC's compiled log-density and gradient of the NUTS block
+    func.set_extra_values({v.name: point[v.name] for v in func._extra_vars})
+    func(DictToArrayBijection.map({v.name: point[v.name] for v in nuts.vars}).data)
+
+
 def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int, cores: int, seed: int,
                   target_accept: float, progress: bool):
     """PyMC's sampler with the engine's steps first, then NUTS on every other free variable."""
@@ -94,6 +105,7 @@ def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int
     with model:
         nuts = pm.NUTS(vars=[model.rvs_to_values[rv] for rv in nuts_rvs], target_accept=target_accept,
                        compile_kwargs={"mode": "NUMBA"})
+        _warm_up_jit(nuts, model.initial_point())
         starts = _jittered_starts(model, nuts_rvs, chains, seed)
         compile_seconds = time.perf_counter() - start
         start = time.perf_counter()
