@@ -69,3 +69,15 @@ def test_cautions_put_failed_fits_first_and_follow_the_null():
     items = cautions(_config(), [], null_present=False, has_null_columns=False, n_changes=None)
     assert not any(i.startswith("Fits of") for i in items)
     assert any("No randomisation null was found" in i for i in items)
+
+
+def test_sampler_that_ran_and_the_missing_value_step_are_named():
+    # The fits recorded PyMC (the Gibbs step for missing values runs on it) although the config
+    # asks for nutpie: the text names what ran and the data-augmentation step, and cites it.
+    text, refs = _paragraph(_config(), ["skewers"], samplers=["pymc"], missing_by_gibbs=True)
+    assert "in PyMC 1.2.3, each with" in text and "nutpie 0.0.1" not in text
+    assert "Gibbs step between NUTS transitions" in text and "Tanner & Wong 1987" in text
+    assert any(r.startswith("Tanner MA, Wong WH (1987)") for r in refs)
+    text, refs = _paragraph(_config(), ["skewers"])
+    assert "in nutpie 0.0.1, each with" in text and "Gibbs step" not in text
+    assert not any("Tanner" in r for r in refs)

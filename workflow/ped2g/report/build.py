@@ -197,12 +197,16 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
         # -- methods ---------------------------------------------------------------------------
         engines = sorted({str(f.diagnostics["engine"]) for f in inputs.fits.values()
                           if f.diagnostics and f.diagnostics.get("engine")})
+        sampling = [f.diagnostics.get("sampling") or {} for f in inputs.fits.values() if f.diagnostics]
+        samplers = sorted({str(x["sampler"]) for x in sampling if x.get("sampler")})
+        missing_by_gibbs = any("MissingValueStep" in (x.get("compound_steps") or []) for x in sampling)
         n_changes = None if inputs.pedigree_changes is None else len(inputs.pedigree_changes)
         paragraph, refs = methods_paragraph(config, pops, traits, engines, n_changes,
                                             passed=len(pops) - len(failed),
                                             methods=list(inputs.compare), null_present=inputs.null_present,
                                             versions=versions,
-                                            compare_record=inputs.compare_extras.get("summary"))
+                                            compare_record=inputs.compare_extras.get("summary"),
+                                            samplers=samplers, missing_by_gibbs=missing_by_gibbs)
         refs = sorted(set(refs) | {REFERENCES[k] for k in CAUTION_REFERENCES})
         sec = sections["methods"]
         sec.note("Generated from the settings and outputs of this run; adapt it for a paper and keep "

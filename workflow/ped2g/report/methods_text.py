@@ -51,6 +51,8 @@ REFERENCES: dict[str, str] = {
     "Mitteroecker & Bookstein 2009": "Mitteroecker P, Bookstein F (2009) The ontogenetic trajectory of the "
                                      "phenotypic covariance matrix, with examples from craniofacial shape in "
                                      "rats and humans. Evolution 63:727-737.",
+    "Tanner & Wong 1987": "Tanner MA, Wong WH (1987) The calculation of posterior distributions by data "
+                          "augmentation. Journal of the American Statistical Association 82:528-540.",
     "Quaas 1976": "Quaas RL (1976) Computing the diagonal elements and inverse of a large numerator "
                   "relationship matrix. Biometrics 32:949-953.",
     "Schenker & Gentleman 2001": "Schenker N, Gentleman JF (2001) On judging the significance of differences "
@@ -128,7 +130,8 @@ def _list(items: list[str]) -> str:
 def methods_paragraph(config: dict[str, Any], populations: list[str], traits: list[str],
                       engines: list[str], n_changes: int | None, passed: int, methods: list[str],
                       null_present: bool, versions: dict[str, str],
-                      compare_record: dict[str, Any] | None = None) -> tuple[str, list[str]]:
+                      compare_record: dict[str, Any] | None = None, samplers: list[str] | None = None,
+                      missing_by_gibbs: bool = False) -> tuple[str, list[str]]:
     """The methods paragraph and the references it cites.
 
     Parameters
@@ -144,6 +147,11 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
     compare_record
         ``compare/summary.json``: the number of skewers and subspace dimensions actually used
         (the config's values otherwise).
+    samplers
+        The samplers the fits recorded as having run (``nutpie``, ``pymc``); the config's
+        ``sampling.sampler`` when empty or None.
+    missing_by_gibbs
+        Whether some fit drew missing trait values by the marginal engine's Gibbs step.
     """
     cite = Citations()
     v = lambda name: versions.get(name, "(version not found)")  # noqa: E731
@@ -176,7 +184,8 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         f"Each standard deviation had a {family} prior with scale {priors['sd_scale']} times the "
         f"trait's phenotypic standard deviation, and each correlation matrix an LKJ prior with "
         f"η = {priors['lkj_eta']} ({cite('Lewandowski et al. 2009')}).")
-    sampler = {"nutpie": f"nutpie {v('nutpie')}", "pymc": f"PyMC {v('pymc')}"}.get(s["sampler"], s["sampler"])
+    names = {"nutpie": f"nutpie {v('nutpie')}", "pymc": f"PyMC {v('pymc')}"}
+    sampler = _list([names.get(x, x) for x in (samplers or [s["sampler"]])])
     ch = config["checks"]
     sentences.append(
         f"We ran {s['chains']} chains of the No-U-Turn sampler ({cite('Hoffman & Gelman 2014')}) in "
@@ -185,6 +194,10 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         f"{ch['max_rhat']}, bulk and tail effective sample sizes ≥ {ch['min_ess']} "
         f"({cite('Vehtari et al. 2021')}; ArviZ {v('arviz')}) and at most {ch['max_divergences']} "
         f"divergent transitions; {passed} of {len(populations)} fits met every check.")
+    if missing_by_gibbs:
+        sentences.append(
+            "Missing trait values were drawn from their exact conditional distribution by a Gibbs step "
+            f"between NUTS transitions (data augmentation; {cite('Tanner & Wong 1987')}).")
     mass = config["compare"]["interval_mass"]
     sentences.append(
         f"Posterior distributions are summarised by their median and {mass:.0%} highest posterior "
