@@ -5,9 +5,10 @@ phenotyped animals, their sex and the pattern of missing trait values; each repl
 breeding values down that pedigree (ped2g.simulate.breeding_values) and new residuals, with the
 simulator's true G and R. Because only the records change, the eigendecomposition is computed
 once and shared by the replicates. Both ways of handling the missing cells can be checked
-(``missing_values``): ``gibbs`` (the default; a model per replicate, sampled by PyMC with the
-Gibbs step) and ``nuts`` (compiled once by nutpie, each replicate swaps in its rotated records
-with ``with_data``).
+(``missing_values``): ``gibbs`` (the route ``auto`` takes for large data; a model per
+replicate, sampled by PyMC with the Gibbs step) and ``nuts`` (compiled once by nutpie, each
+replicate swaps in its rotated records with ``with_data``). The tests run ``gibbs``; the script
+runs either.
 
 Expected: a well-calibrated 90% HPD interval covers the true value in about 90% of replicates
 (exact when the truth is drawn from the prior; approximately so for a fixed truth and moderate

@@ -48,6 +48,9 @@ def study(tmp_path_factory):
     cfg = {"data": {"pedigree": str(root / "ped.csv"), "phenotypes": str(root / "phen.csv")},
            "traits": ["mass", "wing", "tail"], "fixed": {"sex": "categorical"},
            "random": [{"name": "brood", "column": "brood"}, {"name": "permanent", "column": "id"}],
+           # the Gibbs route for missing values, with extra random effects (auto would sample these
+           # few missing cells by NUTS)
+           "model": {"missing_values": "gibbs"},
            "sampling": {"chains": 2, "warmup": 150, "draws": 150, "seed": 4},
            "checks": {"on_failure": "flag"}}
     (root / "config.yaml").write_text(yaml.safe_dump(cfg))
@@ -68,9 +71,9 @@ def test_outputs_exist_and_agree(study):
     extra = (post["cov_brood"] + post["cov_permanent"]).stack(s=("chain", "draw")).transpose("s", ...).values
     np.testing.assert_allclose(fit.P, fit.G + fit.R + extra, rtol=1e-12)
     diag = json.loads((out / "diagnostics.json").read_text())
-    # The study has missing trait values: the marginal engine draws them by its Gibbs step, which
-    # runs on PyMC's sampler whatever sampling.sampler asks for, and the diagnostics say so.
-    assert diag["missing_trait_values"] > 0
+    # The study has missing trait values and asks for the Gibbs step, which runs on PyMC's
+    # sampler whatever sampling.sampler asks for; the diagnostics say so.
+    assert diag["missing_trait_values"] > 0 and diag["missing_values"] == "gibbs"
     assert diag["engine"] == "marginal" and diag["sampling"]["sampler"] == "pymc"
     assert diag["sampling"]["requested_sampler"] == "nutpie"
     assert diag["sampling"]["compound_steps"] == ["MissingValueStep", "NUTS"]

@@ -23,6 +23,9 @@ def data_with(n, missing_fraction, seed=0):
 def test_auto_takes_marginal_for_small_data_and_latent_beyond_its_limits():
     name, _, reason = engine.choose(data_with(300, 0.1), "auto")
     assert name == "marginal" and "applies" in reason
+    # a few missing cells (300 records x ~120 cells <= AUTO_JOINT_CELLS) are sampled jointly by NUTS
+    assert marginal.missing_mode(data_with(300, 0.1), {}) == "nuts"
+    assert marginal.missing_mode(data_with(300, 0.1), {"missing_values": "gibbs"}) == "gibbs"
     # Missing cells drawn by the Gibbs step (the default) cost no projections per gradient...
     many = data_with(6000, 0.1)
     name, _, reason = engine.choose(many, "auto", {"missing_values": "auto"})

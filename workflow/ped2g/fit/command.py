@@ -66,6 +66,7 @@ def run(args: argparse.Namespace) -> int:
     from ..rng import generator
     from . import outputs, sample
     from .engine import choose
+    from .marginal import missing_mode as marginal_missing_mode
     from .prepare import prepare
 
     start = time.perf_counter()
@@ -126,6 +127,9 @@ def run(args: argparse.Namespace) -> int:
         "phenotyped_animals": int(data.phenotyped.sum()),
         "pedigree_animals": data.pedigree.n,
         "missing_trait_values": int(data.missing.sum()),
+        # how missing trait values were handled: none, gibbs or nuts (marginal), masked (latent)
+        "missing_values": (marginal_missing_mode(data, config["model"]) if engine_name == "marginal"
+                           else "masked" if data.missing.any() else "none"),
         "fixed_effects": data.x_names,
         "random_effects": [r.name for r in data.random],
         "preparation_notes": data.notes,
