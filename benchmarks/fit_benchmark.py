@@ -5,7 +5,8 @@ record, 10% of trait values missing at random, a sex effect) is fitted by
 
 * ``marginal``: breeding values integrated out (ped2g.fit.marginal), where its one-off dense
   eigendecomposition fits (its cost is reported as setup time); missing cells drawn by the Gibbs
-  step between NUTS transitions (``model.missing_values: gibbs``, the default; PyMC's NUTS);
+  step between NUTS transitions (``model.missing_values: gibbs``, what ``auto`` takes for large
+  data; PyMC's NUTS);
 * ``marginal_nuts``: the same with the missing cells as NUTS parameters (nutpie), for comparison;
 * ``latent``: breeding values sampled through the pedigree recursion (ped2g.fit.latent);
 * ``dense``: the same latent model through a dense Cholesky factor of A (baseline; setup = forming
@@ -153,7 +154,7 @@ def _iterations(idata) -> int:
 
 
 def run_marginal_gibbs(data, args) -> dict:
-    """The default marginal route through ped2g.fit.sample (Gibbs step for missing cells + NUTS)."""
+    """The marginal engine's Gibbs route through ped2g.fit.sample (Gibbs step for missing cells + NUTS)."""
     from ped2g.fit import marginal, sample
 
     model_config = {"priors": {"sd_scale": 1.0, "lkj_eta": 2.0}, "fixed_covariances": None,
