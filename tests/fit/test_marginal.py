@@ -102,7 +102,7 @@ def test_gibbs_route_loglik_equals_dense_normal():
     rng = np.random.default_rng(8)
     data = small_data(rng, repeated=True, with_random=False)
     t = data.n_traits
-    model = marginal.build_model(data, {"priors": {}})
+    model = marginal.build_model(data, {"priors": {}, "missing_values": "gibbs"})
     assert augment.ROTATED_NAME in model.named_vars and len(marginal.extra_steps(model, data)) == 1
     G, R = random_cov(rng, t), random_cov(rng, t)
     beta = rng.normal(size=(2, t))
