@@ -153,18 +153,32 @@ def _iterations(idata) -> int:
     return total
 
 
+def _model_config(missing_values: str) -> dict:
+    return {"priors": {"sd_scale": 1.0, "lkj_eta": 2.0}, "fixed_covariances": None,
+            "missing_values": missing_values}
+
+
+def _marginal_rotation(data, model_config):
+    """The marginal engine's eigendecomposition and its seconds, or why the engine does not apply."""
+    from ped2g.fit import marginal
+
+    ok, why = marginal.applicable(data, model_config)
+    if not ok:
+        return why
+    start = time.perf_counter()
+    rot = marginal.rotation(data)
+    return rot, time.perf_counter() - start
+
+
 def run_marginal_gibbs(data, args) -> dict:
     """The marginal engine's Gibbs route through ped2g.fit.sample (Gibbs step for missing cells + NUTS)."""
     from ped2g.fit import marginal, sample
 
-    model_config = {"priors": {"sd_scale": 1.0, "lkj_eta": 2.0}, "fixed_covariances": None,
-                    "missing_values": "gibbs"}
-    ok, why = marginal.applicable(data, model_config)
-    if not ok:
-        return {"note": why}
-    start = time.perf_counter()
-    rot = marginal.rotation(data)
-    setup = time.perf_counter() - start
+    model_config = _model_config("gibbs")
+    prepared = _marginal_rotation(data, model_config)
+    if isinstance(prepared, str):
+        return {"note": prepared}
+    rot, setup = prepared
     start = time.perf_counter()
     model = marginal.build_model(data, model_config)
     steps = marginal.extra_steps(model, data)
@@ -191,16 +205,13 @@ def run_nuts(engine: str, data, args) -> dict:
 
     from ped2g.fit import latent, marginal
 
-    model_config = {"priors": {"sd_scale": 1.0, "lkj_eta": 2.0}, "fixed_covariances": None,
-                    "missing_values": "nuts"}
+    model_config = _model_config("nuts")
     setup = 0.0
     if engine == "marginal":
-        ok, why = marginal.applicable(data, model_config)
-        if not ok:
-            return {"note": why}
-        start = time.perf_counter()
-        rot = marginal.rotation(data)
-        setup = time.perf_counter() - start
+        prepared = _marginal_rotation(data, model_config)
+        if isinstance(prepared, str):
+            return {"note": prepared}
+        rot, setup = prepared
         model = marginal.build_model(data, model_config)
         note = f"eigendecomposition {rot.seconds:.1f} s"
     elif engine == "latent":
