@@ -79,6 +79,8 @@ def test_engines_agree_within_monte_carlo_error(missing_values, latent_posterior
         run = sample.run(model, {"chains": 2, "warmup": 300, "draws": 500, "seed": 11}, "p", progress=False,
                          extra_steps=marginal.extra_steps(model, data))
         assert run.info["sampler"] == "pymc" and run.info["compound_steps"][0] == "MissingValueStep"
+        # the missing cells are kept (breeding values need them); the rotated records are not
+        assert "missing" in run.idata.posterior and "rot_y_completed" not in run.idata.posterior
         post_m = run.idata
     post_l = latent_posterior
     for name in ("G", "R", "beta"):

@@ -168,6 +168,8 @@ class MissingValueStep(BlockedStep):
     name = "missing_values"
     _state_class = StepMethodState
     stats_dtypes_shapes = {}
+    #: Updated every iteration but not kept in the draws (n x t per draw); the missing cells are.
+    not_stored = (ROTATED_NAME,)
 
     def __init__(self, vars, core: MissingValueDraw, theta_fn, model=None, rng=None, blocked=True):
         self.vars = vars

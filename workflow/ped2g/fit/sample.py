@@ -98,9 +98,9 @@ def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int
 
     taken = {v.name for step in extra_steps for v in step.vars}
     nuts_rvs = [rv for rv in model.free_RVs if model.rvs_to_values[rv].name not in taken]
-    step_rvs = [rv for rv in model.free_RVs if model.rvs_to_values[rv].name in taken]
-    keep = [v.name for v in model.free_RVs + model.deterministics
-            if v not in step_rvs or v.name == "missing"]
+    # A step may name variables it updates that are not worth storing (``not_stored``).
+    skip = {name for step in extra_steps for name in getattr(step, "not_stored", ())}
+    keep = [v.name for v in model.free_RVs + model.deterministics if v.name not in skip]
     start = time.perf_counter()
     with model:
         nuts = pm.NUTS(vars=[model.rvs_to_values[rv] for rv in nuts_rvs], target_accept=target_accept,
