@@ -36,10 +36,24 @@ def test_auto_takes_marginal_for_small_data_and_latent_beyond_its_limits():
     assert marginal.missing_mode(data_with(50, 0.0), {"missing_values": "nuts"}) == "none"
     with pytest.raises(UserError, match="model.missing_values' is 'maybe'"):
         marginal.missing_mode(many, {"missing_values": "maybe"})
-    big = data_with(marginal.MAX_RECORDS + 1, 0.0)
-    name, _, reason = engine.choose(big, "auto")
-    assert name == "latent" and "exceed" in reason
-    with pytest.raises(UserError, match="model.engine' asks for 'marginal'"):
-        engine.choose(big, "marginal")
     with pytest.raises(UserError, match="allowed: auto, marginal, latent"):
-        engine.choose(big, "fast")
+        engine.choose(many, "fast")
+
+
+def test_marginal_engine_needs_its_eigendecomposition_to_fit_in_memory(monkeypatch):
+    from ped2g import machine
+
+    data = data_with(2000, 0.0)
+    need = marginal.memory_needed(2000)
+    assert need == 24 * 2000 ** 2 + marginal.OTHER_BYTES
+    # just enough memory, then just too little (a SLURM job's limit, say)
+    monkeypatch.setattr(machine, "available_memory", lambda: need / marginal.MEMORY_SHARE * 1.01)
+    assert engine.choose(data, "auto")[0] == "marginal"
+    monkeypatch.setattr(machine, "available_memory", lambda: need / marginal.MEMORY_SHARE * 0.99)
+    name, _, reason = engine.choose(data, "auto")
+    assert name == "latent" and "need 1.1 GB" in reason and "eigendecomposition" in reason
+    with pytest.raises(UserError, match="model.engine' asks for 'marginal'.*need 1.1 GB"):
+        engine.choose(data, "marginal")
+    # where the available memory cannot be read, the engine is not refused on memory grounds
+    monkeypatch.setattr(machine, "available_memory", lambda: None)
+    assert engine.choose(data, "auto")[0] == "marginal"

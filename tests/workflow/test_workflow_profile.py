@@ -27,6 +27,33 @@ def test_profile_is_read_and_fit_jobs_get_memory_and_time(tmp_path):
         assert "slurm_extra=" in resources
 
 
+def test_a_large_population_asks_for_the_memory_of_its_eigendecomposition(tmp_path):
+    """fit_mem_mb: the marginal engine's peak (ped2g.fit.marginal.memory_needed) for the
+    population's phenotype rows, over the share of a job's memory that engine plans to fill."""
+    import pandas as pd
+
+    from ped2g.fit import marginal
+
+    config = make_study(tmp_path)
+    table = tmp_path / "data" / "phenotypes.csv"
+    rows = pd.read_csv(table)
+    south = rows[rows["site"] == "south"]
+    big = pd.concat([rows] + [south] * 178, ignore_index=True)     # south: 84 x 179 = 15,036 rows
+    big.to_csv(table, index=False)
+    result = snakemake(tmp_path, "--profile", str(ROOT / "profiles" / "slurm"),
+                       "--executor", "local", "-n", config=config)
+    assert result.returncode == 0, result.stderr[-3000:]
+    text = result.stdout + result.stderr
+    memory = {}
+    for block in re.split(r"\n(?=\[)", text):
+        if re.search(r"\brule fit:", block):
+            population = re.search(r"wildcards: population=(\w+)", block).group(1)
+            memory[population] = int(re.search(r"mem_mb=(\d+)", block).group(1))
+    need_mb = (24 * 15036 ** 2 + marginal.OTHER_BYTES) / marginal.MEMORY_SHARE / 1e6    # 9,732 MB
+    assert need_mb <= memory["south"] <= need_mb + 2
+    assert memory["north"] == 4000
+
+
 def test_profile_names_the_slurm_executor_and_leaves_light_rules_local():
     profile = yaml.safe_load((ROOT / "profiles" / "slurm" / "config.yaml").read_text())
     assert profile["executor"] == "slurm"

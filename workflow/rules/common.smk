@@ -262,6 +262,8 @@ def prepare():
     except UserError as err:
         fail(err)
     cfg["populations"] = populations
+    column = cfg["data"]["columns"]["population"]
+    RECORDS.update(phenotypes[column].str.strip().value_counts().reindex(populations).fillna(0).astype(int))
     header = (
         "# Written by the workflow from the config: every default filled in and the populations\n"
         "# listed. The stage commands read this file. Do not edit it; edit your config instead.\n"
@@ -273,6 +275,7 @@ def prepare():
     return cfg, source
 
 
+RECORDS = {}  # phenotype rows per population (filled by prepare; sizes the fit jobs' memory)
 CFG, SOURCE = prepare()
 POPULATIONS = CFG["populations"]
 
@@ -352,9 +355,25 @@ def pedigree_options():
     return " ".join(shlex.quote(w) for w in words)
 
 
+#: A fit asks for at least this much memory (MB); the latent engine stays well within it.
+FIT_BASE_MEM_MB = 4000
+#: ...and for what the marginal engine's eigendecomposition needs, up to this much (MB). Above
+#: it (about 40,000 records) the fit job keeps the base request and the fit uses the latent engine.
+FIT_MARGINAL_MEM_MB = 64000
+
+
 def fit_mem_mb(wildcards, attempt):
-    """Memory of a fit in MB: 4 GB, doubled on each retry (see profiles/slurm/config.yaml)."""
-    return 4000 * 2 ** (attempt - 1)
+    """Memory of a fit in MB, doubled on each retry (see profiles/slurm/config.yaml).
+
+    Enough for the marginal engine on this population's records (ped2g.fit.marginal.memory_needed,
+    over the share of a job's memory that engine plans to fill), since the fit picks its engine
+    by the memory its job has.
+    """
+    from ped2g.fit import marginal
+
+    need = marginal.memory_needed(RECORDS.get(wildcards.population, 0)) / marginal.MEMORY_SHARE / 1e6
+    base = max(FIT_BASE_MEM_MB, int(need) + 1) if need <= FIT_MARGINAL_MEM_MB else FIT_BASE_MEM_MB
+    return base * 2 ** (attempt - 1)
 
 
 def fit_runtime(wildcards, attempt):

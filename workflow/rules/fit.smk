@@ -1,9 +1,10 @@
 # Stage 2: one Bayesian multivariate animal model per population (the expensive step).
 #
-# A fit runs one chain per thread. PyTensor and numba compile code into cache folders; on a
-# cluster several fits may run at once on a shared file system, so each job gets its own
-# temporary cache folders under its temporary directory (resources.tmpdir, node-local on most
-# clusters), removed when the job ends.
+# A fit runs one chain per thread. PyTensor and numba compile code into cache folders, kept in
+# the job's temporary directory (resources.tmpdir, node-local on most clusters, so a compile
+# cache is never shared over a network file system) and shared by the fits that run there.
+# A fit's memory request covers the marginal engine's eigendecomposition for its population's
+# records (fit_mem_mb in common.smk), since the fit picks its engine by the memory it has.
 
 
 rule fit:

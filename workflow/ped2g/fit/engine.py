@@ -1,8 +1,8 @@
 """Choosing the engine: ``model.engine`` is ``marginal``, ``latent`` or ``auto``.
 
 ``auto`` takes the marginal engine (breeding values integrated out; far better mixing of G per
-gradient) whenever it applies -- up to :data:`ped2g.fit.marginal.MAX_RECORDS` records -- and the
-pre-rotated projections that every gradient touches (extra random-effect levels, and missing
+gradient) whenever it applies -- while its dense eigendecomposition fits in the memory this
+process has (:func:`ped2g.fit.marginal.memory_needed`) -- and the pre-rotated projections that every gradient touches (extra random-effect levels, and missing
 trait values with ``model.missing_values: nuts``) stay below
 :data:`ped2g.fit.marginal.AUTO_PROJECTION_CELLS` (beyond that each gradient is memory-bound and
 the marginal engine loses its advantage); otherwise the latent engine (linear cost in the number

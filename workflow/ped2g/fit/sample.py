@@ -12,7 +12,6 @@ of the order in which populations are fitted. Progress is shown by the sampler's
 
 from __future__ import annotations
 
-import os
 import time
 from dataclasses import dataclass, field
 from typing import Any
@@ -20,6 +19,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import UserError
+from ..machine import available_cpus
 from ..rng import seed_sequence
 
 SAMPLERS = ("nutpie", "pymc")
@@ -53,14 +53,6 @@ def _count(idata, group: str, stat: str) -> int:
     if group not in idata.groups() or stat not in idata[group]:
         return 0
     return int(np.asarray(idata[group][stat].values).sum())
-
-
-def available_cpus() -> int:
-    """CPUs this process may use: the scheduler's allocation (e.g. a SLURM job), not the node's count."""
-    try:
-        return len(os.sched_getaffinity(0))
-    except AttributeError:  # platforms without sched_getaffinity (macOS)
-        return os.cpu_count() or 1
 
 
 def _jittered_starts(model, free, chains: int, seed: int) -> list[dict]:
