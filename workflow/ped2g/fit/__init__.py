@@ -15,6 +15,7 @@ data            :class:`FitData`, the prepared data of one population (the engin
 prepare         config + tables -> FitData (select, link, prune, design matrices, standardise).
 priors          the one covariance prior used for every covariance matrix, and the fixed-effect prior.
 batched_normal  log-density of n independent k-variate normals with per-record covariances.
+scaled_pair_op  the marginal engine's likelihood (covariances lam_i G + R) as one numba-backed Op.
 marginal        engine with the breeding values integrated out exactly.
 augment         the marginal engine's Gibbs step for missing trait values (data augmentation).
 latent          engine with the breeding values as (non-centred) parameters.

@@ -121,17 +121,29 @@ def batched_mvn_logp(resid, cov, observed=None) -> pt.TensorVariable:
     return mvn_logp_entries([resid[:, j] for j in range(k)], lambda j, l: cov[:, j, l], observed)
 
 
-def scaled_pair_logp(resid: Sequence, lam, G, R, observed=None) -> pt.TensorVariable:
-    """Per-record log-density with covariance ``lam_i G + R`` (the rotated animal model).
+def scaled_pair_logp(resid: Sequence, lam, G, R) -> pt.TensorVariable:
+    """Total log-density of records with covariances ``lam_i G + R`` (the rotated animal model).
+
+    One Op with a numba kernel that returns value and gradient in one pass
+    (:mod:`ped2g.fit.scaled_pair_op`), rather than the unrolled graph of :func:`mvn_logp_entries`,
+    whose hundreds of nodes make numba's first compile slow.
 
     Parameters
     ----------
     resid
-        k tensors of shape (n,).
+        k tensors of shape (n,), or one (n, k) tensor.
     lam
         Shape (n,): the eigenvalue of each rotated record.
     G, R
         (k, k) tensors.
+
+    Returns
+    -------
+    pytensor.tensor.TensorVariable
+        A scalar: the sum over records.
     """
-    lam = pt.as_tensor_variable(lam)
-    return mvn_logp_entries(resid, lambda j, l: lam * G[j, l] + R[j, l], observed)
+    from .scaled_pair_op import scaled_pair_op
+
+    if isinstance(resid, (list, tuple)):
+        resid = pt.stack([pt.as_tensor_variable(x) for x in resid], axis=1)
+    return scaled_pair_op(resid, lam, G, R)[0]

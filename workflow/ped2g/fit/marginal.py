@@ -9,7 +9,7 @@ Integrating ``a`` out, the rows of ``Y`` are jointly normal with covariance
 animals (A_pp: the phenotyped animals; their ancestors marginalise out). With ``K = U Lambda U'``
 computed once (``numpy.linalg.eigh``, O(n^3)), the rotated records ``U'(Y - X beta - ...)`` are
 independent, row i with covariance ``lambda_i G + R``. The log-likelihood is then a sum of n small
-normal log-densities (:mod:`ped2g.fit.batched_normal`), O(n k^3) per gradient after the O(n p k)
+normal log-densities (one Op, :mod:`ped2g.fit.scaled_pair_op`), O(n k^3) per gradient after the O(n p k)
 products by the pre-rotated designs ``U'X`` and ``U'Z_c``. This is the classic rotation used to
 make animal-model likelihoods cheap (e.g. Thompson & Shaw 1990 [M]; the same as the "spectral
 decomposition" trick of linear mixed model software, common practice).
@@ -248,7 +248,7 @@ def build_model(data: FitData, model_config: dict):
                     proj = pm.Data(f"rot_missing_{j}", np.ascontiguousarray(Ut[:, rows]))
                     cols[j] = cols[j] + pt.dot(proj, missing[start:start + len(rows)])
                     start += len(rows)
-        pm.Potential("loglik", scaled_pair_logp(cols, lam, G, R).sum())
+        pm.Potential("loglik", scaled_pair_logp(cols, lam, G, R))
     return model
 
 
