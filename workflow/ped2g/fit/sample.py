@@ -87,6 +87,7 @@ def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int
                   target_accept: float, progress: bool):
     """PyMC's sampler with the engine's steps first, then NUTS on every other free variable."""
     import pymc as pm
+    import pytensor
 
     taken = {v.name for step in extra_steps for v in step.vars}
     nuts_rvs = [rv for rv in model.free_RVs if model.rvs_to_values[rv].name not in taken]
@@ -94,7 +95,10 @@ def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int
     skip = {name for step in extra_steps for name in getattr(step, "not_stored", ())}
     keep = [v.name for v in model.free_RVs + model.deterministics if v.name not in skip]
     start = time.perf_counter()
-    with model:
+    # NUTS is compiled by numba; the small helper functions (initial points, the values stored per
+    # draw) run in PyTensor's Python mode, which compiles nothing (its C backend would compile
+    # every new operation with a C compiler the first time, seconds each).
+    with model, pytensor.config.change_flags(mode="FAST_COMPILE"):
         nuts = pm.NUTS(vars=[model.rvs_to_values[rv] for rv in nuts_rvs], target_accept=target_accept,
                        compile_kwargs={"mode": "NUMBA"})
         _warm_up_jit(nuts, model.initial_point())
