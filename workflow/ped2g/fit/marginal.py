@@ -238,17 +238,20 @@ def build_model(data: FitData, model_config: dict):
             z = pm.Normal(f"{eff.name}_z", 0.0, 1.0, shape=(eff.n_levels, t))
             rot_Z = pm.Data(f"rot_Z_{eff.name}", rot.rot_Z[c])
             resid = resid - rot_Z @ (z @ chol_c.T)
-        cols = [resid[:, j] for j in range(t)]
         if mode == "nuts":
             missing = pm.Flat(augment.MISSING_NAME, shape=total_missing)
             Ut = rot.U.T
             start = 0
+            filled = []
             for j, rows in enumerate(rot.missing_rows):
                 if len(rows):
                     proj = pm.Data(f"rot_missing_{j}", np.ascontiguousarray(Ut[:, rows]))
-                    cols[j] = cols[j] + pt.dot(proj, missing[start:start + len(rows)])
+                    filled.append(pt.dot(proj, missing[start:start + len(rows)]))
                     start += len(rows)
-        pm.Potential("loglik", scaled_pair_logp(cols, lam, G, R))
+                else:
+                    filled.append(pt.zeros(data.n_records))
+            resid = resid + pt.stack(filled, axis=1)
+        pm.Potential("loglik", scaled_pair_logp(resid, lam, G, R))
     return model
 
 

@@ -18,7 +18,8 @@ respect to every entry is the symmetric matrix above.
 Why an Op instead of a graph of elementwise operations (:mod:`ped2g.fit.batched_normal`): the
 unrolled k x k algebra is many small graph nodes that numba type-infers and compiles one by one,
 while this kernel is one function, compiled once and cached on disk by numba (measured, 4 traits,
-500 records, empty caches: the marginal engine's first compile fell from 38.0 s to 32.1 s). It costs O(n k^3) per evaluation,
+500 records, empty caches: the marginal engine's first compile fell from 38.0 s to 32.1 s; value
+and gradient take 0.45 ms at 8,000 records against 0.74 ms for the unrolled graph). It costs O(n k^3) per evaluation,
 value and gradient in one pass, and stays finite whenever every V_i is positive definite (also
 when G is proportional to R, where eigenvalue-based forms have undefined derivatives). Where a
 V_i is not positive definite the log-likelihood is -inf (NUTS treats the step as divergent).
@@ -26,7 +27,9 @@ V_i is not positive definite the log-likelihood is -inf (NUTS treats the step as
 
 from __future__ import annotations
 
+import hashlib
 import math
+from pathlib import Path
 
 import numba
 import numpy as np
@@ -38,106 +41,124 @@ from pytensor.graph.op import Op
 LOG_2PI = math.log(2.0 * math.pi)
 
 
+#: Records per block: the block's k x k x BLOCK temporaries stay in the L1 cache (8 KB at k = 4).
+BLOCK = 64
+
+
 @numba.njit(cache=True)
 def scaled_pair_logp_and_grad(resid, lam, G, R):
     """(log L, d/d resid, d/dG, d/dR) for the model in the module docstring.
 
-    Every step of the per-record k x k algebra is a loop over the records (structure of
-    arrays), so that the compiler vectorises across records.
+    Records are taken in blocks of :data:`BLOCK`; within a block every step of the k x k algebra
+    is a loop over the block's records (structure of arrays), so the compiler vectorises across
+    records while the temporaries stay in cache.
     """
     n, k = resid.shape
+    B = BLOCK
     Gs = 0.5 * (G + G.T)
     Rs = 0.5 * (R + R.T)
-    L = np.empty((k, k, n))       # Cholesky factors, lower triangle, record innermost
-    inv_diag = np.empty((k, n))   # 1 / L[j, j]
-    log_det = np.zeros(n)
-    for j in range(k):
-        for l in range(j + 1):
-            g, r = Gs[j, l], Rs[j, l]
-            out = L[j, l]
-            for i in range(n):
-                out[i] = lam[i] * g + r
-            for m in range(l):
-                a, b = L[j, m], L[l, m]
-                for i in range(n):
-                    out[i] -= a[i] * b[i]
-            if l < j:
-                d = inv_diag[l]
-                for i in range(n):
-                    out[i] *= d[i]
-        diag = L[j, j]
-        for i in range(n):
-            if not diag[i] > 0.0:
-                return -np.inf, np.zeros((n, k)), np.zeros((k, k)), np.zeros((k, k))
-            diag[i] = math.sqrt(diag[i])
-            inv_diag[j, i] = 1.0 / diag[i]
-            log_det[i] += math.log(diag[i])
-    # z = L^-1 d, w = L'^-1 z = V^-1 d
-    z = np.empty((k, n))
-    for j in range(k):
-        zj = z[j]
-        for i in range(n):
-            zj[i] = resid[i, j]
-        for m in range(j):
-            a, b = L[j, m], z[m]
-            for i in range(n):
-                zj[i] -= a[i] * b[i]
-        d = inv_diag[j]
-        for i in range(n):
-            zj[i] *= d[i]
-    w = np.empty((k, n))
-    for j in range(k - 1, -1, -1):
-        wj = w[j]
-        for i in range(n):
-            wj[i] = z[j, i]
-        for m in range(j + 1, k):
-            a, b = L[m, j], w[m]
-            for i in range(n):
-                wj[i] -= a[i] * b[i]
-        d = inv_diag[j]
-        for i in range(n):
-            wj[i] *= d[i]
-    total = 0.0
-    for i in range(n):
-        q = 0.0
-        for j in range(k):
-            q += z[j, i] * z[j, i]
-        total += -0.5 * q - log_det[i]
-    total -= 0.5 * n * k * LOG_2PI
-    # M = L^-1 (lower), column c by forward substitution; then V^-1 = M'M
-    M = np.zeros((k, k, n))
-    for c in range(k):
-        for j in range(c, k):
-            out = M[j, c]
-            if j == c:
-                for i in range(n):
-                    out[i] = 1.0
-            for m in range(c, j):
-                a, b = L[j, m], M[m, c]
-                for i in range(n):
-                    out[i] -= a[i] * b[i]
-            d = inv_diag[j]
-            for i in range(n):
-                out[i] *= d[i]
+    L = np.empty((k, k, B))       # Cholesky factors (lower triangle), record innermost
+    M = np.empty((k, k, B))       # their inverses (lower triangle)
+    inv_diag = np.empty((k, B))   # 1 / L[j, j]
+    z = np.empty((k, B))
+    w = np.empty((k, B))
+    log_det = np.empty(B)
     d_resid = np.empty((n, k))
-    for j in range(k):
-        for i in range(n):
-            d_resid[i, j] = -w[j, i]
     dG = np.zeros((k, k))
     dR = np.zeros((k, k))
+    total = 0.0
+    for lo in range(0, n, B):
+        b = min(B, n - lo)
+        log_det[:b] = 0.0
+        # Cholesky factor of V_i = lam_i G + R
+        for j in range(k):
+            for l in range(j + 1):
+                g, r = Gs[j, l], Rs[j, l]
+                out = L[j, l]
+                for i in range(b):
+                    out[i] = lam[lo + i] * g + r
+                for m in range(l):
+                    x, y = L[j, m], L[l, m]
+                    for i in range(b):
+                        out[i] -= x[i] * y[i]
+                if l < j:
+                    dl = inv_diag[l]
+                    for i in range(b):
+                        out[i] *= dl[i]
+            diag = L[j, j]
+            for i in range(b):
+                if not diag[i] > 0.0:
+                    return -np.inf, np.zeros((n, k)), np.zeros((k, k)), np.zeros((k, k))
+            for i in range(b):
+                diag[i] = math.sqrt(diag[i])
+                inv_diag[j, i] = 1.0 / diag[i]
+                log_det[i] += math.log(diag[i])
+        # z = L^-1 d, w = L'^-1 z = V^-1 d
+        for j in range(k):
+            zj = z[j]
+            for i in range(b):
+                zj[i] = resid[lo + i, j]
+            for m in range(j):
+                x, y = L[j, m], z[m]
+                for i in range(b):
+                    zj[i] -= x[i] * y[i]
+            dj = inv_diag[j]
+            for i in range(b):
+                zj[i] *= dj[i]
+        for j in range(k - 1, -1, -1):
+            wj = w[j]
+            for i in range(b):
+                wj[i] = z[j, i]
+            for m in range(j + 1, k):
+                x, y = L[m, j], w[m]
+                for i in range(b):
+                    wj[i] -= x[i] * y[i]
+            dj = inv_diag[j]
+            for i in range(b):
+                wj[i] *= dj[i]
+        for i in range(b):
+            q = 0.0
+            for j in range(k):
+                q += z[j, i] * z[j, i]
+            total += -0.5 * q - log_det[i]
+        # M = L^-1 (lower), column c by forward substitution; V^-1 = M'M
+        for c in range(k):
+            for j in range(c, k):
+                out = M[j, c]
+                if j == c:
+                    for i in range(b):
+                        out[i] = inv_diag[j, i]
+                    continue
+                for i in range(b):
+                    out[i] = 0.0
+                for m in range(c, j):
+                    x, y = L[j, m], M[m, c]
+                    for i in range(b):
+                        out[i] -= x[i] * y[i]
+                dj = inv_diag[j]
+                for i in range(b):
+                    out[i] *= dj[i]
+        for j in range(k):
+            for i in range(b):
+                d_resid[lo + i, j] = -w[j, i]
+        for j in range(k):
+            for l in range(j + 1):
+                sg = 0.0
+                sr = 0.0
+                for i in range(b):
+                    v = 0.0
+                    for m in range(j, k):          # (M'M)[j, l] = sum_m M[m, j] M[m, l]
+                        v += M[m, j, i] * M[m, l, i]
+                    dv = -0.5 * (v - w[j, i] * w[l, i])
+                    sg += lam[lo + i] * dv
+                    sr += dv
+                dG[j, l] += sg
+                dR[j, l] += sr
     for j in range(k):
-        for l in range(j + 1):
-            sg = 0.0
-            sr = 0.0
-            for i in range(n):
-                v = 0.0
-                for m in range(j, k):          # (M'M)[j, l] = sum_m M[m, j] M[m, l]
-                    v += M[m, j, i] * M[m, l, i]
-                dv = -0.5 * (v - w[j, i] * w[l, i])
-                sg += lam[i] * dv
-                sr += dv
-            dG[j, l] = dG[l, j] = sg
-            dR[j, l] = dR[l, j] = sr
+        for l in range(j):
+            dG[l, j] = dG[j, l]
+            dR[l, j] = dR[j, l]
+    total -= 0.5 * n * k * LOG_2PI
     return total, d_resid, dG, dR
 
 
@@ -185,6 +206,10 @@ scaled_pair_op = ScaledPairLogp()
 def _register_numba() -> None:
     from pytensor.link.numba.dispatch.basic import numba_njit, register_funcify_default_op_cache_key
 
+    # PyTensor caches the compiled function on disk under a key made of the Op's type and this
+    # number: a hash of this module's source, so that a changed kernel is never served stale.
+    source_hash = int(hashlib.sha256(Path(__file__).read_bytes()).hexdigest()[:12], 16)
+
     @register_funcify_default_op_cache_key(ScaledPairLogp)
     def numba_funcify_scaled_pair(op, node=None, **kwargs):
         @numba_njit
@@ -192,7 +217,7 @@ def _register_numba() -> None:
             total, d_resid, dG, dR = scaled_pair_logp_and_grad(resid, lam, G, R)
             return np.asarray(total), d_resid, dG, dR
 
-        return scaled_pair
+        return scaled_pair, source_hash
 
 
 _register_numba()
