@@ -185,7 +185,8 @@ def run_marginal_gibbs(data, args) -> dict:
     build = time.perf_counter() - start
     settings = {"chains": args.chains, "warmup": args.warmup, "draws": args.draws, "seed": args.seed,
                 "target_accept": args.target_accept}
-    run = sample.run(model, settings, "bench", progress=False, extra_steps=steps)
+    run = sample.run(model, settings, "bench", progress=False, extra_steps=steps,
+                     numba_opt_level=marginal.NUMBA_OPT_LEVEL)
     info = run.info
     compile_s = build + (info["compile_seconds"] or 0.0)
     sample_s = info["sampling_seconds"]
@@ -203,7 +204,7 @@ def run_marginal_gibbs(data, args) -> dict:
 def run_nuts(engine: str, data, args) -> dict:
     import nutpie
 
-    from ped2g.fit import latent, marginal
+    from ped2g.fit import latent, marginal, sample
 
     model_config = _model_config("nuts")
     setup = 0.0
@@ -225,10 +226,12 @@ def run_nuts(engine: str, data, args) -> dict:
                             f"and O(n^3) work (--dense-max-n {args.dense_max_n})"}
         model, setup = dense_latent.build_model(data, model_config)
         note = "setup = form and factor dense A"
-    options = dict(getattr(marginal if engine == "marginal" else latent, "NUTPIE_OPTIONS", {}))
-    start = time.perf_counter()
-    compiled = nutpie.compile_pymc_model(model, backend="numba", var_names=["G"])
-    compile_s = time.perf_counter() - start
+    module = marginal if engine == "marginal" else latent
+    options = dict(getattr(module, "NUTPIE_OPTIONS", {}))
+    with sample.numba_optimisation(getattr(module, "NUMBA_OPT_LEVEL", None)):
+        start = time.perf_counter()
+        compiled = nutpie.compile_pymc_model(model, backend="numba", var_names=["G"])
+        compile_s = time.perf_counter() - start
     start = time.perf_counter()
     sampler = nutpie.sample(compiled, chains=args.chains, tune=args.warmup, draws=args.draws,
                             seed=args.seed, cores=args.cores, progress_bar=False, blocking=False,

@@ -77,6 +77,7 @@ def test_outputs_exist_and_agree(study):
     assert diag["engine"] == "marginal" and diag["sampling"]["sampler"] == "pymc"
     assert diag["sampling"]["requested_sampler"] == "nutpie"
     assert diag["sampling"]["compound_steps"] == ["MissingValueStep", "NUTS"]
+    assert diag["sampling"]["numba_opt_level"] == 1   # the marginal engine compiles at LLVM level 1
     assert diag["sampling"]["gradient_evaluations"] > 0
     assert diag["records"] == st.phenotypes.shape[0]
     assert set(diag["checks"]["checked"]) >= {"G[mass,mass]", "R[tail,wing]", "h2[wing]"}

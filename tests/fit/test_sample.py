@@ -54,3 +54,23 @@ def test_engine_sampler_options_reach_nutpie():
     female = data.y_center[0] + data.y_scale[0] * beta[..., 0, 0]
     mcse = female.std() / np.sqrt(float(az.ess(female)))
     assert abs(female.mean() - SOLUTIONS["E1"]["WWG"][1]) < 4 * mcse + 5e-4
+
+
+def test_numba_optimisation_level_is_set_inside_and_restored(monkeypatch):
+    from numba.core import config as numba_config
+
+    monkeypatch.delenv("NUMBA_OPT", raising=False)
+    numba_config.reload_config()
+    default = int(numba_config.OPT)
+    with sample.numba_optimisation(1):
+        assert int(numba_config.OPT) == 1
+    assert int(numba_config.OPT) == default
+    monkeypatch.setenv("NUMBA_OPT", "2")            # a user's own setting survives the block
+    numba_config.reload_config()
+    with sample.numba_optimisation(1):
+        assert int(numba_config.OPT) == 1
+    assert int(numba_config.OPT) == 2
+    with sample.numba_optimisation(None):            # None leaves numba alone
+        assert int(numba_config.OPT) == 2
+    monkeypatch.delenv("NUMBA_OPT")
+    numba_config.reload_config()

@@ -88,7 +88,8 @@ def run(args: argparse.Namespace) -> int:
     model = engine.build_model(data, config["model"])
     extra = engine.extra_steps(model, data) if hasattr(engine, "extra_steps") else []
     sampled = sample.run(model, config["sampling"], population, progress=not args.no_progress,
-                         nutpie_options=getattr(engine, "NUTPIE_OPTIONS", None), extra_steps=extra)
+                         nutpie_options=getattr(engine, "NUTPIE_OPTIONS", None), extra_steps=extra,
+                         numba_opt_level=getattr(engine, "NUMBA_OPT_LEVEL", None))
     info = {k: v for k, v in sampled.info.items() if k != "compiled"}
     if engine_name == "marginal":
         info["eigendecomposition_seconds"] = engine.rotation(data).seconds

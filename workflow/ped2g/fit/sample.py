@@ -12,7 +12,9 @@ of the order in which populations are fitted. Progress is shown by the sampler's
 
 from __future__ import annotations
 
+import os
 import time
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -72,6 +74,31 @@ def _jittered_starts(model, free, chains: int, seed: int) -> list[dict]:
     return starts
 
 
+@contextmanager
+def numba_optimisation(level: int | None):
+    """Let numba compile with LLVM optimisation ``level`` (its ``NUMBA_OPT``, 0-3) inside the block.
+
+    ``None`` leaves numba's setting alone. The previous setting is restored afterwards; code
+    compiled inside keeps its level (also in numba's on-disk cache).
+    """
+    if level is None:
+        yield
+        return
+    from numba.core import config as numba_config
+
+    before = os.environ.get("NUMBA_OPT")
+    os.environ["NUMBA_OPT"] = str(int(level))
+    numba_config.reload_config()
+    try:
+        yield
+    finally:
+        if before is None:
+            os.environ.pop("NUMBA_OPT", None)
+        else:
+            os.environ["NUMBA_OPT"] = before
+        numba_config.reload_config()
+
+
 def _warm_up_jit(nuts, point: dict) -> None:
     """Evaluate NUTS's log-density once here, so that numba compiles it now (and caches it on
     disk) rather than in every chain's process at its first step: the compile time is then
@@ -114,7 +141,7 @@ def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int
 
 def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
         compiled=None, nutpie_options: dict[str, Any] | None = None,
-        extra_steps: list | None = None) -> SamplingRun:
+        extra_steps: list | None = None, numba_opt_level: int | None = None) -> SamplingRun:
     """Sample ``model`` with the settings of ``config["sampling"]``.
 
     Parameters
@@ -134,6 +161,9 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
     extra_steps
         Step methods from the engine (``engine.extra_steps``) for variables NUTS must not touch;
         when given, PyMC's sampler runs them before NUTS in every iteration.
+    numba_opt_level
+        LLVM optimisation level for numba while compiling and sampling (an engine's
+        ``NUMBA_OPT_LEVEL``); None keeps numba's own (3 unless ``NUMBA_OPT`` says otherwise).
     """
     sampler = sampling.get("sampler", "nutpie")
     if sampler not in SAMPLERS:
@@ -146,6 +176,25 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
     cores = max(1, min(chains, available_cpus()))
     info: dict[str, Any] = dict(sampler=sampler, seed=seed, run_seed=int(sampling.get("seed", 1)),
                                 chains=chains, warmup=warmup, draws=draws, target_accept=target_accept)
+    if numba_opt_level is not None:
+        info["numba_opt_level"] = int(numba_opt_level)
+    with numba_optimisation(numba_opt_level):
+        idata = _sample(model, info, chains, warmup, draws, cores, seed, target_accept, progress,
+                        compiled, nutpie_options, extra_steps)
+    grads = (_count(idata, "sample_stats", "n_steps")
+             + _count(idata, "warmup_sample_stats", "n_steps"))
+    info["gradient_evaluations"] = grads
+    info["divergences"] = _count(idata, "sample_stats", "diverging")
+    info["seconds_per_gradient"] = info["sampling_seconds"] / grads * cores if grads else None
+    for group in [g for g in idata.groups() if g.startswith("warmup")]:
+        del idata[group]
+    return SamplingRun(idata=idata, info=info)
+
+
+def _sample(model, info: dict, chains: int, warmup: int, draws: int, cores: int, seed: int,
+            target_accept: float, progress: bool, compiled, nutpie_options, extra_steps):
+    """Run the sampler ``info["sampler"]`` names; fills the timing entries of ``info``."""
+    sampler = info["sampler"]
     if extra_steps:
         info["sampler"] = "pymc"
         info["requested_sampler"] = sampler
@@ -176,11 +225,4 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
                               discard_tuned_samples=False, compute_convergence_checks=False)
         info["compile_seconds"] = None
         info["sampling_seconds"] = time.perf_counter() - start
-    grads = (_count(idata, "sample_stats", "n_steps")
-             + _count(idata, "warmup_sample_stats", "n_steps"))
-    info["gradient_evaluations"] = grads
-    info["divergences"] = _count(idata, "sample_stats", "diverging")
-    info["seconds_per_gradient"] = info["sampling_seconds"] / grads * cores if grads else None
-    for group in [g for g in idata.groups() if g.startswith("warmup")]:
-        del idata[group]
-    return SamplingRun(idata=idata, info=info)
+    return idata
