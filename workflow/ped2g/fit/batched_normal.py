@@ -126,7 +126,8 @@ def scaled_pair_logp(resid: Sequence, lam, G, R) -> pt.TensorVariable:
 
     One Op with a numba kernel that returns value and gradient in one pass
     (:mod:`ped2g.fit.scaled_pair_op`), rather than the unrolled graph of :func:`mvn_logp_entries`,
-    whose hundreds of nodes make numba's first compile slow.
+    whose many small nodes numba compiles one by one (192 nodes in the marginal engine's
+    log-density and gradient at 4 traits, against 118 with the Op).
 
     Parameters
     ----------
