@@ -228,7 +228,7 @@ def run_nuts(engine: str, data, args) -> dict:
         note = "setup = form and factor dense A"
     module = marginal if engine == "marginal" else latent
     options = dict(getattr(module, "NUTPIE_OPTIONS", {}))
-    with sample.numba_optimisation(getattr(module, "NUMBA_OPT_LEVEL", None)):
+    with sample.numba_optimisation(getattr(module, "NUMBA_OPT_LEVEL", None)), sample.exact_numba_math():
         start = time.perf_counter()
         compiled = nutpie.compile_pymc_model(model, backend="numba", var_names=["G"])
         compile_s = time.perf_counter() - start

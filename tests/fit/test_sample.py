@@ -6,6 +6,8 @@ tests/fit/mrode.py). The sampled posterior mean must lie within 4 Monte Carlo st
 (posterior SD / sqrt(ESS)) plus the book's rounding (5e-4).
 """
 
+import os
+
 import arviz as az
 import numpy as np
 import pytest
@@ -74,3 +76,20 @@ def test_numba_optimisation_level_is_set_inside_and_restored(monkeypatch):
         assert int(numba_config.OPT) == 2
     monkeypatch.delenv("NUMBA_OPT")
     numba_config.reload_config()
+
+
+def test_exact_numba_math_turns_fast_math_off_here_and_in_child_processes(monkeypatch):
+    import pytensor
+
+    monkeypatch.setenv("PYTENSOR_FLAGS", "floatX=float64")
+    fast = pytensor.config.numba__fastmath
+    with sample.exact_numba_math():
+        assert pytensor.config.numba__fastmath is False
+        # chain processes read their flags from the environment
+        assert os.environ["PYTENSOR_FLAGS"] == "floatX=float64,numba__fastmath=False"
+    assert pytensor.config.numba__fastmath == fast
+    assert os.environ["PYTENSOR_FLAGS"] == "floatX=float64"
+    monkeypatch.delenv("PYTENSOR_FLAGS")
+    with sample.exact_numba_math():
+        assert os.environ["PYTENSOR_FLAGS"] == "numba__fastmath=False"
+    assert "PYTENSOR_FLAGS" not in os.environ

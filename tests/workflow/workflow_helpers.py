@@ -39,15 +39,22 @@ def make_study(folder: Path, **changes) -> Path:
     return path
 
 
-def snakemake(folder: Path, *args: str, config: Path | None = None,
-              timeout: float = 600) -> subprocess.CompletedProcess:
-    """Run the workflow's Snakefile with ``folder`` as working directory."""
+def snakemake(folder: Path, *args: str, config: Path | None = None, timeout: float = 600,
+              tmpdir: Path | None = None) -> subprocess.CompletedProcess:
+    """Run the workflow's Snakefile with ``folder`` as working directory.
+
+    ``tmpdir`` becomes the jobs' temporary directory (``TMPDIR``), where the fits keep their
+    compile cache: a new folder means a cold cache.
+    """
     command = [sys.executable, "-m", "snakemake", "--snakefile", str(SNAKEFILE),
                "--directory", str(folder), "--nolock"]
     if config is not None:
         command += ["--configfile", str(config)]
     command += list(args)
     env = dict(os.environ, PYTHONHASHSEED="0")
+    if tmpdir is not None:
+        tmpdir.mkdir(parents=True, exist_ok=True)
+        env["TMPDIR"] = str(tmpdir)
     return subprocess.run(command, cwd=folder, capture_output=True, text=True, timeout=timeout,
                           env=env)
 
