@@ -97,14 +97,16 @@ def true_covariances(t: int) -> tuple[np.ndarray, np.ndarray]:
     return G, R
 
 
-def simulate_data(n: int, t: int, seed: int, recorded: float = 0.8, missing: float = 0.1):
-    """A FitData with ``n`` pedigree animals; returns (data, G_true, R_true) on the standardised scale."""
+def simulate_data(n: int, t: int, seed: int, recorded: float = 0.8, missing: float = 0.1,
+                  cohorts: int = 10):
+    """A FitData with ``n`` pedigree animals in ``cohorts`` cohorts (the pedigree's depth); returns
+    (data, G_true, R_true) on the standardised scale."""
     from ped2g.fit.data import FitData
     from ped2g.rng import generator
     from ped2g.simulate.breeding_values import simulate_breeding_values
 
     rng = generator(seed, "fit-benchmark", n)
-    ped, male = simulate_pedigree(n, rng)
+    ped, male = simulate_pedigree(n, rng, cohorts=cohorts)
     G, R = true_covariances(t)
     a = simulate_breeding_values(ped, G, rng)
     a = np.asarray(a).reshape(n, t)
@@ -329,6 +331,8 @@ def main(argv=None) -> int:
     parser.add_argument("--sizes", type=int, nargs="+", default=[500, 2000, 8000, 32000],
                         help="pedigree sizes n (default: 500 2000 8000 32000)")
     parser.add_argument("--traits", type=int, default=4, help="number of traits (default 4)")
+    parser.add_argument("--cohorts", type=int, default=10,
+                        help="cohorts of the simulated pedigree, about its number of generations (default 10)")
     parser.add_argument("--engines", nargs="+", default=list(DEFAULT_ENGINES), choices=ENGINES,
                         help=f"what to run (default: {' '.join(DEFAULT_ENGINES)})")
     parser.add_argument("--chains", type=int, default=4)
@@ -353,7 +357,7 @@ def main(argv=None) -> int:
     print(format_header(), flush=True)
     rows = []
     for n in args.sizes:
-        data, _, _ = simulate_data(n, args.traits, args.seed)
+        data, _, _ = simulate_data(n, args.traits, args.seed, cohorts=args.cohorts)
         for engine in args.engines:
             if engine == "gibbs":
                 row = run_gibbs(data, args)

@@ -19,6 +19,11 @@ independent standard normals at 0) minus their constant ``-1/2 log(2 pi)`` each.
 
 Reference: the Cholesky-Banachiewicz recursion, e.g. Golub & Van Loan, *Matrix Computations*
 (4th ed., 2013), Algorithm 4.2.1 [M].
+
+The engines no longer build this graph: their likelihoods are Ops with numba kernels
+(:mod:`ped2g.fit.scaled_pair_op` for the marginal engine, :mod:`ped2g.fit.observed_normal_op`
+for the latent one), which compile faster. :func:`mvn_logp_entries` stays as the unrolled
+reference that benchmarks/likelihood_benchmark.py measures them against.
 """
 
 from __future__ import annotations

@@ -13,10 +13,12 @@ forming A or a factor of it: the product by T is the recursion
 
     a_i = m_i + (a_sire(i) + a_dam(i)) / 2,      m = D^{1/2} W L_G',
 
-done one generation at a time (every parent is in an earlier generation), so a gradient costs
-O(animals x traits) plus O(records x traits^2). Records with missing trait values contribute the
-density of their observed traits only (an exact marginal), through
-:func:`ped2g.fit.batched_normal.mvn_logp_entries`.
+done in one pass over the animals in generation order (every parent comes before its offspring)
+by one PyTensor Op with a numba kernel (:mod:`ped2g.fit.pedigree_op`; its gradient is the pass
+back up with T'), so a gradient costs O(animals x traits) plus O(records x traits^2) and the
+compiled graph does not grow with the depth of the pedigree. Records with missing trait values
+contribute the density of their observed traits only (an exact marginal), through one more Op
+(:mod:`ped2g.fit.observed_normal_op`).
 
 Assumptions stated plainly: additive genetic effects only (no dominance or epistasis), Gaussian
 residuals with one R for every record, founders of the pruned pedigree unrelated and non-inbred
@@ -129,15 +131,6 @@ def applicable(data: FitData) -> tuple[bool, str]:
                   "non-centred parameters; cost per gradient linear in animals and records")
 
 
-def _record_layout(data: FitData) -> dict[str, np.ndarray]:
-    """Split records into complete ones and ones with at least one missing trait."""
-    y = np.asarray(data.y, dtype=float)
-    miss = np.isnan(y)
-    complete = ~miss.any(axis=1)
-    return {"complete": np.flatnonzero(complete), "incomplete": np.flatnonzero(~complete),
-            "y": np.where(miss, 0.0, y), "observed": (~miss).astype(float)}
-
-
 def build_model(data: FitData, model_config: dict, animal_effect=None):
     """Build the latent-engine PyMC model on the standardised scale.
 
@@ -157,13 +150,14 @@ def build_model(data: FitData, model_config: dict, animal_effect=None):
         With Deterministics ``G``, ``R`` (t, t), ``beta`` (p, t) and ``cov_<name>`` per extra
         random effect; free variables ``w_animal`` (n, t; rows in the generation order of
         :func:`generation_layout`) and ``v_<name>`` (levels, t). Large arrays (records, design
-        matrix, parent and level indices) enter as ``pm.Data``; only the generation boundaries
-        are constants of the graph.
+        matrix, parent and level indices) enter as ``pm.Data``, so the graph has no large
+        constants.
     """
     import pymc as pm
     import pytensor.tensor as pt
 
-    from .batched_normal import mvn_logp_entries
+    from .observed_normal_op import observed_normal_op, observed_patterns
+    from .pedigree_op import down_product
     from .priors import covariance_prior, fixed_covariances, fixed_effects_prior
 
     ped = data.pedigree
@@ -172,10 +166,10 @@ def build_model(data: FitData, model_config: dict, animal_effect=None):
     priors = dict(model_config.get("priors") or {})
     fixed = fixed_covariances(model_config, np.asarray(data.y_scale, dtype=float), list(data.traits))
     lay = generation_layout(ped)
-    rec = _record_layout(data)
+    y = np.asarray(data.y, dtype=float)
+    patterns, pattern = observed_patterns(~np.isnan(y))
     rec_animal = lay["rank"][np.asarray(data.record_animal, dtype=np.int64)]
     X = np.asarray(data.X, dtype=float)
-    comp, inc = rec["complete"], rec["incomplete"]
     coords = {"trait": list(data.traits), "trait2": list(data.traits), "x_name": list(data.x_names)}
 
     with pm.Model(coords=coords) as model:
@@ -192,16 +186,9 @@ def build_model(data: FitData, model_config: dict, animal_effect=None):
 
         w = pm.Normal("w_animal", 0.0, 1.0, shape=(n, t))
         if animal_effect is None:
-            # Breeding values a = T D^1/2 W L_G', generation by generation (generation order).
-            m = sqrt_b[:, None] * pt.dot(w, chol_G.T)
-            a = pt.zeros((n + 1, t))  # row n: zero sentinel for unknown parents
-            bounds = lay["bounds"]
-            for g in range(len(bounds) - 1):
-                lo, hi = int(bounds[g]), int(bounds[g + 1])
-                block = m[lo:hi]
-                if g > 0:
-                    block = block + 0.5 * (a[sire[lo:hi]] + a[dam[lo:hi]])
-                a = pt.set_subtensor(a[lo:hi], block)
+            # Breeding values a = T D^1/2 W L_G' (generation order), T by one pass down the
+            # pedigree: one Op whatever the pedigree's depth (ped2g.fit.pedigree_op).
+            a = down_product(sqrt_b[:, None] * pt.dot(w, chol_G.T), sire, dam)
         else:
             a = animal_effect(w, chol_G, lay)
 
@@ -211,25 +198,14 @@ def build_model(data: FitData, model_config: dict, animal_effect=None):
             v = pm.Normal(f"v_{eff.name}", 0.0, 1.0, shape=(eff.n_levels, t))
             effects.append((eff, pt.dot(v, chol_k.T)))
 
-        terms = []
-        for part, rows in (("complete", comp), ("incomplete", inc)):
-            if len(rows) == 0:
-                continue
-            y_p = pm.Data(f"y_{part}", rec["y"][rows])
-            mu = pt.dot(pm.Data(f"X_{part}", X[rows]), beta_raw)
-            mu = mu + a[pm.Data(f"animal_{part}", rec_animal[rows])]
-            for eff, u in effects:
-                lev = pm.Data(f"level_{eff.name}_{part}", np.asarray(eff.level, dtype=np.int64)[rows])
-                mu = mu + u[lev]
-            resid = y_p - mu
-            cols = [resid[:, j] for j in range(t)]
-            if part == "complete":
-                logp = mvn_logp_entries(cols, lambda j, l: R[j, l])
-            else:
-                observed = pm.Data("observed_incomplete", rec["observed"][rows])
-                logp = mvn_logp_entries(cols, lambda j, l: R[j, l], observed)
-            terms.append(pt.sum(logp))
-        pm.Potential("records", terms[0] if len(terms) == 1 else terms[0] + terms[1])
+        # One residual matrix for every record (missing cells hold 0, which the Op ignores).
+        mu = pt.dot(pm.Data("X", X), beta_raw) + a[pm.Data("record_animal", rec_animal)]
+        for eff, u in effects:
+            mu = mu + u[pm.Data(f"level_{eff.name}", np.asarray(eff.level, dtype=np.int64))]
+        resid = pm.Data("y", np.where(np.isnan(y), 0.0, y)) - mu
+        logp = observed_normal_op(resid, R, pm.Data("record_pattern", pattern),
+                                  pm.Data("observed_patterns", patterns))[0]
+        pm.Potential("records", logp)
     return model
 
 
