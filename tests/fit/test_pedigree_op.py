@@ -16,20 +16,8 @@ import pytest
 
 from ped2g.fit.pedigree_op import down_pedigree, down_product, up_pedigree, up_product
 
+from pedigree.pedigree_oracles import random_parents   # tests/pedigree/ (tests/ is on the path)
 from textbook import P1_A, P1_D, P1_DAM, P1_SIRE, P1_T
-
-
-def random_parents(rng, n, p_unknown):
-    """A parents-first pedigree: each parent drawn among earlier animals (so some are inbred)
-    or unknown (-1)."""
-    sire = np.full(n, -1, dtype=np.int64)
-    dam = np.full(n, -1, dtype=np.int64)
-    for i in range(2, n):
-        if rng.random() > p_unknown:
-            sire[i] = rng.integers(0, i)
-        if rng.random() > p_unknown:
-            dam[i] = rng.integers(0, i)
-    return sire, dam
 
 
 def _with_sentinel(parents, n):

@@ -25,9 +25,7 @@ numba; this kernel is compiled once and cached on disk.
 
 from __future__ import annotations
 
-import hashlib
 import math
-from pathlib import Path
 
 import numba
 import numpy as np
@@ -35,6 +33,8 @@ import pytensor.tensor as pt
 from pytensor.gradient import DisconnectedType
 from pytensor.graph.basic import Apply
 from pytensor.graph.op import Op
+
+from .numba_ops import register_kernel
 
 LOG_2PI = math.log(2.0 * math.pi)
 
@@ -178,21 +178,12 @@ class ObservedNormalLogp(Op):
 observed_normal_op = ObservedNormalLogp()
 
 
-def _register_numba() -> None:
-    from pytensor.link.numba.dispatch.basic import numba_njit, register_funcify_default_op_cache_key
+def _observed_normal(op):
+    def observed_normal(resid, R, pattern, patterns):
+        total, d_resid, dR = observed_normal_logp_and_grad(resid, R, pattern, patterns)
+        return np.asarray(total), d_resid, dR
 
-    # PyTensor caches the compiled function on disk under a key made of the Op's type and this
-    # number: a hash of this module's source, so that a changed kernel is never served stale.
-    source_hash = int(hashlib.sha256(Path(__file__).read_bytes()).hexdigest()[:12], 16)
-
-    @register_funcify_default_op_cache_key(ObservedNormalLogp)
-    def numba_funcify_observed_normal(op, node=None, **kwargs):
-        @numba_njit
-        def observed_normal(resid, R, pattern, patterns):
-            total, d_resid, dR = observed_normal_logp_and_grad(resid, R, pattern, patterns)
-            return np.asarray(total), d_resid, dR
-
-        return observed_normal, source_hash
+    return observed_normal
 
 
-_register_numba()
+register_kernel(ObservedNormalLogp, __file__, _observed_normal)

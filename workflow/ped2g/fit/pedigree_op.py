@@ -21,15 +21,14 @@ parent. A parent that does not come before its offspring is an error (ValueError
 
 from __future__ import annotations
 
-import hashlib
-from pathlib import Path
-
 import numba
 import numpy as np
 import pytensor.tensor as pt
 from pytensor.gradient import DisconnectedType
 from pytensor.graph.basic import Apply
 from pytensor.graph.op import Op
+
+from .numba_ops import register_kernel
 
 
 @numba.njit(cache=True)
@@ -107,25 +106,14 @@ down_product = PedigreeProduct(transpose=False)
 up_product = PedigreeProduct(transpose=True)
 
 
-def _register_numba() -> None:
-    from pytensor.link.numba.dispatch.basic import numba_njit, register_funcify_default_op_cache_key
-
-    # PyTensor caches the compiled function on disk under a key made of the Op's type, its props
-    # (``transpose``) and this number: a hash of this module's source, so that a changed kernel is never served stale.
-    source_hash = int(hashlib.sha256(Path(__file__).read_bytes()).hexdigest()[:12], 16)
-
-    @register_funcify_default_op_cache_key(PedigreeProduct)
-    def numba_funcify_pedigree_product(op, node=None, **kwargs):
-        if op.transpose:
-            @numba_njit
-            def product(m, sire, dam):
-                return up_pedigree(m, sire, dam)
-        else:
-            @numba_njit
-            def product(m, sire, dam):
-                return down_pedigree(m, sire, dam)
-
-        return product, source_hash
+def _product(op):
+    if op.transpose:
+        def product(m, sire, dam):
+            return up_pedigree(m, sire, dam)
+    else:
+        def product(m, sire, dam):
+            return down_pedigree(m, sire, dam)
+    return product
 
 
-_register_numba()
+register_kernel(PedigreeProduct, __file__, _product)

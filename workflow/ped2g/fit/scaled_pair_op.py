@@ -27,9 +27,7 @@ V_i is not positive definite the log-likelihood is -inf (NUTS treats the step as
 
 from __future__ import annotations
 
-import hashlib
 import math
-from pathlib import Path
 
 import numba
 import numpy as np
@@ -37,6 +35,8 @@ import pytensor.tensor as pt
 from pytensor.gradient import DisconnectedType, grad_not_implemented
 from pytensor.graph.basic import Apply
 from pytensor.graph.op import Op
+
+from .numba_ops import register_kernel
 
 LOG_2PI = math.log(2.0 * math.pi)
 
@@ -203,21 +203,12 @@ class ScaledPairLogp(Op):
 scaled_pair_op = ScaledPairLogp()
 
 
-def _register_numba() -> None:
-    from pytensor.link.numba.dispatch.basic import numba_njit, register_funcify_default_op_cache_key
+def _scaled_pair(op):
+    def scaled_pair(resid, lam, G, R):
+        total, d_resid, dG, dR = scaled_pair_logp_and_grad(resid, lam, G, R)
+        return np.asarray(total), d_resid, dG, dR
 
-    # PyTensor caches the compiled function on disk under a key made of the Op's type and this
-    # number: a hash of this module's source, so that a changed kernel is never served stale.
-    source_hash = int(hashlib.sha256(Path(__file__).read_bytes()).hexdigest()[:12], 16)
-
-    @register_funcify_default_op_cache_key(ScaledPairLogp)
-    def numba_funcify_scaled_pair(op, node=None, **kwargs):
-        @numba_njit
-        def scaled_pair(resid, lam, G, R):
-            total, d_resid, dG, dR = scaled_pair_logp_and_grad(resid, lam, G, R)
-            return np.asarray(total), d_resid, dG, dR
-
-        return scaled_pair, source_hash
+    return scaled_pair
 
 
-_register_numba()
+register_kernel(ScaledPairLogp, __file__, _scaled_pair)
