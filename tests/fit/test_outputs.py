@@ -69,3 +69,6 @@ def test_checks_pass_iid_and_miss_shifted_chain():
     assert "G[u,u]" in missed
     msg = outputs.failure_message("p", res)
     assert "G[u,u]" in msg and "R-hat" in msg and "3 divergent" in msg and "target_accept" in msg
+    assert "on_failure: flag" in msg
+    # a fit kept with on_failure: flag is not told to set what is already set
+    assert "on_failure" not in outputs.failure_message("p", res, stopped=False)

@@ -163,6 +163,6 @@ def run(args: argparse.Namespace) -> int:
                            + f" (diagnostics.json and parameters.csv are in {out})")
     if not checks["passed"]:
         log.warning("checks missed but kept (checks.on_failure: flag): %s",
-                    outputs.failure_message(population, checks))
+                    outputs.failure_message(population, checks, stopped=False))
     log.info("wrote %s", out)
     return 0

@@ -170,8 +170,9 @@ def check_convergence(table, checks: dict[str, Any], divergences: int, chains: i
     }
 
 
-def failure_message(population: str, checks: dict[str, Any]) -> str:
-    """One line: which parameters missed which threshold and what to try."""
+def failure_message(population: str, checks: dict[str, Any], stopped: bool = True) -> str:
+    """One line: which parameters missed which threshold and what to try (``stopped``: the fit
+    stopped the workflow, so also say how to keep it instead)."""
     parts = []
     if checks["missed"]:
         shown = "; ".join(f"{m['parameter']} ({', '.join(m['problems'])})" for m in checks["missed"][:4])
@@ -184,8 +185,8 @@ def failure_message(population: str, checks: dict[str, Any]) -> str:
             (", a higher sampling.target_accept (e.g. 0.95) or stronger priors (smaller "
              "model.priors.sd_scale, larger model.priors.lkj_eta)" if not checks["divergences_ok"]
              else ", or stronger priors (smaller model.priors.sd_scale, larger model.priors.lkj_eta)"))
-    return (f"population '{population}': {'; '.join(parts)}; {tips}; or set checks.on_failure: flag "
-            f"to keep the fit and mark it in the report")
+    keep = "; or set checks.on_failure: flag to keep the fit and mark it in the report" if stopped else ""
+    return f"population '{population}': {'; '.join(parts)}; {tips}{keep}"
 
 
 def breeding_value_summary(data: FitData, bv: np.ndarray):
