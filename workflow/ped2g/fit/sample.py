@@ -75,6 +75,20 @@ def _jittered_starts(model, free, chains: int, seed: int) -> list[dict]:
 
 
 @contextmanager
+def _environment(name: str, value: str):
+    """Set the environment variable ``name`` to ``value`` inside the block; restore it after."""
+    before = os.environ.get(name)
+    os.environ[name] = value
+    try:
+        yield
+    finally:
+        if before is None:
+            os.environ.pop(name, None)
+        else:
+            os.environ[name] = before
+
+
+@contextmanager
 def numba_optimisation(level: int | None):
     """Let numba compile with LLVM optimisation ``level`` (its ``NUMBA_OPT``, 0-3) inside the block.
 
@@ -86,16 +100,11 @@ def numba_optimisation(level: int | None):
         return
     from numba.core import config as numba_config
 
-    before = os.environ.get("NUMBA_OPT")
-    os.environ["NUMBA_OPT"] = str(int(level))
-    numba_config.reload_config()
     try:
-        yield
+        with _environment("NUMBA_OPT", str(int(level))):
+            numba_config.reload_config()
+            yield
     finally:
-        if before is None:
-            os.environ.pop("NUMBA_OPT", None)
-        else:
-            os.environ["NUMBA_OPT"] = before
         numba_config.reload_config()
 
 
@@ -114,16 +123,9 @@ def exact_numba_math():
     """
     import pytensor
 
-    before = os.environ.get("PYTENSOR_FLAGS")
-    os.environ["PYTENSOR_FLAGS"] = ",".join(filter(None, [before, "numba__fastmath=False"]))
-    try:
-        with pytensor.config.change_flags(numba__fastmath=False):
-            yield
-    finally:
-        if before is None:
-            os.environ.pop("PYTENSOR_FLAGS", None)
-        else:
-            os.environ["PYTENSOR_FLAGS"] = before
+    flags = ",".join(filter(None, [os.environ.get("PYTENSOR_FLAGS"), "numba__fastmath=False"]))
+    with _environment("PYTENSOR_FLAGS", flags), pytensor.config.change_flags(numba__fastmath=False):
+        yield
 
 
 def _warm_up_jit(nuts, point: dict) -> None:
