@@ -23,6 +23,7 @@ COMMANDS: list[tuple[str, str]] = [
     ("pedigree", "ped2g.pedigree.command"),
     ("fit", "ped2g.fit.command"),
     ("null", "ped2g.null.command"),
+    ("null-refit", "ped2g.null.refit_command"),
     ("compare", "ped2g.compare.command"),
     ("report", "ped2g.report.command"),
 ]

@@ -147,6 +147,20 @@ def load_fit(fit_dir: str | os.PathLike) -> Fit:
                phenotyped=phenotyped, path=fit_dir)
 
 
+def posterior_means(fit_dir: str | os.PathLike) -> dict[str, xr.DataArray]:
+    """The posterior mean of every variable of a fit (original units), labelled.
+
+    Used by the refitting null (:mod:`ped2g.null.refit`), which simulates records from each
+    population's own fixed effects (``fixed``, dims effect x trait), residual covariance ``R`` and
+    extra random-effect covariances (``cov_<name>``). Checks the file as :func:`load_fit` does.
+    """
+    fit_dir = Path(fit_dir)
+    load_fit(fit_dir)   # the checks, with their one-line errors
+    nc = fit_dir / "posterior.nc" if fit_dir.is_dir() else fit_dir
+    with xr.open_dataset(nc, group="posterior", engine="h5netcdf") as post:
+        return {str(name): post[name].mean(("chain", "draw")).load() for name in post.data_vars}
+
+
 def thin_indices(n_draws: int, max_draws: int | None) -> np.ndarray:
     """Evenly spaced indices of at most ``max_draws`` of ``n_draws`` pooled draws (all if None)."""
     if max_draws is None or max_draws >= n_draws:

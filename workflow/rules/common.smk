@@ -226,7 +226,9 @@ STAGE_KEYS = {
     ],
     "fit": ["data", "traits", "fixed", "random", "model", "sampling", "checks"],
     "null": ["traits", "sampling.seed", "compare.null_model", "compare.max_draws"],
-    "compare": ["traits", "sampling.seed", "compare"],
+    "null_refit": ["data", "traits", "fixed", "random", "model", "sampling.seed",
+                   "sampling.target_accept", "compare.null_model"],
+    "compare": ["traits", "sampling.seed", "compare", "checks.max_rhat"],
     "report": None,  # the whole config: the report shows all of it
 }
 
@@ -333,6 +335,60 @@ def fit_outputs(population):
 
 def all_fit_inputs():
     return [path for p in POPULATIONS for path in fit_outputs(p)]
+
+
+# --------------------------------------------------------------------------------------------
+# The null: refitted replicates (the default) or breeding values simulated down the pedigrees
+# --------------------------------------------------------------------------------------------
+
+NULL_KIND = CFG["compare"]["null_model"]["kind"]
+
+
+def refit_replicates():
+    """Replicates of the refitting null: the config's number, or the fewest the reading rule needs."""
+    from ped2g.compare.calibrated import required_replicates
+
+    t = len(CFG["traits"])
+    m = len(POPULATIONS)
+    need = required_replicates(m, t, min(m - 1, t * (t + 1) // 2), float(CFG["compare"]["alpha"]))
+    asked = CFG["compare"]["null_model"]["replicates"]
+    if asked is None:
+        return max(99, need)
+    if int(asked) < need:
+        fail(f"{SOURCE}: key 'compare.null_model.replicates' is {asked}, but with {m} populations "
+             f"and {t} traits the largest family of tests needs at least {need} replicates for a "
+             f"Holm-adjusted p-value to reach compare.alpha = {CFG['compare']['alpha']:g}; raise it "
+             "or leave it null")
+    return int(asked)
+
+
+def refit_chunks():
+    """(first replicate, count) of every job of one population."""
+    total = refit_replicates()
+    size = int(CFG["compare"]["null_model"]["replicates_per_job"])
+    return [(first, min(size, total - first)) for first in range(0, total, size)]
+
+
+def refit_file(population, chunk):
+    return f"{RESULTS}/null/refits/{population}/replicates_{chunk}.nc"
+
+
+def refit_outputs():
+    return [refit_file(p, c) for p in POPULATIONS for c in range(len(refit_chunks()))]
+
+
+def null_outputs():
+    """What the compare stage reads as its null."""
+    if NULL_KIND == "refit":
+        return refit_outputs()
+    return [f"{RESULTS}/null/null_G.nc", f"{RESULTS}/null/summary.json"]
+
+
+def null_options(null_files):
+    """The compare stage's options naming its null."""
+    if NULL_KIND == "refit":
+        return "--refits " + " ".join(shlex.quote(str(f)) for f in null_files)
+    return "--null " + shlex.quote(str(null_files[0]))
 
 
 def report_outputs():

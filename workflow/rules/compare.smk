@@ -1,10 +1,11 @@
-# Stage 4: every comparison of G matrices on every posterior draw, observed and null.
+# Stage 4: every comparison of G matrices on every posterior draw, observed and null; with the
+# refitting null (compare.null_model.kind: refit), every row's calibrated p-value.
 
 
 rule compare:
     input:
         fits=all_fit_inputs(),
-        null=rules.null.output.null,
+        null=null_outputs(),
         config=ancient(EFFECTIVE_CONFIG),
         settings=settings_file("compare"),
     output:
@@ -12,6 +13,7 @@ rule compare:
     params:
         fits=lambda wildcards, input: fit_folders(input.fits),
         out=lambda wildcards, output: folder_of(output.draws),
+        null=lambda wildcards, input: null_options(input.null),
     log:
         f"{LOGS}/compare/compare.log",
     conda:
@@ -23,5 +25,5 @@ rule compare:
     shell:
         stage_shell(
             "compare --config {input.config:q} --fits {params.fits:q} "
-            "--null {input.null:q} --out {params.out:q}"
+            "{params.null} --out {params.out:q}"
         )

@@ -6,7 +6,7 @@ rule report:
     input:
         pedigree=rules.pedigree.output,
         fits=all_fit_inputs(),
-        null=rules.null.output,
+        null=null_outputs(),
         compare=rules.compare.output,
         config=ancient(EFFECTIVE_CONFIG),
         settings=settings_file("report"),
@@ -39,7 +39,7 @@ rule report:
             category="Tables",
         ),
     params:
-        results=lambda wildcards, input: folder_of(folder_of(input.null[0])),
+        results=lambda wildcards, input: folder_of(folder_of(input.compare[0])),
         out=lambda wildcards, output: folder_of(output.html),
     log:
         f"{LOGS}/report/report.log",

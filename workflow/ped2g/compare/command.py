@@ -17,7 +17,9 @@ dimensions and the Riemannian distance on every posterior draw of the population
 on the scale set by compare.scale (original, variance or mean). With --null the same statistics
 are computed on the null's G draws, with the same skewers and reference axes. Writes one tidy CSV
 per method (posterior mean, median, HPD and equal-tailed intervals at compare.interval_mass, the
-same for the null, and the paired probability that the observed statistic exceeds the null one),
+same for the null, and the paired probability that the observed statistic exceeds the null one;
+with --refits, each row's calibrated p-value against the refitting null, Holm-adjusted within its
+family of tests, and the reading rule's verdict),
 loadings.csv and references.csv (the fixed axes and random-direction reference values),
 draw_checks.csv (draws left out because G was not positive definite), draws.nc (every per-draw
 statistic) and summary.json.
@@ -57,6 +59,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--null", metavar="FILE", default=None,
                         help="null_G.nc written by 'ped2g null' (or its folder); without it the null "
                              "columns stay empty")
+    parser.add_argument("--refits", nargs="+", metavar="FILE", default=None,
+                        help="the refitting null's files written by 'ped2g null-refit' (or folders holding "
+                             "them): adds a calibrated p-value to every row that compares populations")
     parser.add_argument("--out", required=True, metavar="DIR", help="folder to write the tables into")
     parser.add_argument("--memory", type=float, default=DEFAULT_MEMORY_MB, metavar="MB",
                         help="memory budget for one chunk of draws, in megabytes")
@@ -84,8 +89,15 @@ def run(args: argparse.Namespace) -> int:
         null = read_null(args.null)
         log.info("read the null %s: %d draws (estimator %s)", args.null, null[0].shape[0],
                  null[4].get("estimator", "unknown"))
+    refits = None
+    if args.refits:
+        from ..null.refit_io import read_refits
+
+        refits = read_refits(args.refits, fits.populations, fits.traits)
+        log.info("read the refitting null: %d replicates of %d populations, %d draws each",
+                 len(refits.replicates), len(refits.populations), refits.G.shape[1])
     result = compare(fits, null, config, budget_bytes=args.memory * 1e6, log=log,
-                     null_path=None if args.null is None else Path(args.null))
+                     null_path=None if args.null is None else Path(args.null), refits=refits)
     write_outputs(result, args.out, CAUTIONS)
     log.info("wrote %s to %s in %.1f s", ", ".join(f"{m}.csv" for m in result.tables), args.out,
              time.perf_counter() - start)

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import logging
 import os
+import warnings
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -19,12 +21,14 @@ import xarray as xr
 
 from .. import __version__
 from ..errors import UserError
+from ..null.refit_io import RefitNull
 from ..posterior import FitSet
 from ..rng import generator
 from . import gmax, scale, skewers, subspace, tensor
 from .matrices import positive_definite, symmetrise
 from .statistics import DrawSet, References, build_references, draw_statistics
-from .summarise import summarise_method
+from .calibrated import READING_RULE, calibrated_columns, required_replicates
+from .summarise import method_draws, summarise_method
 
 #: The methods, in the order :func:`ped2g.compare.statistics.draw_statistics` runs them (one table each).
 METHOD_ORDER = ("skewers", "subspace", "tensor", "gmax", "evolvability", "dimensions", "distance")
@@ -41,6 +45,14 @@ class CompareResult:
     draws: xr.Dataset
     summary: dict[str, Any]
     warnings: list[str] = field(default_factory=list)
+
+
+@contextmanager
+def warnings_off():
+    """Silence numpy's warnings about all-NaN slices (draws left out are NaN by design)."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        yield
 
 
 NullInput = tuple[np.ndarray, list[str], list[str], np.ndarray, dict[str, Any]]
@@ -97,8 +109,119 @@ def _count_invalid(valid: np.ndarray, source: str, populations: list[str],
     return rows
 
 
+def prepare_draws(G: np.ndarray, P: np.ndarray, mean: np.ndarray, scale_name: str, pops: list[str],
+                  traits: list[str]) -> tuple[DrawSet, np.ndarray, np.ndarray]:
+    """Draws (S, m, ...) of G, P and means ready for the methods: on the comparison scale, on the
+    pooled scale, the divergence of means and which G are positive definite.
+
+    The observed fits and every replicate of the refitting null go through this one function.
+    Returns the draw set, the pooled scale factors (S, t) and the means on the pooled scale.
+    """
+    factors = scale.scale_factors(P, mean, scale_name, pops, traits)
+    pooled = scale.pooled_factors(P, mean, scale_name)
+    means_common = mean / pooled[:, None, :]
+    draws = DrawSet(G=scale.standardise(G, factors), G_common=scale.standardise(G, pooled[:, None, :]),
+                    divergence=gmax.divergence_axis(means_common), valid=positive_definite(G))
+    return draws, pooled, means_common
+
+
+def _references(draws: DrawSet, config: dict[str, Any], k: int) -> References:
+    """The skewers (one fixed set from the run seed) and the reference axes of ``draws``."""
+    return build_references(draws, int(config["compare"]["skewers"]), k,
+                            generator(int(config["sampling"]["seed"]), "compare", "skewers"))
+
+
+def _row_estimates(stats: dict[str, xr.DataArray], methods: list[str]) -> tuple[np.ndarray, np.ndarray]:
+    """Posterior mean of every row of the tables (methods in ``methods`` order) and its Monte Carlo
+    standard error by batch means (10 batches of consecutive draws)."""
+    x = np.concatenate([method_draws({n: a for n, a in stats.items() if a.attrs["method"] == meth})
+                        for meth in methods], axis=1)
+    with np.errstate(invalid="ignore"), warnings_off():
+        est = np.nanmean(x, axis=0)
+        batches = np.array_split(x, min(10, x.shape[0]), axis=0)
+        bm = np.stack([np.nanmean(b, axis=0) for b in batches])
+        mcse = np.nanstd(bm, axis=0, ddof=1) / np.sqrt(len(batches))
+    return est, mcse
+
+
+def _calibrate(tables: dict[str, pd.DataFrame], stats_obs: dict[str, xr.DataArray], refits: RefitNull,
+               fits: FitSet, config: dict[str, Any], k: int, budget_bytes: float,
+               log: logging.Logger) -> tuple[dict[str, pd.DataFrame], dict[str, Any]]:
+    """Every statistic's estimate on every replicate of the refitting null, and the calibrated
+    test of every row (:mod:`ped2g.compare.calibrated`)."""
+    import time
+
+    cfg = config["compare"]
+    pops, traits = fits.populations, fits.traits
+    if refits.populations != pops or refits.traits != traits:
+        raise UserError(f"the refitting null has populations {refits.populations} and traits {refits.traits}; "
+                        f"the fits have {pops} and {traits}; rerun 'ped2g null-refit'")
+    methods = list(tables)
+    stacked = pd.concat([tables[m] for m in methods], ignore_index=True)
+    n_rows = len(stacked)
+    Rn = len(refits.replicates)
+    alpha = float(cfg["alpha"])
+    n_eig = int(stats_obs["tensor_variance"].sizes["eigentensor"])
+    need = required_replicates(len(pops), len(traits), n_eig, alpha)
+    if Rn < need:
+        raise UserError(f"the refitting null has {Rn} replicates, but with {len(pops)} populations the "
+                        f"largest family of tests needs at least {need} for a Holm-adjusted p-value to "
+                        f"reach compare.alpha = {alpha:g}; set compare.null_model.replicates to {need} or "
+                        "more (or leave it null)")
+    estimates = np.full((Rn, n_rows), np.nan)
+    mcse = np.full((Rn, n_rows), np.nan)
+    failed = 0
+    start = last = time.perf_counter()
+    for r in range(Rn):
+        draws, _, _ = prepare_draws(refits.G[r], refits.P[r], refits.mean[r], cfg["scale"], pops, traits)
+        if not draws.valid.all(axis=1).any():
+            failed += 1
+            continue
+        refs = _references(draws, config, k)
+        stats = draw_statistics(draws, refs, pops, traits, budget_bytes)
+        est, se = _row_estimates(stats, methods)
+        if est.shape[0] != n_rows:
+            raise RuntimeError("replicate rows do not match the observed rows")
+        estimates[r], mcse[r] = est, se
+        now = time.perf_counter()
+        if now - last >= 20:
+            log.info("statistics of %d of %d null replicates computed", r + 1, Rn)
+            last = now
+    log.info("statistics of %d null replicates in %.1f s", Rn, time.perf_counter() - start)
+    out = calibrated_columns(stacked, estimates, alpha, float(cfg["interval_mass"]))
+    # Monte Carlo error of the estimator against the spread of the null (per tested row).
+    tested = out["p_value"].notna().to_numpy()
+    with np.errstate(invalid="ignore", divide="ignore"), warnings_off():
+        ratio = np.nanmean(mcse, axis=0) / np.nanstd(estimates, axis=0, ddof=1)
+    ratio = ratio[tested & np.isfinite(ratio)]
+    diag = refits.diagnostics
+    rhat_limit = float(config["checks"]["max_rhat"])
+    summary = {
+        "replicates": Rn, "replicates_needed": need, "replicates_without_statistics": failed,
+        "shared_G": refits.shared_G.tolist(),
+        "chains": refits.attrs.get("chains"), "warmup": refits.attrs.get("warmup"),
+        "draws": refits.attrs.get("draws"), "engine": refits.attrs.get("engine"),
+        "mcse_over_null_sd_median": float(np.median(ratio)) if len(ratio) else None,
+        "mcse_over_null_sd_max": float(np.max(ratio)) if len(ratio) else None,
+        "refits_over_max_rhat": int((diag["rhat_max"] > rhat_limit).sum()),
+        "refits": int(len(diag)),
+        "refit_ess_bulk_min_median": float(diag["ess_bulk_min"].median()),
+        "refit_divergences": int(diag["divergences"].sum()),
+        "refit_seconds_median": float(diag["seconds"].median()),
+        "adjustment": "Holm within each family of tests",
+        "reading_rule": READING_RULE.format(alpha=alpha),
+    }
+    if failed:
+        log.warning("%d of %d null replicates had no draw with every G positive definite; left out", failed, Rn)
+    sizes = [len(tables[m]) for m in methods]
+    bounds = np.cumsum([0, *sizes])
+    return ({m: out.iloc[bounds[i]:bounds[i + 1]].reset_index(drop=True) for i, m in enumerate(methods)},
+            summary)
+
+
 def compare(fits: FitSet, null: NullInput | None, config: dict[str, Any], budget_bytes: float = 512e6,
-            log: logging.Logger | None = None, null_path: Path | None = None) -> CompareResult:
+            log: logging.Logger | None = None, null_path: Path | None = None,
+            refits: RefitNull | None = None) -> CompareResult:
     """Run every comparison on the observed draws of ``fits`` and on the ``null`` draws.
 
     Parameters
@@ -124,30 +247,23 @@ def compare(fits: FitSet, null: NullInput | None, config: dict[str, Any], budget
     for name in ("G", "P", "mean"):
         _check_finite(f"fit {name}", getattr(fits, name), pops)
 
-    factors = scale.scale_factors(fits.P, fits.mean, scale_name, pops, traits)
-    pooled = scale.pooled_factors(fits.P, fits.mean, scale_name)
-    G_obs = scale.standardise(fits.G, factors)
-    G_common = scale.standardise(fits.G, pooled[:, None, :])
-    means_common = fits.mean / pooled[:, None, :]
-    divergence = gmax.divergence_axis(means_common)
-    n_no_div = int(np.isnan(divergence).any(axis=-1).sum())
+    obs, pooled, means_common = prepare_draws(fits.G, fits.P, fits.mean, scale_name, pops, traits)
+    n_no_div = int(np.isnan(obs.divergence).any(axis=-1).sum())
     if n_no_div:
         warnings.append(f"{n_no_div} of {S} draws have identical population means; the angle to "
                         "divergence is left out on them")
-    valid = positive_definite(fits.G)
+    valid = obs.valid
     checks = _count_invalid(valid, "observed", pops, log)
     if not valid.all(axis=1).any():
         raise UserError("no posterior draw has a positive-definite G in every population, so the "
                         "statistics of the whole set cannot be computed; check the fits")
-    obs = DrawSet(G=G_obs, G_common=G_common, divergence=divergence, valid=valid)
 
     k, warn = subspace.check_dims(cfg["subspace_dims"], t)
     if warn:
         warnings.append(warn)
     for w in warnings:
         log.warning(w)
-    refs = build_references(obs, int(cfg["skewers"]), k,
-                            generator(int(config["sampling"]["seed"]), "compare", "skewers"))
+    refs = _references(obs, config, k)
     stats_obs = draw_statistics(obs, refs, pops, traits, budget_bytes)
 
     stats_null = pair = None
@@ -157,7 +273,7 @@ def compare(fits: FitSet, null: NullInput | None, config: dict[str, Any], budget
         valid0 = positive_definite(G0)
         checks += _count_invalid(valid0, "null_model", pops, log)
         G0s = scale.standardise(G0, pooled[pair][:, None, :])
-        null_set = DrawSet(G=G0s, G_common=G0s, divergence=divergence[pair], valid=valid0)
+        null_set = DrawSet(G=G0s, G_common=G0s, divergence=obs.divergence[pair], valid=valid0)
         stats_null = draw_statistics(null_set, refs, pops, traits, budget_bytes)
 
     tables = {}
@@ -166,6 +282,9 @@ def compare(fits: FitSet, null: NullInput | None, config: dict[str, Any], budget
         tables[method] = summarise_method({n: stats_obs[n] for n in names},
                                           None if stats_null is None else {n: stats_null[n] for n in names},
                                           pair, mass, scale_name)
+    refit_summary: dict[str, Any] = {}
+    if refits is not None:
+        tables, refit_summary = _calibrate(tables, stats_obs, refits, fits, config, k, budget_bytes, log)
     refs_table = reference_table(refs, m, t, S, mass)
     loadings = loadings_table(refs, pops, traits, means_common)
     draws = draws_dataset(stats_obs, stats_null, fits, pair, refs, traits, pops)
@@ -179,6 +298,9 @@ def compare(fits: FitSet, null: NullInput | None, config: dict[str, Any], budget
         "seed": int(config["sampling"]["seed"]),
         "not_positive_definite": {f"{r['source']}:{r['population']}": r["n_not_positive_definite"] for r in checks},
         "null_estimator": null_attrs.get("estimator"),
+        "null_kind": "refit" if refits is not None else ("breeding_values" if null is not None else None),
+        "alpha": float(cfg["alpha"]),
+        "refit_null": refit_summary or None,
         "null_cautions": [str(c) for c in np.atleast_1d(null_attrs.get("cautions", []))],
         "warnings": warnings,
         "fits": [{"path": str(f.path), "sha256": _sha256(Path(f.path) / "posterior.nc")} for f in fits.fits],

@@ -147,11 +147,33 @@ def summarise_statistic(obs: xr.DataArray, null: xr.DataArray | None, pair: np.n
         rows.loc[rows[["hpd_lower", "null_hpd_lower"]].isna().any(axis=1), "hpd_overlap"] = pd.NA
     rows["interval_mass"] = mass
     rows["description"] = obs.attrs.get("description", "")
-    if obs.attrs.get("pairs") == "upper":
-        order = {p: i for i, p in enumerate(obs["population"].values.tolist())}
-        keep = rows["population"].map(order) < rows["population2"].map(order)
-        rows = rows[keep.to_numpy()]
+    rows = rows[_kept(obs)]
     return rows.reindex(columns=COLUMNS).reset_index(drop=True)
+
+
+def _kept(obs: xr.DataArray) -> np.ndarray:
+    """Which of the flattened cells of ``obs`` (after the draw axis) become rows: every cell, or
+    for pairwise statistics each unordered pair once."""
+    n = int(np.prod(obs.shape[1:]))
+    if obs.attrs.get("pairs") != "upper":
+        return np.ones(n, dtype=bool)
+    dims = list(obs.dims[1:])
+    i = np.arange(obs.sizes["population"])
+    grids = np.meshgrid(*[i if d in ("population", "population2") else np.arange(obs.sizes[d])
+                          for d in dims], indexing="ij")
+    pos = {d: g.reshape(-1) for d, g in zip(dims, grids)}
+    return pos["population"] < pos["population2"]
+
+
+def statistic_draws(obs: xr.DataArray) -> np.ndarray:
+    """The draws of one statistic as (S, rows), rows in the order of :func:`summarise_statistic`."""
+    x = obs.values.reshape(obs.sizes["draw"], -1)
+    return x[:, _kept(obs)]
+
+
+def method_draws(obs: dict[str, xr.DataArray]) -> np.ndarray:
+    """Every statistic of one method as (S, rows), rows in the order of :func:`summarise_method`."""
+    return np.concatenate([statistic_draws(arr) for arr in obs.values()], axis=1)
 
 
 def summarise_method(obs: dict[str, xr.DataArray], null: dict[str, xr.DataArray] | None,

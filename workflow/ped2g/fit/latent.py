@@ -209,6 +209,25 @@ def build_model(data: FitData, model_config: dict, animal_effect=None):
     return model
 
 
+def with_records(data: FitData, y: np.ndarray, center: np.ndarray, scale: np.ndarray) -> FitData:
+    """A copy of ``data`` with other standardised records ``y`` (same animals, design and missing
+    cells); used to refit simulated data sets on one population's design."""
+    import copy
+
+    new = copy.copy(data)
+    new.y = np.where(data.missing, np.nan, y)
+    new.y_center, new.y_scale = np.asarray(center, dtype=float), np.asarray(scale, dtype=float)
+    return new
+
+
+def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
+    """The model's data that change when only the records change (for ``compiled.with_data``);
+    empty with fixed covariances, which the model holds on the records' standardised scale."""
+    if model_config.get("fixed_covariances"):
+        return {}
+    return {"y": np.where(np.isnan(data.y), 0.0, np.asarray(data.y, dtype=float))}
+
+
 def _pooled(idata, name: str) -> np.ndarray:
     values = np.asarray(idata.posterior[name].values)
     return values.reshape((-1,) + values.shape[2:])

@@ -337,3 +337,33 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
         x = lu.solve(padded.reshape(n_all, S * t)).reshape(n_all, S, t)
         out[sl] = prior + np.einsum("ast,stv->sav", x, G[sl])
     return out
+
+
+def with_records(data: FitData, y: np.ndarray, center: np.ndarray, scale: np.ndarray) -> FitData:
+    """A copy of ``data`` with other standardised records ``y`` (same animals, design and missing
+    cells), sharing the eigendecomposition: only the rotated records ``U'y`` are recomputed.
+
+    Used to refit simulated data sets on one population's design (:mod:`ped2g.null.refit`).
+    """
+    import copy
+
+    new = copy.copy(data)
+    new.y = np.where(data.missing, np.nan, y)
+    new.y_center, new.y_scale = np.asarray(center, dtype=float), np.asarray(scale, dtype=float)
+    rot = copy.copy(rotation(data))
+    rot.rot_y = rot.U.T @ np.where(data.missing, 0.0, new.y)
+    object.__setattr__(new, "_marginal_rotation", rot)
+    return new
+
+
+def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
+    """The model's data that change when only the records change (for ``compiled.with_data``).
+
+    Empty when a model built for other records cannot be reused: the Gibbs route for missing
+    values (its model holds the records as the initial value of a sampled variable) and fixed
+    covariances (converted to the standardised scale of the records when the model is built).
+    Callers then build a model per data set.
+    """
+    if missing_mode(data, model_config) == "gibbs" or model_config.get("fixed_covariances"):
+        return {}
+    return {"rot_y": rotation(data).rot_y}

@@ -124,6 +124,22 @@ def design_matrix(frame: pd.DataFrame, fixed: dict[str, str], source: str
     return X, names, np.asarray(scales), notes
 
 
+def standardise(Y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Centre each trait on the mean of its observed records and divide by their SD (ddof 1).
+
+    Returns ``(y, center, scale)`` with ``y = (Y - center) / scale`` (NaN stays NaN). The fit
+    and the refitting null (:mod:`ped2g.null.refit`) standardise records through this one
+    function, so a simulated data set is put on its scale exactly as observed records are.
+    """
+    center = np.zeros(Y.shape[1])
+    scale = np.ones(Y.shape[1])
+    for j in range(Y.shape[1]):
+        obs = Y[~np.isnan(Y[:, j]), j]
+        center[j] = float(np.mean(obs))
+        scale[j] = float(np.std(obs, ddof=1))
+    return (Y - center) / scale, center, scale
+
+
 def prepare(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree: Pedigree, population: str,
             source: str = "phenotype table", logger: logging.Logger | None = None) -> FitData:
     """Prepare one population's data for an engine.
@@ -214,21 +230,16 @@ def prepare(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree: Pedigree
                                     levels=[str(v) for v in levels]))
 
     n_params = X.shape[1] + 2 + len(effects)
-    center = np.zeros(len(traits))
-    scale = np.ones(len(traits))
     for j, t in enumerate(traits):
         obs = Y[~np.isnan(Y[:, j]), j]
         if len(obs) <= n_params:
             raise UserError(f"trait '{t}' has {len(obs)} records in population '{population}', not more "
                             f"than the {n_params} parameters per trait of the model (intercept, fixed "
                             f"effects, variances); add records or drop fixed/random effects")
-        sd = float(np.std(obs, ddof=1))
-        if not sd > 0:
+        if not float(np.std(obs, ddof=1)) > 0:
             raise UserError(f"trait '{t}' has no variance in population '{population}' (every record is "
                             f"{obs[0]:g}); remove it from config key 'traits'")
-        center[j] = float(np.mean(obs))
-        scale[j] = sd
-    y = (Y - center) / scale
+    y, center, scale = standardise(Y)
     for note in notes:
         log.info("population %s: %s", population, note)
     return FitData(population=population, traits=traits, pedigree=ped, phenotyped=phenotyped,

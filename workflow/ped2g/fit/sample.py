@@ -168,6 +168,18 @@ def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int
     return idata, compile_seconds, time.perf_counter() - start
 
 
+def compile_nutpie(model, numba_opt_level: int | None = None):
+    """Compile ``model`` for nutpie once, as :func:`run` would, to reuse with other data.
+
+    ``compiled.with_data(name=array, ...)`` then swaps the values of the model's ``pm.Data``
+    without compiling again; pass the result to :func:`run` as ``compiled``.
+    """
+    import nutpie
+
+    with numba_optimisation(numba_opt_level), exact_numba_math():
+        return nutpie.compile_pymc_model(model, backend="numba")
+
+
 def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
         compiled=None, nutpie_options: dict[str, Any] | None = None,
         extra_steps: list | None = None, numba_opt_level: int | None = None) -> SamplingRun:

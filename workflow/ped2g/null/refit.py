@@ -1,0 +1,245 @@
+"""The refitting null: replicate studies simulated under one shared G and refitted like the data.
+
+"Do the populations' G matrices differ by more than estimation alone would give?" is answered by
+a parametric bootstrap under the hypothesis that every population shares one G (the approach
+recommended by Morrissey, Hangartner & Monro 2019, *Evolution* 73:2512-2517, recalled from
+memory; see docs/methods.md, "The refitting null"):
+
+1. **The shared G** is the mean over populations of their posterior-mean G (original units): a
+   matrix every population's data are compatible with when the hypothesis holds, weighting the
+   populations equally.
+2. **Replicate r, population p**: records are simulated on p's own design -- its pruned pedigree,
+   its records and their missing cells, its fixed-effect rows, its extra random-effect levels --
+   as ``y = X b_p + a + sum_c Z_c u_c + e`` with ``a ~ MVN(0, G_shared (x) A_p)``,
+   ``u_c ~ MVN(0, C_pc (x) I)`` and ``e ~ MVN(0, R_p)``, where ``b_p``, ``C_pc`` and ``R_p`` are
+   p's posterior means. Only G is shared; everything else stays each population's own.
+3. **The refit** standardises the simulated records as the fit does
+   (:func:`ped2g.fit.prepare.standardise`) and fits them with the same engine, model and priors
+   as the observed fit, with shorter chains (``compare.null_model.refit``). Where the engine
+   allows, the model is compiled once and each replicate only swaps its records in
+   (``compiled.with_data``); the marginal engine's eigendecomposition is computed once.
+4. The replicate's G, P and mean draws (original units) are kept; the compare stage computes
+   every statistic on replicate r's populations exactly as on the observed fits, and its
+   posterior mean is one draw from the null distribution of that statistic's estimate.
+
+Random streams: replicate r of population p draws its records from
+``rng.generator(seed, "null_refit", p, r)`` and seeds its sampler from the name
+``null_refit:p:r``, so a replicate's numbers do not depend on how replicates are split into jobs.
+"""
+
+from __future__ import annotations
+
+import importlib
+import logging
+import time
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ..errors import UserError
+from ..fit.data import FitData
+from ..fit.prepare import standardise
+
+
+def shared_G(posterior_mean_G: list[np.ndarray]) -> np.ndarray:
+    """The G every population shares under the null: the mean of the posterior-mean G matrices."""
+    G = np.mean(np.asarray(posterior_mean_G, dtype=float), axis=0)
+    return 0.5 * (G + G.T)
+
+
+def _factor(C: np.ndarray) -> np.ndarray:
+    """A square root L with L L' = C (Cholesky, or the eigen square root if C is singular)."""
+    C = 0.5 * (np.asarray(C, dtype=float) + np.asarray(C, dtype=float).T)
+    try:
+        return np.linalg.cholesky(C)
+    except np.linalg.LinAlgError:
+        w, v = np.linalg.eigh(C)
+        return v * np.sqrt(np.clip(w, 0.0, None))
+
+
+@dataclass
+class DesignParameters:
+    """What a population keeps of its own fit when its records are simulated under the null.
+
+    Attributes
+    ----------
+    mu : numpy.ndarray, shape (n_records, t)
+        Fixed part of each record (posterior-mean fixed effects), original units.
+    R : numpy.ndarray, shape (t, t)
+        Posterior-mean residual covariance, original units.
+    covariances : list of numpy.ndarray
+        Posterior-mean covariance of each extra random effect (order of ``FitData.random``).
+    """
+
+    mu: np.ndarray
+    R: np.ndarray
+    covariances: list[np.ndarray] = field(default_factory=list)
+
+
+def design_parameters(data: FitData, means: dict[str, Any]) -> DesignParameters:
+    """Posterior means of a fit (:func:`ped2g.posterior.posterior_means`) on ``data``'s design.
+
+    The fit reports fixed effects in original units, ``fixed[x, j] = s_j beta[x, j] / x_scale[x]``
+    and the intercept ``c_j + s_j beta[0, j]`` (:mod:`ped2g.fit.outputs`), so the fixed part of
+    record r is ``sum_x X[r, x] x_scale[x] fixed[x, j]`` (x_scale[0] = 1, X[:, 0] = 1).
+    """
+    fixed = means["fixed"]
+    effects = [str(e) for e in fixed["effect"].values]
+    if effects != list(data.x_names):
+        raise UserError(f"population '{data.population}': its fit has fixed effects {effects}, but the "
+                        f"config and phenotype table now give {list(data.x_names)}; rerun 'ped2g fit'")
+    x_scale = data.x_scale if data.x_scale is not None else np.ones(len(data.x_names))
+    mu = data.X @ (np.asarray(fixed.values, dtype=float) * x_scale[:, None])
+    covs = []
+    for eff in data.random:
+        name = f"cov_{eff.name}"
+        if name not in means:
+            raise UserError(f"population '{data.population}': its fit has no covariance of random effect "
+                            f"'{eff.name}'; rerun 'ped2g fit' with this config")
+        covs.append(np.asarray(means[name].values, dtype=float))
+    return DesignParameters(mu=mu, R=np.asarray(means["R"].values, dtype=float), covariances=covs)
+
+
+def simulate_records(data: FitData, G: np.ndarray, params: DesignParameters,
+                     rng: np.random.Generator) -> np.ndarray:
+    """Records on ``data``'s design with genetic covariance ``G`` (original units).
+
+    Returns an array (n_records, t) with NaN exactly where ``data`` has missing cells. Breeding
+    values are simulated down the pruned pedigree (:func:`ped2g.simulate.breeding_values.
+    simulate_breeding_values`), so their covariance is ``G (x) A``.
+    """
+    from ..simulate.breeding_values import simulate_breeding_values
+
+    n, t = data.n_records, data.n_traits
+    a = simulate_breeding_values(data.pedigree, G, rng)[0]
+    Y = params.mu + a[data.record_animal]
+    for eff, C in zip(data.random, params.covariances):
+        u = rng.standard_normal((eff.n_levels, t)) @ _factor(C).T
+        Y = Y + u[eff.level]
+    Y = Y + rng.standard_normal((n, t)) @ _factor(params.R).T
+    Y[data.missing] = np.nan
+    return Y
+
+
+@dataclass
+class Replicate:
+    """One refitted replicate of one population (original units, draws pooled chain-major)."""
+
+    G: np.ndarray        # (S, t, t)
+    P: np.ndarray        # (S, t, t)
+    mean: np.ndarray     # (S, t)
+    rhat_max: float      # largest split R-hat over the elements of G
+    ess_bulk_min: float  # smallest bulk ESS over the elements of G
+    ess_tail_min: float
+    divergences: int
+    seconds: float
+
+
+class Refitter:
+    """Refits simulated records on one population's design with its observed fit's engine.
+
+    Parameters
+    ----------
+    data
+        The population's prepared data (:func:`ped2g.fit.prepare.prepare`).
+    engine_name
+        ``marginal`` or ``latent``: the engine the observed fit ran (its diagnostics.json).
+    config
+        The validated config (``model``, ``sampling.seed``, ``compare.null_model.refit``).
+    """
+
+    def __init__(self, data: FitData, engine_name: str, config: dict[str, Any],
+                 log: logging.Logger | None = None):
+        self.log = log or logging.getLogger("ped2g.null_refit")
+        self.data = data
+        self.engine = importlib.import_module(f"ped2g.fit.{engine_name}")
+        self.model_config = config["model"]
+        refit = config["compare"]["null_model"]["refit"]
+        self.sampling = {"sampler": "nutpie", "chains": int(refit["chains"]), "warmup": int(refit["warmup"]),
+                         "draws": int(refit["draws"]), "seed": int(config["sampling"]["seed"]),
+                         "target_accept": float(config["sampling"]["target_accept"])}
+        self.model = None
+        self.compiled = None
+        self.compile_seconds = 0.0
+        if self.engine.data_values(data, self.model_config):
+            from ..fit import sample
+
+            start = time.perf_counter()
+            self.model = self.engine.build_model(data, self.model_config)
+            self.compiled = sample.compile_nutpie(self.model, getattr(self.engine, "NUMBA_OPT_LEVEL", None))
+            self.compile_seconds = time.perf_counter() - start
+            self.log.info("compiled the %s engine's model once for every replicate in %.1f s",
+                          engine_name, self.compile_seconds)
+        else:
+            self.log.info("the %s engine builds a model per replicate here (Gibbs step for missing "
+                          "values or fixed covariances)", engine_name)
+
+    def refit(self, Y: np.ndarray, name: str) -> Replicate:
+        """Fit records ``Y`` (original units, NaN where missing) and return the replicate's draws."""
+        import arviz as az
+
+        from ..fit import outputs, sample
+
+        start = time.perf_counter()
+        y, center, scale = standardise(Y)
+        new = self.engine.with_records(self.data, y, center, scale)
+        level = getattr(self.engine, "NUMBA_OPT_LEVEL", None)
+        options = getattr(self.engine, "NUTPIE_OPTIONS", None)
+        if self.compiled is not None:
+            compiled = self.compiled.with_data(**self.engine.data_values(new, self.model_config))
+            run = sample.run(self.model, self.sampling, name, progress=False, compiled=compiled,
+                             nutpie_options=options, numba_opt_level=level)
+        else:
+            model = self.engine.build_model(new, self.model_config)
+            extra = self.engine.extra_steps(model, new) if hasattr(self.engine, "extra_steps") else []
+            run = sample.run(model, self.sampling, name, progress=False, nutpie_options=options,
+                             extra_steps=extra, numba_opt_level=level)
+        core, _ = outputs.original_units(new, run.idata)
+        t = self.data.n_traits
+        lower = np.tril_indices(t)
+        g = run.idata.posterior[["G"]]
+        if g.sizes["chain"] == 1:   # split one chain in halves, so that split R-hat is defined
+            half = g.sizes["draw"] // 2
+            g = g.isel(draw=slice(0, 2 * half)).coarsen(draw=half).construct(draw=("chain_half", "draw_half"))
+            g = g.isel(chain=0).rename(chain_half="chain", draw_half="draw")
+        rhat = np.asarray(az.rhat(g)["G"].values)[lower]
+        ess_b = np.asarray(az.ess(g, method="bulk")["G"].values)[lower]
+        ess_t = np.asarray(az.ess(g, method="tail")["G"].values)[lower]
+
+        def pooled(a: np.ndarray) -> np.ndarray:
+            return a.reshape(-1, *a.shape[2:])
+
+        return Replicate(G=pooled(core["G"]), P=pooled(core["P"]), mean=pooled(core["mean"]),
+                         rhat_max=float(np.nanmax(rhat)), ess_bulk_min=float(np.nanmin(ess_b)),
+                         ess_tail_min=float(np.nanmin(ess_t)), divergences=int(run.info["divergences"]),
+                         seconds=time.perf_counter() - start)
+
+
+def replicate_name(population: str, replicate: int) -> str:
+    """The name a replicate's sampler seed is derived from (see the module docstring)."""
+    return f"null_refit:{population}:{int(replicate)}"
+
+
+def run_replicates(data: FitData, engine_name: str, config: dict[str, Any], G: np.ndarray,
+                   params: DesignParameters, replicates: list[int],
+                   log: logging.Logger | None = None) -> list[Replicate]:
+    """Simulate and refit the given replicate numbers of one population; progress to ``log``."""
+    from ..rng import generator
+
+    log = log or logging.getLogger("ped2g.null_refit")
+    seed = int(config["sampling"]["seed"])
+    refitter = Refitter(data, engine_name, config, log)
+    out = []
+    start = time.perf_counter()
+    last = start
+    for i, r in enumerate(replicates, 1):
+        Y = simulate_records(data, G, params, generator(seed, "null_refit", data.population, int(r)))
+        out.append(refitter.refit(Y, replicate_name(data.population, r)))
+        now = time.perf_counter()
+        if now - last >= 20 or i == len(replicates):
+            left = (now - start) / i * (len(replicates) - i)
+            log.info("population %s: %d of %d replicates refitted (%.1f s each, about %.0f s left)",
+                     data.population, i, len(replicates), (now - start) / i, left)
+            last = now
+    return out

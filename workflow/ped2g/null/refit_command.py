@@ -1,0 +1,105 @@
+"""``ped2g null-refit``: simulate one population's records under the shared G and refit them."""
+
+from __future__ import annotations
+
+import argparse
+import json
+import time
+from pathlib import Path
+
+from ..cli_options import add_config_and_fits
+
+HELP = "refitting null: simulate a population's records under one shared G and refit them (a chunk of replicates)"
+
+DESCRIPTION = """\
+Under the hypothesis that every population shares one G (the mean of the fits' posterior-mean G
+matrices), simulate replicate data sets on the design of --population (its pedigree, records,
+missing cells, fixed effects, residual and extra random-effect covariances from its own fit) and
+refit each with the engine, model and priors of its observed fit and the shorter chains of
+compare.null_model.refit. Replicates --first to --first + --count - 1; replicate r of every
+population makes one simulated study, so run the same replicates for every population. Writes one
+netCDF file (--out) with the refits' G, P and mean draws and their convergence figures; the
+compare stage reads these files (--refits) to give each statistic a calibrated p-value."""
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    add_config_and_fits(parser)
+    parser.add_argument("--population", required=True, help="the population whose design is simulated")
+    parser.add_argument("--pedigree", default=None,
+                        help="clean pedigree: the pedigree stage's folder or its pedigree.csv "
+                             "(default: clean the config's data.pedigree here)")
+    parser.add_argument("--first", type=int, default=0, help="first replicate number (default 0)")
+    parser.add_argument("--count", type=int, default=None,
+                        help="number of replicates (default: compare.null_model.replicates)")
+    parser.add_argument("--out", required=True, metavar="FILE", help="netCDF file to write")
+
+
+def fit_engine(fit_dir: Path, population: str, on_failure: str = "stop", log=None) -> str:
+    """The engine the observed fit ran, after checking that the fit passed its checks (a fit kept
+    under ``checks.on_failure: flag`` is used with a warning)."""
+    from ..errors import UserError
+
+    path = Path(fit_dir) / "diagnostics.json"
+    try:
+        diag = json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        raise UserError(f"fit of population '{population}': {path} is missing or unreadable; rerun 'ped2g fit'") from None
+    if not diag.get("checks", {}).get("passed", False):
+        if on_failure == "flag":
+            if log is not None:
+                log.warning("population %s missed its fit checks (kept under checks.on_failure: flag); "
+                            "its refits and p-values are only as sound as that fit", population)
+            return str(diag["engine"])
+        raise UserError(f"population '{population}' missed its fit checks ({path}); the refitting null "
+                        "needs fits that pass them: rerun that fit with longer chains (sampling.draws), "
+                        "or set compare.null_model.kind: breeding_values (descriptive only)")
+    return str(diag["engine"])
+
+
+def run(args: argparse.Namespace) -> int:
+    from .. import __version__
+    from ..config import load_config
+    from ..errors import UserError
+    from ..fit.command import load_pedigree
+    from ..fit.prepare import prepare
+    from ..io import get_logger, read_table
+    from ..posterior import load_fit, posterior_means
+    from .refit import design_parameters, run_replicates, shared_G
+    from .refit_io import write_chunk
+
+    log = get_logger("null_refit")
+    start = time.perf_counter()
+    config = load_config(args.config)
+    null_cfg = config["compare"]["null_model"]
+    count = int(null_cfg["replicates"]) if args.count is None else args.count
+    if args.first < 0 or count < 1:
+        raise UserError(f"--first must be 0 or more and --count 1 or more, got {args.first} and {count}")
+    fits = {}
+    for d in args.fits:
+        fit = load_fit(d)
+        fits[fit.population] = fit
+    population = str(args.population)
+    if population not in fits:
+        raise UserError(f"population '{population}' has no fit among --fits ({', '.join(fits)})")
+    engines = {p: fit_engine(f.path, p, config["checks"]["on_failure"], log) for p, f in fits.items()}
+    G = shared_G([f.G.mean(axis=0) for f in fits.values()])
+    log.info("shared G under the null: the mean of the posterior-mean G of %s", ", ".join(fits))
+
+    phen_path = config["data"]["phenotypes"]
+    phenotypes = read_table(phen_path, "phenotype table")
+    pedigree = load_pedigree(args.pedigree, config)
+    data = prepare(config, phenotypes, pedigree, population, source=str(phen_path), logger=log)
+    params = design_parameters(data, posterior_means(fits[population].path))
+    replicates = list(range(args.first, args.first + count))
+    log.info("population %s: refitting replicates %d-%d (%d records, %d missing cells, engine %s, "
+             "%d chain(s) x (%d + %d))", population, replicates[0], replicates[-1], data.n_records,
+             int(data.missing.sum()), engines[population], null_cfg["refit"]["chains"],
+             null_cfg["refit"]["warmup"], null_cfg["refit"]["draws"])
+    results = run_replicates(data, engines[population], config, G, params, replicates, log)
+    attrs = {"engine": engines[population], "shared_G": G.ravel().tolist(),
+             "seed": int(config["sampling"]["seed"]), "chains": int(null_cfg["refit"]["chains"]),
+             "warmup": int(null_cfg["refit"]["warmup"]), "draws": int(null_cfg["refit"]["draws"]),
+             "ped2g_version": __version__}
+    write_chunk(args.out, population, data.traits, replicates, results, attrs)
+    log.info("wrote %s (%d replicates) in %.1f s", args.out, len(results), time.perf_counter() - start)
+    return 0

@@ -1,0 +1,150 @@
+"""Writing and reading the refitting null's files (one per population and chunk of replicates).
+
+A file (netCDF-4, engine ``h5netcdf``) holds, for one population and replicates ``r`` of one chunk:
+
+* ``G``, ``P`` of dims ``(replicate, draw, trait, trait2)`` and ``mean`` of dims
+  ``(replicate, draw, trait)``: the refit's posterior draws in original units;
+* ``rhat_max``, ``ess_bulk_min``, ``ess_tail_min``, ``divergences``, ``seconds`` of dim
+  ``replicate``: the refit's convergence figures over the elements of G, and its time;
+* coordinate ``replicate`` (the replicate numbers, shared by every population: replicate r of
+  every population makes one simulated study), ``trait``, ``trait2``;
+* attributes ``ped2g_kind = "null_refit"``, ``population``, ``engine``, ``shared_G`` (the G all
+  populations share, row-major, original units), ``seed``, ``chains``, ``warmup``, ``draws``,
+  ``ped2g_version``.
+
+:func:`read_refits` gathers the files of every population into one :class:`RefitNull`, checking
+that they belong together. Later stages read the refitting null only through it.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import xarray as xr
+
+from .. import __version__
+from ..errors import UserError
+
+REFIT_KIND = "null_refit"
+DIAGNOSTICS = ("rhat_max", "ess_bulk_min", "ess_tail_min", "divergences", "seconds")
+
+
+def write_chunk(path: str | os.PathLike, population: str, traits: list[str], replicates: list[int],
+                results: list, attrs: dict[str, Any]) -> Path:
+    """Write one chunk (``results``: :class:`ped2g.null.refit.Replicate` per replicate number)."""
+    path = Path(path)
+    mdims = ("replicate", "draw", "trait", "trait2")
+    ds = xr.Dataset(
+        {"G": (mdims, np.stack([r.G for r in results])),
+         "P": (mdims, np.stack([r.P for r in results])),
+         "mean": (("replicate", "draw", "trait"), np.stack([r.mean for r in results])),
+         **{k: (("replicate",), np.array([getattr(r, k) for r in results])) for k in DIAGNOSTICS}},
+        coords={"replicate": np.asarray(replicates, dtype=np.int64), "trait": list(traits),
+                "trait2": list(traits)})
+    ds.attrs.update({k: v for k, v in attrs.items()})
+    ds.attrs.update(ped2g_kind=REFIT_KIND, population=str(population), ped2g_version=__version__)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(path.name + ".partial")
+    ds.to_netcdf(tmp, engine="h5netcdf")
+    os.replace(tmp, path)
+    return path
+
+
+@dataclass
+class RefitNull:
+    """The refitting null of every population, replicates aligned.
+
+    Attributes
+    ----------
+    populations, traits : list of str
+    replicates : numpy.ndarray of int, shape (Rn,)
+    G, P : numpy.ndarray, shape (Rn, S, m, t, t)
+    mean : numpy.ndarray, shape (Rn, S, m, t)
+    diagnostics : pandas.DataFrame
+        One row per population and replicate: population, replicate and :data:`DIAGNOSTICS`.
+    shared_G : numpy.ndarray, shape (t, t)
+    attrs : dict
+        engine per population, seed, chains, warmup, draws.
+    """
+
+    populations: list[str]
+    traits: list[str]
+    replicates: np.ndarray
+    G: np.ndarray
+    P: np.ndarray
+    mean: np.ndarray
+    diagnostics: pd.DataFrame
+    shared_G: np.ndarray
+    attrs: dict[str, Any]
+
+
+def _open(path: Path) -> xr.Dataset:
+    if not path.is_file():
+        raise UserError(f"refitting-null file not found: {path}; run 'ped2g null-refit' first")
+    try:
+        with xr.open_dataset(path, engine="h5netcdf") as handle:
+            ds = handle.load()
+    except Exception:
+        raise UserError(f"refitting-null file {path} is not a netCDF file written by 'ped2g null-refit'") from None
+    if ds.attrs.get("ped2g_kind") != REFIT_KIND or "G" not in ds:
+        raise UserError(f"{path} was not written by 'ped2g null-refit'; rerun it")
+    return ds
+
+
+def read_refits(paths: list[str | os.PathLike], populations: list[str], traits: list[str]) -> RefitNull:
+    """Gather chunk files (or folders holding them) for ``populations`` in that order.
+
+    Raises
+    ------
+    UserError
+        A file that is not ped2g's, traits that differ, a population without files or with
+        other replicate numbers than the rest, or files built from different shared G matrices.
+    """
+    files: list[Path] = []
+    for p in map(Path, paths):
+        files += sorted(p.rglob("*.nc")) if p.is_dir() else [p]
+    by_pop: dict[str, list[xr.Dataset]] = {}
+    for f in files:
+        ds = _open(f)
+        if [str(t) for t in ds["trait"].values] != list(traits):
+            raise UserError(f"refitting-null file {f} has traits {[str(t) for t in ds['trait'].values]}, "
+                            f"the fits have {list(traits)}; rerun 'ped2g null-refit'")
+        by_pop.setdefault(str(ds.attrs["population"]), []).append(ds)
+    missing = [p for p in populations if p not in by_pop]
+    if missing:
+        raise UserError(f"no refitting-null files for population(s) {', '.join(missing)}; "
+                        "run 'ped2g null-refit' for them")
+    merged = {p: xr.concat(by_pop[p], dim="replicate").sortby("replicate") for p in populations}
+    reps = [np.asarray(merged[p]["replicate"].values) for p in populations]
+    for p, r in zip(populations, reps):
+        if len(np.unique(r)) != len(r):
+            raise UserError(f"refitting-null files of population '{p}' repeat replicate numbers; "
+                            "remove stale files and rerun 'ped2g null-refit'")
+        if not np.array_equal(r, reps[0]):
+            raise UserError(f"population '{p}' has refitted replicates {r.min()}-{r.max()} ({len(r)}), "
+                            f"'{populations[0]}' has {reps[0].min()}-{reps[0].max()} ({len(reps[0])}); "
+                            "every population needs the same replicates")
+    shared = [np.asarray(merged[p].attrs["shared_G"], dtype=float) for p in populations]
+    if any(not np.allclose(s, shared[0], rtol=1e-12, atol=0) for s in shared):
+        raise UserError("the refitting-null files were built from different shared G matrices (the fits "
+                        "changed in between); rerun 'ped2g null-refit' for every population")
+    draws = {merged[p].sizes["draw"] for p in populations}
+    if len(draws) != 1:
+        raise UserError("the refitting-null files have different numbers of draws per replicate; rerun "
+                        "'ped2g null-refit' with one config")
+    t = len(traits)
+    stack = {k: np.stack([merged[p][k].values for p in populations], axis=2) for k in ("G", "P", "mean")}
+    diag = pd.concat([merged[p][list(DIAGNOSTICS)].to_dataframe().reset_index().assign(population=p)
+                      for p in populations], ignore_index=True)
+    first = merged[populations[0]].attrs
+    attrs = {"engine": {p: str(merged[p].attrs.get("engine", "")) for p in populations},
+             **{k: first.get(k) for k in ("seed", "chains", "warmup", "draws")}}
+    return RefitNull(populations=list(populations), traits=list(traits), replicates=reps[0],
+                     G=stack["G"], P=stack["P"], mean=stack["mean"],
+                     diagnostics=diag[["population", "replicate", *DIAGNOSTICS]],
+                     shared_G=shared[0].reshape(t, t), attrs=attrs)
