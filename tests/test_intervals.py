@@ -8,7 +8,7 @@ from ped2g.intervals import equal_tailed, hpd
 
 
 def test_hpd_of_evenly_spaced_values():
-    # Deterministic case (METHODS.md §8.1, computed): x = 0..99, mass 0.9 -> the first
+    # Deterministic case (docs/methods.md §4.1, computed): x = 0..99, mass 0.9 -> the first
     # shortest window of 90 points, [0, 89].
     lo, hi = hpd(np.arange(100.0), 0.9)
     assert (lo, hi) == (0.0, 89.0)

@@ -31,7 +31,7 @@ def test_h2_and_rg_follow_their_definitions():
     G = np.array([[4.0, 2.0], [2.0, 9.0]])
     P = np.array([[8.0, 1.0], [1.0, 18.0]])
     h2, rg = derived_from_covariances(G, P)
-    np.testing.assert_allclose(h2, [0.5, 0.5])  # METHODS.md §7.7 check values
+    np.testing.assert_allclose(h2, [0.5, 0.5])  # docs/methods.md §6 check values
     np.testing.assert_allclose(rg, [[1.0, 2.0 / 6.0], [2.0 / 6.0, 1.0]])
 
 

@@ -3,7 +3,7 @@
 * :func:`tabular_relationship` is the tabular (recursive) method for the additive relationship
   matrix A (Emik & Terrill 1949; Mrode 2014, *Linear Models for the Prediction of Animal Breeding
   Values*, 3rd edn, section 2.2), written as a plain loop so it shares no code with ped2g.
-* ``P1_*`` is Mrode's (2014) Table 2.1 six-animal pedigree (METHODS.md §1.6, P1), positions
+* ``P1_*`` is Mrode's (2014) Table 2.1 six-animal pedigree (docs/methods.md §1.7, P1), positions
   0-based: animals 1, 2 founders; 3 = 1×2; 4 = 1×?; 5 = 4×3; 6 = 5×2 (sire × dam).
 """
 

@@ -1,6 +1,6 @@
 """A blocked Gibbs sampler on Henderson's mixed model equations (benchmark baseline only).
 
-The classic way of drawing G in animal models (METHODS.md section 2.3; Sorensen & Gianola 2002
+The classic way of drawing G in animal models (docs/methods.md §2.12; Sorensen & Gianola 2002
 [M]; Garcia-Cortes & Sorensen 1996 [M] for drawing the location effects by solving the mixed
 model equations with a perturbed right-hand side). One iteration, with trait-major stacking
 ``theta = vec([B; U])`` (fixed effects B, p x t, then breeding values U, q x t):
@@ -57,7 +57,7 @@ def _i_minus_p(ped: Pedigree) -> sp.csr_matrix:
 
 
 class MixedModelEquations:
-    """Henderson's mixed model equations of one data set with complete records (METHODS 2.2).
+    """Henderson's mixed model equations of one data set with complete records (docs/methods.md §2.3).
 
     Parameters
     ----------

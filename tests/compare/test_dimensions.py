@@ -1,4 +1,4 @@
-"""Effective number of dimensions (METHODS.md 7.6)."""
+"""Effective number of dimensions (docs/methods.md §7.6)."""
 
 import numpy as np
 import pytest
@@ -9,7 +9,7 @@ from ped2g.compare.dimensions import effective_dimensions
 
 def test_values():
     Q = stats.special_ortho_group.rvs(4, random_state=0)
-    # METHODS.md 7.6: lambda = (4, 2, 1, 1) -> n_D = 2, participation ratio 64/22 = 2.909.
+    # docs/methods.md §7.6: lambda = (4, 2, 1, 1) -> n_D = 2, participation ratio 64/22 = 2.909.
     out = effective_dimensions(Q @ np.diag([4.0, 2, 1, 1]) @ Q.T)
     assert out["kirkpatrick"] == pytest.approx(2.0, abs=1e-12)
     assert out["participation_ratio"] == pytest.approx(64 / 22, abs=1e-12)

@@ -1,4 +1,4 @@
-"""Riemannian (Foerstner) distance: exact values and metric properties (METHODS.md 7.3)."""
+"""Riemannian (Foerstner) distance: exact values and metric properties (docs/methods.md §7.7)."""
 
 import numpy as np
 import pytest
@@ -15,7 +15,7 @@ def test_identity_versus_twice_identity(t):
 
 
 def test_known_values():
-    # METHODS.md 7.3: d(I, 2I) = 1.200566 for t = 3; d(diag(1,4), I) = ln 4.
+    # docs/methods.md §7.7: d(I, 2I) = 1.200566 for t = 3; d(diag(1,4), I) = ln 4.
     assert round(float(riemannian_distance(np.eye(3), 2 * np.eye(3))), 6) == 1.200566
     assert riemannian_distance(np.diag([1.0, 4.0]), np.eye(2)) == pytest.approx(np.log(4), abs=1e-14)
 

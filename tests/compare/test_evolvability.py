@@ -1,4 +1,4 @@
-"""Evolvability family: exact two-trait values (METHODS.md 7.2) and identities."""
+"""Evolvability family: exact two-trait values (docs/methods.md §7.5) and identities."""
 
 import numpy as np
 import pytest
@@ -15,7 +15,7 @@ def means(G, B):
 
 
 def test_diag_4_1_exact_values():
-    # METHODS.md 7.2 (derived values): diag(4, 1): e = 2.5, c = 2, a = 0.8, r = 2.730596, with
+    # docs/methods.md §7.5 (derived values): diag(4, 1): e = 2.5, c = 2, a = 0.8, r = 2.730596, with
     # r = (2/pi) lambda_1 E(1 - lambda_2^2/lambda_1^2) from scipy.special.ellipe.
     out = means(np.diag([4.0, 1.0]), circle_skewers(4096))
     r_exact = 2 / np.pi * 4 * special.ellipe(1 - 1 / 16)
@@ -29,7 +29,7 @@ def test_diag_4_1_exact_values():
 
 @pytest.mark.parametrize("l1, l2", [(9.0, 0.5), (2.0, 1.5), (1.0, 1.0)])
 def test_two_trait_closed_forms(l1, l2):
-    # c = sqrt(l1 l2), a = 2 sqrt(l1 l2)/(l1 + l2) for G = diag(l1, l2) (METHODS.md 7.2), and the
+    # c = sqrt(l1 l2), a = 2 sqrt(l1 l2)/(l1 + l2) for G = diag(l1, l2) (docs/methods.md §7.5), and the
     # same after rotating G and the skewers together.
     Q = stats.special_ortho_group.rvs(2, random_state=3)
     B = circle_skewers(4096)
@@ -40,7 +40,7 @@ def test_two_trait_closed_forms(l1, l2):
 
 
 def test_isotropic_matrix():
-    # sigma^2 I: e = c = r = sigma^2 for every gradient, autonomy 1 (METHODS.md 7.2).
+    # sigma^2 I: e = c = r = sigma^2 for every gradient, autonomy 1 (docs/methods.md §7.5).
     out = means(3.0 * np.eye(5), unit_skewers(100, 5, np.random.default_rng(0)))
     for name in ("evolvability", "conditional_evolvability", "respondability"):
         assert out[name] == pytest.approx(3.0, abs=1e-12)

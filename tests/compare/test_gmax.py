@@ -1,4 +1,4 @@
-"""g_max, its share of variance and Schluter's angle (METHODS.md 7.1)."""
+"""g_max, its share of variance and Schluter's angle (docs/methods.md §7.4)."""
 
 import numpy as np
 import pytest
@@ -9,7 +9,7 @@ from ped2g.compare.skewers import unit_skewers
 
 
 def test_angle_examples():
-    # METHODS.md 7.1: G = [[2,1],[1,2]], d = (1,0) -> 45 deg; d along g_max -> 0 deg.
+    # docs/methods.md §7.4: G = [[2,1],[1,2]], d = (1,0) -> 45 deg; d along g_max -> 0 deg.
     G = np.array([[2.0, 1.0], [1.0, 2.0]])
     g = gmax.leading_axis(G)["vector"]
     assert abs(gmax.angle(g, np.array([1.0, 0.0])) - 45.0) < 1e-12
@@ -35,12 +35,12 @@ def test_divergence_axis_of_two_populations_is_the_mean_difference():
 
 @pytest.mark.parametrize("t, mean", [(2, 45.0), (3, np.degrees(1.0))])
 def test_random_angle_reference_exact_cases(t, mean):
-    # METHODS.md 7.1: 45 deg for t = 2; exactly 1 rad for t = 3 (|cos| is uniform).
+    # docs/methods.md §7.4: 45 deg for t = 2; exactly 1 rad for t = 3 (|cos| is uniform).
     assert abs(gmax.random_angle_reference(t)["mean"] - mean) < 1e-9
 
 
 def test_random_angle_reference_eight_traits_against_monte_carlo():
-    # METHODS.md 7.1 gives ~72.55 deg for t = 8 (computed value); Monte Carlo with 200,000 random
+    # docs/methods.md §7.4 gives ~72.55 deg for t = 8 (computed value); Monte Carlo with 200,000 random
     # directions (sd of the angle < 15 deg, 5 standard errors) and the lower 5% point.
     ref = gmax.random_angle_reference(8, 0.95)
     assert abs(ref["mean"] - 72.55) < 0.01

@@ -1,4 +1,4 @@
-"""Standardisation of G (METHODS.md 7.7)."""
+"""Standardisation of G (docs/methods.md §6)."""
 
 import numpy as np
 import pytest
@@ -8,7 +8,7 @@ from ped2g.errors import UserError
 
 
 def test_mean_and_variance_standardisation_example():
-    # METHODS.md 7.7: G = [[4,2],[2,9]], mu = (2,3) -> [[1, 1/3],[1/3, 1]]; P = diag(8, 18) ->
+    # docs/methods.md §6: G = [[4,2],[2,9]], mu = (2,3) -> [[1, 1/3],[1/3, 1]]; P = diag(8, 18) ->
     # heritabilities (0.5, 0.5) on the diagonal.
     G = np.array([[[[4.0, 2.0], [2.0, 9.0]]]])
     P = np.array([[np.diag([8.0, 18.0])]])

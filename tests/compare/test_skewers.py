@@ -20,7 +20,7 @@ def test_unit_skewers_are_unit_vectors():
 
 
 def test_proportional_matrices_give_one_for_every_skewer():
-    # Exact identity (METHODS.md 3.5): responses of c*G are parallel to those of G.
+    # Exact identity (docs/methods.md §7.1): responses of c*G are parallel to those of G.
     rng = np.random.default_rng(1)
     G = random_spd(rng, 4, (5,))
     pair = np.stack([G, 2.5 * G], axis=1)
@@ -34,7 +34,7 @@ def test_proportional_matrices_give_one_for_every_skewer():
 
 
 def test_orthogonal_rank_one_matrices_give_zero():
-    # METHODS.md 3.5: diag(1, 0) and diag(0, 1) respond along perpendicular axes.
+    # docs/methods.md §7.1: diag(1, 0) and diag(0, 1) respond along perpendicular axes.
     G = np.array([[[[1.0, 0], [0, 0]], [[0, 0], [0, 1.0]]]])
     out = skewers.skewer_statistics(G, skewers.unit_skewers(100, 2, np.random.default_rng(2)))
     assert abs(out["correlation"][0, 0, 1]) < 1e-12
@@ -43,7 +43,7 @@ def test_orthogonal_rank_one_matrices_give_zero():
 
 def test_identity_versus_diag_1_4_matches_quadrature():
     # rbar = (1/2pi) int_0^2pi (cos^2 + 4 sin^2) / sqrt(cos^2 + 16 sin^2) dtheta = 0.902780
-    # (METHODS.md 3.5, a computed value), recomputed here with scipy.integrate.quad.
+    # (docs/methods.md §7.1, a computed value), recomputed here with scipy.integrate.quad.
     f = lambda th: (np.cos(th) ** 2 + 4 * np.sin(th) ** 2) / np.sqrt(np.cos(th) ** 2 + 16 * np.sin(th) ** 2)
     exact = integrate.quad(f, 0, 2 * np.pi, epsabs=1e-13, epsrel=1e-13)[0] / (2 * np.pi)
     assert round(exact, 6) == 0.902780
@@ -56,7 +56,7 @@ def test_identity_versus_diag_1_4_matches_quadrature():
 
 
 def test_random_correlation_for_three_traits_is_uniform():
-    # METHODS.md 3.2: for t = 3, r ~ Uniform(-1, 1) exactly (Archimedes' hat-box theorem).
+    # docs/methods.md §7.1: for t = 3, r ~ Uniform(-1, 1) exactly (Archimedes' hat-box theorem).
     r = np.linspace(-1, 1, 41)
     np.testing.assert_allclose(skewers.random_correlation_cdf(r, 3), (r + 1) / 2, atol=1e-14)
     rng = np.random.default_rng(4)
@@ -70,8 +70,8 @@ def test_random_correlation_for_three_traits_is_uniform():
 
 
 @pytest.mark.parametrize("t, mean_abs, upper", [
-    (2, 2 / np.pi, np.cos(0.05 * np.pi)),   # METHODS.md 3.2, closed forms for t = 2
-    (3, 0.5, 0.9),                          # METHODS.md 3.2, uniform case
+    (2, 2 / np.pi, np.cos(0.05 * np.pi)),   # docs/methods.md §7.1, closed forms for t = 2
+    (3, 0.5, 0.9),                          # docs/methods.md §7.1, uniform case
 ])
 def test_random_reference_values_closed_forms(t, mean_abs, upper):
     ref = skewers.random_reference(t, 1000, 0.95)
@@ -82,7 +82,7 @@ def test_random_reference_values_closed_forms(t, mean_abs, upper):
 
 def test_random_reference_values_eight_traits_by_quadrature():
     # Independent route: integrate the density (1 - r^2)^((t-3)/2) numerically (scipy.integrate)
-    # and solve for the 95% point (scipy.optimize.brentq); METHODS.md 3.2 prints E|r| = 0.29103 and
+    # and solve for the 95% point (scipy.optimize.brentq); docs/methods.md §7.1 prints E|r| = 0.29103 and
     # r* = 0.58220 for t = 8 (five decimals, so agreement to 1e-5).
     from scipy import optimize
     t = 8

@@ -12,7 +12,7 @@ from conftest import random_spd
 
 def test_two_subspaces_give_one_plus_minus_cos_principal_angles():
     # Non-zero eigenvalues of H are 1 +- cos(theta_p) for the principal angles theta_p between
-    # the two subspaces (METHODS.md 4.1), checked against scipy.linalg.subspace_angles.
+    # the two subspaces (docs/methods.md §7.2), checked against scipy.linalg.subspace_angles.
     rng = np.random.default_rng(0)
     for t, k in [(7, 3), (6, 3), (5, 2)]:
         G = random_spd(rng, t, (1, 2))
@@ -40,7 +40,7 @@ def test_complementary_subspaces_give_all_ones():
 
 
 def test_sum_of_squared_cosines_equals_eigenvalue_and_trace():
-    # sum_i cos^2 delta_i(h_j) = lambda_j and tr H = m k (METHODS.md 4.1, exact identities).
+    # sum_i cos^2 delta_i(h_j) = lambda_j and tr H = m k (docs/methods.md §7.2, exact identities).
     rng = np.random.default_rng(3)
     G = random_spd(rng, 5, (3, 4))
     out = subspace.common_subspace(G, 2)

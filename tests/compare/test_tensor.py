@@ -1,4 +1,4 @@
-"""Genetic covariance tensor: rank, proportional sets, the two-population identity (METHODS.md 5.4)."""
+"""Genetic covariance tensor: rank, proportional sets, the two-population identity (docs/methods.md §7.3)."""
 
 import numpy as np
 from scipy import stats
@@ -50,7 +50,7 @@ def test_two_populations_first_eigenvalue_is_half_squared_frobenius_distance():
 
 
 def test_eigentensor_properties():
-    # METHODS.md 5.2: orthonormal under tr(AB); variance of coordinates = eigenvalue; trace
+    # docs/methods.md §7.3: orthonormal under tr(AB); variance of coordinates = eigenvalue; trace
     # identity; reconstruction; sum of squared eigentensor eigenvalues = 1.
     rng = np.random.default_rng(4)
     m, t = 5, 3

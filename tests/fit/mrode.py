@@ -2,7 +2,7 @@
 
 Source: R.A. Mrode, *Linear Models for the Prediction of Animal Breeding Values*, 3rd ed.
 (2014), Table 5.1 and the solutions table on p. 74 (values as reproduced in the project's
-METHODS.md section 2.4, checked there against the book). The bivariate G and R are marked there
+docs/methods.md §2.10, checked there against the book). The bivariate G and R are marked there
 as recalled from memory [M] but agree with the book's printed intermediate blocks.
 """
 

@@ -1,15 +1,15 @@
 """Paternal half-sib design: the marginal engine's V_A against statsmodels' REML sire model.
 
-Theory (METHODS.md section 2.5; Falconer & Mackay 1996): with offspring of unrelated, singly
+Theory (docs/methods.md §2.11; Falconer & Mackay 1996): with offspring of unrelated, singly
 mated dams and dams unknown, the animal model's marginal distribution of the records equals the
 sire model's with sire variance V_A / 4, so G = 4 Sigma_sire. Oracle: statsmodels MixedLM fitted
 by REML (a general-purpose REML fitter), trying several optimisers and keeping the best
-likelihood (the default optimiser can stop at a wrong point, as METHODS.md section 2.5 records).
+likelihood (the default optimiser can stop at a wrong point, as docs/methods.md §2.11 records).
 A genetic covariance comes from the polarisation identity on the sum of two traits:
 sigma_s12 = (sigma_s^2(y1 + y2) - sigma_s^2(y1) - sigma_s^2(y2)) / 2. On balanced data REML
 equals the ANOVA estimator (MS_between - MS_within) / n_per_sire when positive [M], checked
 here as a check of the oracle itself.
-Pass criterion (METHODS.md section 2.5): posterior mean within two posterior SD of 4 x REML.
+Pass criterion (docs/methods.md §2.11): posterior mean within two posterior SD of 4 x REML.
 """
 
 import warnings

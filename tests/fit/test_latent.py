@@ -2,7 +2,7 @@
 
 External checks, each named beside its test:
 * Mrode (2014), p. 25: the matrix T = (I - P)^-1 and D of the six-animal pedigree of Table 2.1
-  (METHODS.md section 1.6, P1), and A = T D T' (printed A entries for animals 1, 4, 5 on p. 32).
+  (docs/methods.md §1.7, P1), and A = T D T' (printed A entries for animals 1, 4, 5 on p. 32).
 * Mrode (2014), p. 74: BLUP solutions of the beef-calf example, univariate and bivariate
   (fixtures in tests/fit/mrode.py).
 * scipy.stats.multivariate_normal as the reference for the log-density of the observed traits.
@@ -21,7 +21,7 @@ from ped2g.pedigree.core import Pedigree
 from ped2g.pedigree.relationships import inbreeding
 
 from mrode import assert_matches_solutions, config, pedigree, phenotypes
-# T and D of Mrode (2014), p. 25 (METHODS.md section 1.6, P1) [V], from tests/textbook.py.
+# T and D of Mrode (2014), p. 25 (docs/methods.md §1.7, P1) [V], from tests/textbook.py.
 from textbook import P1_D as D_MRODE
 from textbook import P1_T as T_MRODE
 
@@ -67,7 +67,7 @@ def test_generation_layout_orders_parents_first():
 
 
 def test_breeding_values_have_covariance_G_kron_A():
-    """Exact identity: summing a a' over the unit vectors of vec(W) gives G kron A (METHODS 2.1)."""
+    """Exact identity: summing a a' over the unit vectors of vec(W) gives G kron A (docs/methods.md §0.2)."""
     ped = six_animals()
     G = np.array([[2.0, 0.6], [0.6, 1.0]])
     n, t = 6, 2

@@ -2,7 +2,7 @@
 
 * Back-transformation: exact identities (G = diag(s) G_std diag(s); P = G + R + C; fixed
   effects per unit of the covariate; population mean = fitted values averaged over records).
-* Convergence checks on synthetic chains with known behaviour (METHODS.md section 8.2 [C]):
+* Convergence checks on synthetic chains with known behaviour (docs/methods.md §4.2 [C]):
   i.i.d. normal chains pass; a chain shifted by 1 SD gives R-hat about 1.10 and must miss.
 """
 

@@ -12,7 +12,7 @@ stand-in replaces MCMC fits so that enough replicate studies fit in a test's tim
 test of the null's machinery (simulation, shuffle, estimator, comparison) because the observed
 posteriors are exact posteriors of populations that share G. It is the favourable case: real
 posteriors also carry error from predicting breeding values from phenotypes, which the null does
-not contain (METHODS §6.2), so with real data the flag rate can be higher than here. The
+not contain (docs/methods.md §5.3), so with real data the flag rate can be higher than here. The
 check on real fits (benchmarks/null_calibration_fits.py, minutes per study) measured it: there the
 HPD non-overlap criterion stayed under 5 % but the paired criterion did not.
 

@@ -36,7 +36,7 @@ def c_from_matrix(A):
 
 def test_deflation_of_mrode_p2_is_0_7411():
     # Oracle 1: A = inverse of the A-inverse printed in Mrode (2014) p. 58.
-    # Oracle 2: ped2g's relationship matrix. Value 0.7411 from METHODS §6.2 [C].
+    # Oracle 2: ped2g's relationship matrix. Value 0.7411 from docs/methods.md §5.5 [C].
     ped = mrode_p2()
     c = relatedness_deflation(ped, np.arange(8))
     assert c == pytest.approx(c_from_matrix(np.linalg.inv(MRODE_P2_AINV)), abs=1e-12)
@@ -63,7 +63,7 @@ def test_quadratic_form_matches_tabular_a_on_an_inbred_pedigree():
 
 
 def test_quadratic_form_with_selfing():
-    # Selfing: founder 1, 2 = 1x1: A = [[1, 1], [1, 1.5]] (METHODS §1.6 P5, derived [C]).
+    # Selfing: founder 1, 2 = 1x1: A = [[1, 1], [1, 1.5]] (docs/methods.md §1.7 P5, derived [C]).
     from null_helpers import pedigree_from_parents
 
     ped = pedigree_from_parents([-1, 0], [-1, 0])
@@ -120,7 +120,7 @@ def test_uncentred_moments_match_a_plain_sum():
 
 
 def test_mendelian_recovers_g_and_sample_recovers_c_g_on_a_large_pedigree():
-    # METHODS §6.5: estimator (b) recovers G within Monte Carlo error; estimator (a) recovers
+    # docs/methods.md §5.5: estimator (b) recovers G within Monte Carlo error; estimator (a) recovers
     # c G with c = 1 + Fbar - abar (§6.2). One population, so the shuffle keeps every animal.
     rng = np.random.default_rng(21)
     ped = random_pedigree(rng, 2000, founders=20, generations=6, p_unknown=0.0, breeders=10)

@@ -1,4 +1,4 @@
-"""The shuffle keeps every animal once and every population size (METHODS §6.5)."""
+"""The shuffle keeps every animal once and every population size (docs/methods.md §5.1, §5.5)."""
 
 import numpy as np
 import pytest

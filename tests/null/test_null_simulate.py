@@ -12,7 +12,7 @@ from textbook import P1_A as MRODE_P1_A  # Mrode (2014) Table 2.1 A (see tests/t
 
 
 def test_simulated_breeding_values_have_covariance_a_kron_g():
-    # METHODS §6.5: cov(u_i, u_k) = a_ik G, e.g. var(u_6) = 1.125 G, cov(u_5, u_6) = 0.6875 G.
+    # docs/methods.md §3: cov(u_i, u_k) = a_ik G, e.g. var(u_6) = 1.125 G, cov(u_5, u_6) = 0.6875 G.
     ped = mrode_p1()
     G = np.array([[1.0, 0.4], [0.4, 0.8]])
     S = 40000

@@ -24,7 +24,7 @@ POPULATIONS = ["north", "south", "east"]
 UNITS = {"wing": "mm", "mass": "g", "tarsus": "mm"}
 CHAINS, DRAWS = 4, 60
 
-# Mrode (2014) Table 2.1 six-animal pedigree (METHODS.md §1.6 P1): F from Mrode p. 25.
+# Mrode (2014) Table 2.1 six-animal pedigree (docs/methods.md §1.7 P1): F from Mrode p. 25.
 MRODE_PEDIGREE = pd.DataFrame({
     "id": ["1", "2", "3", "4", "5", "6"],
     "sire": ["", "", "1", "1", "4", "5"],

@@ -57,7 +57,7 @@ def test_phenotype_counts_by_hand():
 
 
 def test_estimates_interval_matches_deterministic_hpd():
-    # METHODS.md §8.1 check value (computed): for the draws 0..99 the 90% HPD is [0, 89];
+    # docs/methods.md §4.1 check value (computed): for the draws 0..99 the 90% HPD is [0, 89];
     # the median of 0..99 is 49.5 and the mean 49.5 (exact).
     x = np.arange(100.0)
     G = np.zeros((1, 100, 2, 2))
@@ -84,7 +84,7 @@ def test_estimate_matrix_fills_upper_triangle():
 
 
 def test_diagnostics_flag_a_shifted_chain():
-    # Vehtari et al. (2021), METHODS.md §8.2: one chain shifted by 1 SD gives R-hat ~1.10 > 1.01,
+    # Vehtari et al. (2021), docs/methods.md §4.2: one chain shifted by 1 SD gives R-hat ~1.10 > 1.01,
     # while i.i.d. chains give R-hat ~1.00.
     rng = np.random.default_rng(2)
     good = rng.normal(size=(4, 500))

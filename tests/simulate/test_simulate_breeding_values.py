@@ -2,8 +2,8 @@
 
 Sources named beside each check:
 * Mrode (2014), *Linear Models for the Prediction of Animal Breeding Values*, 3rd edn, Table 2.1
-  pedigree, pp. 25-32 (A, F, D), as reproduced in METHODS.md §1.6 (pedigree P1).
-* KVL population-genetics notes, tabular-method example with inbred parents (METHODS.md §1.6, P3).
+  pedigree, pp. 25-32 (A, F, D), as reproduced in docs/methods.md §1.7 (pedigree P1).
+* KVL population-genetics notes, tabular-method example with inbred parents (docs/methods.md §1.7, P3).
 * The tabular (recursive) method of Emik & Terrill (1949) as given in Mrode (2014) §2.2, coded
   independently below as the oracle for random pedigrees.
 * scipy.linalg.cholesky as the reference Cholesky factor.
@@ -48,12 +48,12 @@ def _zscores_of_covariance(X, Sigma):
 
 
 def test_tabular_oracle_reproduces_mrode_table():
-    # The test's own oracle against the printed pedigree P1 (METHODS.md §1.6).
+    # The test's own oracle against the printed pedigree P1 (docs/methods.md §1.7).
     np.testing.assert_allclose(_tabular_A(P1_SIRE, P1_DAM), P1_A, atol=1e-12)
 
 
 def test_p1_variance_and_covariance_of_breeding_values_follow_A():
-    """var(u_6) = 1.125 G and cov(u_5, u_6) = 0.6875 G (Mrode 2014 Table 2.1 pedigree; METHODS §6.5)."""
+    """var(u_6) = 1.125 G and cov(u_5, u_6) = 0.6875 G (Mrode 2014 Table 2.1 pedigree; docs/methods.md §3)."""
     ped = _pedigree(P1_SIRE, P1_DAM, P1_F)
     S = 200_000
     U = simulate_breeding_values(ped, G2, np.random.default_rng(11), n_draws=S)
@@ -68,7 +68,7 @@ def test_p1_variance_and_covariance_of_breeding_values_follow_A():
 
 
 def test_vec_convention_trait_major_is_kron_G_A():
-    """METHODS §2.1: cov(vec U) = G ⊗ A with vec = ravel(order='F'); animal-major gives A ⊗ G."""
+    """docs/methods.md §0.2: cov(vec U) = G ⊗ A with vec = ravel(order='F'); animal-major gives A ⊗ G."""
     ped = _pedigree(P1_SIRE, P1_DAM, P1_F)
     S = 200_000
     U = simulate_breeding_values(ped, G2, np.random.default_rng(12), n_draws=S)

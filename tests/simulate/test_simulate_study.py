@@ -3,7 +3,7 @@
 External references named beside each check:
 * Offspring on mid-parent regression slope = h² (Falconer & Mackay 1996, *Introduction to
   Quantitative Genetics*, 4th edn, ch. 10 [M: recalled from memory]; equivalently cov(parent,
-  offspring) = ½ V_A, METHODS.md §1.7 [V: K. Holsinger, EEB348 course notes on covariances among relatives]).
+  offspring) = ½ V_A, docs/methods.md §1.8 [V: K. Holsinger, EEB348 course notes on covariances among relatives]).
 * Sample covariance of independent N(0, Σ) vectors: var of an element = (σ_aa σ_bb + σ_ab²)/n
   (Wishart second moments; Anderson 2003, *An Introduction to Multivariate Statistical Analysis*,
   3rd edn, §7.3 [M: recalled]); used for every Monte Carlo tolerance (5 standard errors).

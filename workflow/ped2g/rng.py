@@ -1,7 +1,7 @@
 """Random streams derived from the one seed in the config.
 
 Every stage and population gets its own stream, derived from the run seed by name, so the numbers
-a stage draws do not depend on the order in which jobs run (DESIGN.md, conventions).
+a stage draws do not depend on the order in which jobs run (docs/methods.md §0.4).
 """
 
 from __future__ import annotations

@@ -1,6 +1,6 @@
 """The fit stage: a Bayesian multivariate animal model per population, in PyMC.
 
-The model, on every trait jointly (METHODS.md section 2)::
+The model, on every trait jointly (docs/methods.md §2)::
 
     y = X b + Z a + sum_c Z_c u_c + e,   a ~ MVN(0, G (x) A),   u_c ~ MVN(0, C_c (x) I),
     e_r ~ MVN(0, R) independently per record r

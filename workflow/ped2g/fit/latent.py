@@ -8,7 +8,7 @@ Model (standardised scale, ``t`` traits, animals ``i`` of the pruned pedigree, r
 
 ``A = T D T'`` with ``T = (I - P)^{-1}`` (P holds 1/2 at each known parent) and ``D = diag(b)``,
 the Mendelian-sampling coefficients that carry the parents' inbreeding (Mrode 2014, p. 25;
-Quaas 1976). So ``vec(a) ~ N(0, G kron A)`` (trait-major stacking, METHODS §2.1) without ever
+Quaas 1976). So ``vec(a) ~ N(0, G kron A)`` (trait-major stacking, docs/methods.md §0.2) without ever
 forming A or a factor of it: the product by T is the recursion
 
     a_i = m_i + (a_sire(i) + a_dam(i)) / 2,      m = D^{1/2} W L_G',

@@ -10,12 +10,12 @@ Back-transformation, with ``s`` the phenotypic SDs and ``c`` the trait means use
     beta_j[x]   = s_j beta_std[x, j] / x_scale[x]  (other fixed effects, per unit of the covariate)
     mean_j      = c_j + s_j mean_r(X beta_std)_rj  (population mean: fitted values averaged over records)
 
-Files written (DESIGN.md, "What the fit stage writes"): ``posterior.nc``, ``parameters.csv``,
+Files written (docs/design.md, "Fit stage"): ``posterior.nc``, ``parameters.csv``,
 ``breeding_values.csv`` (posterior mean and SD per animal and trait), ``breeding_values.nc``
 (every draw; only with ``model.save_breeding_values``), ``pedigree_used.csv`` (with a
 ``phenotyped`` 0/1 column) and ``diagnostics.json``.
 
-Convergence (Vehtari et al. 2021, *Bayesian Analysis* 16:667-718; METHODS.md section 8.2):
+Convergence (Vehtari et al. 2021, *Bayesian Analysis* 16:667-718; docs/methods.md §4.2):
 rank-normalised split R-hat and bulk/tail ESS from ArviZ, checked for every element of G and R
 and every heritability (quantities held fixed are not checked).
 """

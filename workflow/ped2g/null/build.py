@@ -97,7 +97,7 @@ def build_null(G: np.ndarray, peds: list[Pedigree], members: list[np.ndarray], e
     with ``G[s, j]`` (stream ``generator(seed, "null", population_j)``), pool the animals
     ``members[j]`` of every population, shuffle them with an independent permutation per draw
     (stream ``generator(seed, "null", "shuffle")``) into blocks of the original sizes, and
-    estimate each block's G with ``estimator`` (METHODS §6.1).
+    estimate each block's G with ``estimator`` (docs/methods.md §5.1).
 
     Because every stream is consumed in draw order, the result does not depend on ``chunk``.
 

@@ -1,6 +1,6 @@
 """Estimating a null G for each dummy population from simulated breeding values.
 
-Two estimators (METHODS §6.1 step 3, §6.2), both vectorised over draws:
+Two estimators (docs/methods.md §5.1 step 3, §5.2), both vectorised over draws:
 
 * ``mendelian`` (the default): ``G~_j = (1/n_j) sum_{i in j} phi_i phi_i' / b_i``, where
   ``phi_i = u_i - (u_sire + u_dam)/2`` is animal i's Mendelian-sampling deviation and ``b_i`` its
@@ -183,7 +183,7 @@ def relatedness_deflation(ped: Pedigree, members: np.ndarray) -> float:
     ``c = (tr A_S - 1'A_S 1 / n) / (n - 1) = 1 + Fbar - abar`` for the n animals S (A_S their
     block of A, Fbar their mean inbreeding, abar the mean of the off-diagonal entries of A_S):
     ``E[(1/(n-1)) sum (u_i - u_bar)(u_i - u_bar)'] = c G`` when ``U ~ MatrixNormal(0, A, G)``
-    (METHODS §6.2; exact). ``nan`` for fewer than two animals.
+    (docs/methods.md §5.2; exact). ``nan`` for fewer than two animals.
     """
     members = np.asarray(members, dtype=np.int64)
     n = members.size

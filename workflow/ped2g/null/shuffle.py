@@ -3,7 +3,7 @@
 For each draw an independent uniform random permutation of the ``N = sum(n_j)`` pooled animals
 is cut into consecutive blocks of sizes ``n_1, ..., n_m``: block ``j`` is dummy population ``j``.
 Every animal lands in exactly one dummy population and every population keeps its size
-(METHODS §6.1 step 2; Aguirre et al. 2014, Heredity 112:21-29).
+(docs/methods.md §5.1 step 2; Aguirre et al. 2014, Heredity 112:21-29).
 """
 
 from __future__ import annotations

@@ -1,7 +1,7 @@
 """Simulating the breeding values the null is built from, chunk by chunk of posterior draws.
 
 For draw s of population j, breeding values go down j's own pedigree with that draw's G
-(METHODS §6.1 step 1): ``u_i = (u_sire + u_dam)/2 + phi_i``, ``phi_i ~ N(0, b_i G_j^(s))``, so
+(docs/methods.md §5.1 step 1, §3): ``u_i = (u_sire + u_dam)/2 + phi_i``, ``phi_i ~ N(0, b_i G_j^(s))``, so
 ``U_j ~ MatrixNormal(0, A_j, G_j^(s))``. The recursion itself is
 :func:`ped2g.simulate.breeding_values.simulate_breeding_values`; this module checks the draws,
 picks out the phenotyped animals of every population and pools them in population order.
@@ -34,7 +34,7 @@ class DrawCheck:
 
 
 def check_draws(G: np.ndarray) -> DrawCheck:
-    """Classify G draws by their eigenvalues (METHODS §0.2: test, record, never repair silently).
+    """Classify G draws by their eigenvalues (docs/methods.md §0.3: test, record, never repair silently).
 
     With eigenvalues ``l_min <= ... <= l_max`` of the symmetrised draw: positive definite when
     ``l_min > PD_TOL * l_max``; singular when ``-NEGATIVE_TOL * l_max <= l_min <= PD_TOL * l_max``;

@@ -37,7 +37,7 @@ from ..pedigree.core import Pedigree
 
 __all__ = ["covariance_factor", "simulate_breeding_values"]
 
-#: Relative tolerance of the positive-definiteness test (METHODS §0.2: smallest eigenvalue must
+#: Relative tolerance of the positive-definiteness test (docs/methods.md §0.3: smallest eigenvalue must
 #: exceed ``tol`` times the largest for Cholesky to be used).
 PD_TOL = 1e-10
 #: Relative tolerance for a negative eigenvalue that is still treated as rounding error.
@@ -73,7 +73,7 @@ def covariance_factor(G: ArrayLike) -> np.ndarray:
     numpy.ndarray, shape (..., t, t)
         For each positive-definite matrix (smallest eigenvalue > ``1e-10`` × the largest) the
         lower-triangular Cholesky factor; for a positive semi-definite, singular matrix the
-        symmetric eigen square root ``V diag(sqrt(max(λ, 0))) V'`` (METHODS §0.2).
+        symmetric eigen square root ``V diag(sqrt(max(λ, 0))) V'`` (docs/methods.md §0.3).
 
     Raises
     ------
