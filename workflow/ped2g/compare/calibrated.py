@@ -8,18 +8,19 @@ estimate, with the usual +1 correction so that it is never 0 and a test at level
 level (Davison & Hinkley 1997, *Bootstrap Methods and their Application*, section 4.2, recalled
 from memory)::
 
-    greater:    p = (1 + #{r: T_r >= T_obs}) / (R + 1)     larger means more different
-    less:       p = (1 + #{r: T_r <= T_obs}) / (R + 1)     smaller means more different
-    two-sided:  p = min(1, 2 min(1 + #{T_r >= T_obs}, 1 + #{T_r <= T_obs}) / (R + 1))
+    larger means more different:   p = (1 + #{r: T_r >= T_obs}) / (R + 1)
+    smaller means more different:  p = (1 + #{r: T_r <= T_obs}) / (R + 1)
 
 with R the replicates whose estimate is finite. What is tested (:data:`TESTS`):
 
-* a statistic of a pair of populations (distance, angles, skewer correlation, magnitude ratio)
-  or of the whole set (eigenvalues of Krzanowski's H, variance along eigentensors) is tested on
-  its own value;
-* a statistic of one population (evolvability, a variance along an axis, ...) is tested on its
-  **deviation** from the mean of that statistic over the populations, two-sided: under a shared
-  G no population stands out beyond what its own design's noise gives;
+* a statistic of a pair of populations (distance, angles, skewer correlation) or of the whole
+  set (eigenvalues of Krzanowski's H, variance along eigentensors) is tested on its own value;
+  the magnitude ratio on the size of its logarithm, |ln ratio|, since a ratio and its inverse
+  are equally far from 1;
+* a statistic of one population (evolvability, a variance along an axis, ...) is tested on the
+  size of its **deviation** from the mean of that statistic over the populations,
+  |x_p - mean_q x_q|: under a shared G no population stands out beyond what its own design's
+  noise gives;
 * quantities that do not compare G matrices (eigengaps, g_max loadings, the angle to the
   divergence of means) get no test.
 
@@ -29,9 +30,9 @@ populations); a statistic of the whole set forms one family over its axes. P-val
 within each family by Holm's step-down method (Holm 1979, *Scand. J. Statist.* 6:65-70), which
 controls the family-wise error rate under any dependence. The reading rule is :data:`READING_RULE`.
 
-With R replicates the smallest p-value is 1/(R + 1) (two-sided 2/(R + 1)) and Holm multiplies the
-smallest by the family size, so a family of f rows can reach alpha only when
-``R + 1 >= sides * f / alpha`` (:func:`required_replicates`).
+With R replicates the smallest p-value is 1/(R + 1) and Holm multiplies the smallest by the
+family size, so a family of f rows can fall below alpha only when ``R + 1 > f / alpha``
+(:func:`required_replicates`).
 """
 
 from __future__ import annotations
@@ -49,12 +50,12 @@ READING_RULE = (
     "is one the data cannot tell from estimation noise; it is not evidence that the G matrices "
     "are equal.")
 
-#: How each statistic is tested: greater, less, two-sided (its own value) or deviation (a
-#: per-population value minus the mean over populations, two-sided). Absent: not tested.
+#: How each statistic is tested: greater or less (its own value), log-ratio (|ln value|, greater)
+#: or deviation (|per-population value - mean over populations|, greater). Absent: not tested.
 TESTS: dict[tuple[str, str], str] = {
     ("skewers", "correlation"): "less",
     ("skewers", "angle"): "greater",
-    ("skewers", "magnitude_ratio"): "two-sided",
+    ("skewers", "magnitude_ratio"): "log-ratio",
     ("skewers", "response_magnitude"): "deviation",
     ("subspace", "eigenvalue"): "less",
     ("subspace", "projection"): "less",
@@ -76,27 +77,24 @@ TESTS: dict[tuple[str, str], str] = {
 
 #: Words for the ``test`` column.
 TEST_WORDS = {
-    "greater": "one-sided: larger than under a shared G",
-    "less": "one-sided: smaller than under a shared G",
-    "two-sided": "two-sided: away from its value under a shared G",
-    "deviation": "two-sided: the population's deviation from the mean over populations",
+    "greater": "larger than under a shared G",
+    "less": "smaller than under a shared G",
+    "log-ratio": "|ln ratio| larger than under a shared G",
+    "deviation": "|deviation from the mean over populations| larger than under a shared G",
 }
-
-
-def _sides(kind: str) -> int:
-    return 1 if kind in ("greater", "less") else 2
 
 
 def required_replicates(n_populations: int, n_traits: int, n_eigentensors: int, alpha: float) -> int:
     """Fewest replicates R with which every family of tests can reach ``alpha`` after Holm.
 
-    Families: pairwise statistics (m(m-1)/2 rows; the magnitude ratio two-sided), per-population
-    deviations (m rows, two-sided), the eigenvalues and projections of H (t rows) and the
-    eigentensor variances (``n_eigentensors`` rows). Needs ``R + 1 >= sides * f / alpha``.
+    Families: pairwise statistics (m(m-1)/2 rows), per-population deviations (m rows), the
+    eigenvalues and projections of H (t rows) and the eigentensor variances (``n_eigentensors``
+    rows). Needs ``R + 1 > f / alpha`` for the largest family f.
     """
     m = n_populations
-    needs = [2 * m * (m - 1) / 2, 2 * m, n_traits, n_eigentensors]
-    return int(math.ceil(max(needs) / alpha - 1e-9)) - 1
+    needs = [m * (m - 1) / 2, m, n_traits, n_eigentensors]
+    # Holm's smallest adjusted p is f / (R + 1), which must be below alpha: R + 1 > f / alpha.
+    return int(math.floor(max(needs) / alpha + 1e-9))
 
 
 def families(table: pd.DataFrame) -> pd.Series:
@@ -107,14 +105,18 @@ def families(table: pd.DataFrame) -> pd.Series:
     return base.where(~per_pop, base + axes)
 
 
-def test_values(values: np.ndarray, kinds: np.ndarray, family: np.ndarray) -> np.ndarray:
-    """The tested value of every row: the estimate, or for ``deviation`` rows the estimate minus
-    the mean of its family. ``values`` has the rows on its last axis."""
-    out = np.array(values, dtype=float, copy=True)
+def tested_values(values: np.ndarray, kinds: np.ndarray, family: np.ndarray) -> np.ndarray:
+    """The tested value of every row: the estimate; |ln estimate| for ``log-ratio`` rows; for
+    ``deviation`` rows |estimate - mean of its family|. ``values`` has the rows on its last axis."""
+    values = np.asarray(values, dtype=float)
+    out = values.copy()
+    ratio = kinds == "log-ratio"
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out[..., ratio] = np.abs(np.log(values[..., ratio]))
     dev = kinds == "deviation"
     for fam in np.unique(family[dev]):
         cols = np.flatnonzero(dev & (family == fam))
-        out[..., cols] = values[..., cols] - np.nanmean(values[..., cols], axis=-1, keepdims=True)
+        out[..., cols] = np.abs(values[..., cols] - np.nanmean(values[..., cols], axis=-1, keepdims=True))
     return out
 
 
@@ -130,12 +132,10 @@ def p_values(observed: np.ndarray, null: np.ndarray, kinds: np.ndarray) -> tuple
         le = (np.where(finite, null <= observed, False)).sum(axis=0)
     p = np.full(observed.shape, np.nan)
     ok = np.isfinite(observed) & (n > 0)
-    g = ok & (kinds == "greater")
+    g = ok & np.isin(kinds, ("greater", "log-ratio", "deviation"))
     p[g] = (1 + ge[g]) / (n[g] + 1)
     s = ok & (kinds == "less")
     p[s] = (1 + le[s]) / (n[s] + 1)
-    two = ok & np.isin(kinds, ("two-sided", "deviation"))
-    p[two] = np.minimum(1.0, 2 * np.minimum(1 + ge[two], 1 + le[two]) / (n[two] + 1))
     return p, n
 
 
@@ -167,8 +167,8 @@ def calibrated_columns(table: pd.DataFrame, null_estimates: np.ndarray, alpha: f
     alpha, mass
         The reading rule's level and the mass of the null replicates' interval.
 
-    Adds ``test``, ``test_value`` (what is tested: the estimate, or its deviation from the mean
-    over populations), ``null_refit_median``, ``null_refit_lower``, ``null_refit_upper`` (the
+    Adds ``test``, ``test_value`` (what is tested: the estimate, |ln ratio|, or the size of the
+    deviation from the mean over populations), ``null_refit_median``, ``null_refit_lower``, ``null_refit_upper`` (the
     replicates' tested values: what noise alone gives), ``n_replicates``, ``p_value``, ``family``,
     ``family_size``, ``p_adjusted`` (Holm) and ``supported`` (p_adjusted < alpha).
     """
@@ -176,8 +176,8 @@ def calibrated_columns(table: pd.DataFrame, null_estimates: np.ndarray, alpha: f
     kinds = np.array([TESTS.get((m, s), "") for m, s in zip(out["method"], out["statistic"])], dtype=object)
     family = families(out).to_numpy()
     tested = kinds != ""
-    obs = test_values(out["mean"].to_numpy(dtype=float), kinds, family)
-    null = test_values(np.asarray(null_estimates, dtype=float), kinds, family)
+    obs = tested_values(out["mean"].to_numpy(dtype=float), kinds, family)
+    null = tested_values(np.asarray(null_estimates, dtype=float), kinds, family)
     p, n = p_values(obs, null, kinds)
     p[~tested] = np.nan
     lo, med, hi = (np.full(len(out), np.nan) for _ in range(3))

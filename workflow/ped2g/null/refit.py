@@ -3,7 +3,7 @@
 "Do the populations' G matrices differ by more than estimation alone would give?" is answered by
 a parametric bootstrap under the hypothesis that every population shares one G (the approach
 recommended by Morrissey, Hangartner & Monro 2019, *Evolution* 73:2512-2517, recalled from
-memory; see docs/methods.md, "The refitting null"):
+memory; see docs/methods.md §5.6):
 
 1. **The shared G** is the mean over populations of their posterior-mean G (original units): a
    matrix every population's data are compatible with when the hypothesis holds, weighting the
@@ -36,6 +36,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
+import xarray as xr
 
 from ..errors import UserError
 from ..fit.data import FitData
@@ -134,6 +135,7 @@ class Replicate:
     ess_tail_min: float
     divergences: int
     seconds: float
+    means: dict[str, Any] = field(default_factory=dict)   # posterior means, as posterior_means gives
 
 
 class Refitter:
@@ -195,7 +197,7 @@ class Refitter:
             extra = self.engine.extra_steps(model, new) if hasattr(self.engine, "extra_steps") else []
             run = sample.run(model, self.sampling, name, progress=False, nutpie_options=options,
                              extra_steps=extra, numba_opt_level=level)
-        core, _ = outputs.original_units(new, run.idata)
+        core, extra = outputs.original_units(new, run.idata)
         t = self.data.n_traits
         lower = np.tril_indices(t)
         g = run.idata.posterior[["G"]]
@@ -213,7 +215,9 @@ class Refitter:
         return Replicate(G=pooled(core["G"]), P=pooled(core["P"]), mean=pooled(core["mean"]),
                          rhat_max=float(np.nanmax(rhat)), ess_bulk_min=float(np.nanmin(ess_b)),
                          ess_tail_min=float(np.nanmin(ess_t)), divergences=int(run.info["divergences"]),
-                         seconds=time.perf_counter() - start)
+                         seconds=time.perf_counter() - start,
+                         means={"R": xr.DataArray(core["R"].mean(axis=(0, 1))),
+                                **{k: v.mean(("chain", "draw")) for k, v in extra.items()}})
 
 
 def replicate_name(population: str, replicate: int) -> str:

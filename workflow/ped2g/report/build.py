@@ -223,7 +223,8 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
 
         # -- cautions --------------------------------------------------------------------------
         sec = sections["cautions"]
-        sec.items(cautions(config, failed, inputs.null_present, has_null_cols, n_changes))
+        sec.items(cautions(config, failed, inputs.null_present, has_null_cols, n_changes,
+                           refit=(inputs.compare_extras.get("summary") or {}).get("refit_null")))
         recorded = tables.stage_cautions(inputs)
         if recorded:
             sec.heading("Recorded by the stages")
@@ -394,6 +395,9 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
     if not inputs.compare:
         sec.note("No comparison tables were found (compare/*.csv): run 'ped2g compare' to add them.")
         return False
+    refit = (extras.get("summary") or {}).get("refit_null")
+    if refit:
+        _findings(sec, inputs, refit, mass)
     if extras.get("summary"):
         sec.heading("Comparison settings")
         sec.table(html.key_values(tables.record_items(extras["summary"])))
@@ -407,11 +411,19 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
             if col.startswith("n_not"):
                 bad[col] = pd.to_numeric(checks[col], errors="coerce").fillna(0) > 0
         sec.table(html.table(checks, misses=bad))
-    sec.text(f"Observed statistics (blue) against the same statistics on the null G's (grey), each as "
-             f"posterior median and {mass:.0%} HPD interval; G matrices on the {scale} scale. "
-             "P(observed > null) is the paired posterior probability that the observed value exceeds "
-             "the null; highlighted rows are those whose intervals do not overlap (a strict criterion, "
-             "see Cautions).")
+    if refit:
+        sec.text(f"Each statistic's posterior median and {mass:.0%} HPD interval (G matrices on the {scale} "
+                 "scale); the tested value (the posterior mean, or for one population its distance from the "
+                 "mean over populations), what estimation noise alone gives for it under a shared G, its "
+                 "p-value and Holm-adjusted p-value; highlighted rows are the differences the reading rule "
+                 "supports.")
+    else:
+        sec.text(f"Observed statistics (blue) against the same statistics on the null G's (grey), each as "
+                 f"posterior median and {mass:.0%} HPD interval; G matrices on the {scale} scale. "
+                 "P(observed > null) is the paired posterior probability that the observed value exceeds "
+                 "the null; highlighted rows are those whose intervals do not overlap (a strict criterion, "
+                 "see Cautions). This breeding-value null is descriptive: it has no error of estimating G, "
+                 "so it is not a test.")
     loadings = extras.get("loadings")
     draws = read_compare_draws(inputs.root)
     has_null_cols = False
@@ -427,7 +439,8 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
             if len(described):
                 sec.items([f"{r.statistic}: {r.description}" for r in described.itertuples()])
         compact = tables.compare_compact(display, mass)
-        sec.table(html.table(compact, misses=_no_overlap(compact), max_rows=MAX_HTML_ROWS))
+        marks = _supported(compact) if "supported" in compact else _no_overlap(compact)
+        sec.table(html.table(compact, misses=marks, max_rows=MAX_HTML_ROWS))
         forest, matrices, too_long = {}, {}, []
         for statistic, part in frame.groupby("statistic", sort=False):
             part = part.reset_index(drop=True)
@@ -524,6 +537,55 @@ def _loadings_figures(sec: Section, method: str, loadings: pd.DataFrame | None, 
             group = "component"
         sec.figure(store.add(f"loadings_{reference}", loadings_figure(part, traits, group, title),
                              title, f"{title} (compare/loadings.csv, reference {reference})."))
+
+
+def _supported(display: pd.DataFrame) -> pd.DataFrame:
+    """Highlight the rows the reading rule supports as differences."""
+    mask = pd.DataFrame(False, index=display.index, columns=display.columns)
+    mask["supported"] = display["supported"] == "yes"
+    return mask.reset_index(drop=True)
+
+
+def _findings(sec: Section, inputs: ResultInputs, refit: dict[str, Any], mass: float) -> None:
+    """What the calibrated tests say, generated from the numbers: the rule, then the supported
+    differences and the count of those that are not."""
+    sec.heading("Findings: differences beyond estimation noise")
+    sec.text(refit["reading_rule"])
+    found, tested = [], 0
+    for method, frame in inputs.compare.items():
+        if "p_adjusted" not in frame:
+            continue
+        rows = frame[frame["p_adjusted"].notna()].reset_index(drop=True)
+        tested += len(rows)
+        labels = tables.row_labels(rows)
+        yes = np.array(tables.supported_words(rows["supported"])) == "yes"
+        for i in np.flatnonzero(yes):
+            r = rows.iloc[i]
+            found.append(f"{METHOD_TITLES.get(method, method)}, {r['statistic']} ({labels[i]}): "
+                         f"{html.fmt(r['test_value'])} where noise alone gives {html.fmt(r['null_refit_median'])} "
+                         f"[{html.fmt(r['null_refit_lower'])}, {html.fmt(r['null_refit_upper'])}]; "
+                         f"p = {html.fmt(r['p_value'])}, Holm-adjusted p = {html.fmt(r['p_adjusted'])}")
+    if found:
+        sec.text(f"{len(found)} of {tested} tested statistics differ by more than estimation noise alone "
+                 "would give:")
+        sec.items(found)
+    else:
+        sec.text(f"None of the {tested} tested statistics differs by more than estimation noise alone would "
+                 "give: the data do not show that these G matrices differ (which is not evidence that "
+                 "they are equal).")
+    sec.note(f"The refitting null: {refit['replicates']} simulated studies in which every population "
+             f"shares one G (the mean of the posterior-mean G matrices), each refitted like the data "
+             f"({refit['chains']} chain(s) of {refit['warmup']} + {refit['draws']} iterations). The "
+             f"estimate compared is each statistic's posterior mean; its Monte Carlo error is "
+             f"{_share(refit.get('mcse_over_null_sd_median'))} of the null's spread (median over "
+             f"statistics). Short refit chains are judged by that error, not by the fits' checks: the "
+             f"largest split R-hat over G had median {refit.get('refit_rhat_max_median', float('nan')):.3f} "
+             f"and exceeded 1.05 in {refit.get('refits_over_rhat_1.05', 'an unknown number of')} of "
+             f"{refit['refits']} refits.")
+
+
+def _share(x: Any) -> str:
+    return "unknown" if x is None else f"{100 * float(x):.0f}%"
 
 
 def _no_overlap(display: pd.DataFrame) -> pd.DataFrame | None:

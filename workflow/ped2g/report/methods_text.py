@@ -11,6 +11,11 @@ from typing import Any
 
 #: Full references, keyed by the short citation used in the text.
 REFERENCES: dict[str, str] = {
+    "Holm 1979": "Holm S (1979) A simple sequentially rejective multiple test procedure. Scandinavian "
+                 "Journal of Statistics 6:65-70.",
+    "Morrissey et al. 2019": "Morrissey MB, Hangartner S, Monro K (2019) A note on simulating null "
+                             "distributions for G matrix comparisons. Evolution 73:2512-2517 (recalled "
+                             "from memory).",
     "Aguirre et al. 2014": "Aguirre JD, Hine E, McGuigan K, Blows MW (2014) Comparing G: multivariate "
                            "analysis of genetic variation in multiple populations. Heredity 112:21-29.",
     "Basser & Pajevic 2007": "Basser PJ, Pajevic S (2007) Spectral decomposition of a 4th-order covariance "
@@ -218,14 +223,32 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
             cite("Houle 1992")
         sentences.append(
             f"On every posterior draw, and {SCALE_TEXT[scale]}, we computed " + "; ".join(parts) + ".")
-    if null_present:
+    refit = (compare_record or {}).get("refit_null")
+    if refit:
+        from ..compare.calibrated import READING_RULE
+
+        sentences.append(
+            "Whether populations differ by more than estimation noise was judged against a refitting null "
+            f"({cite('Morrissey et al. 2019')}): {refit['replicates']} studies were simulated in which every "
+            "population shares one G (the mean of the populations' posterior-mean G), each on that "
+            "population's own pedigree, records, missing cells, fixed effects and residual and other "
+            "covariances (posterior means), and refitted with the same model, engine and priors "
+            f"({refit['chains']} chain(s) of {refit['warmup']} + {refit['draws']} iterations). Each "
+            "statistic's posterior mean from the data was compared with its posterior means on the "
+            "replicates (a statistic of one population by its distance from the mean over populations; "
+            "p = (1 + number of replicates at least as extreme) / (replicates + 1)), and p-values were "
+            f"adjusted by Holm's method ({cite('Holm 1979')}) within each family of tests (the rows of "
+            "one statistic that differ only in the populations compared). "
+            + READING_RULE.format(alpha=float(config["compare"]["alpha"])))
+    elif null_present:
         est = config["compare"]["null_model"]["estimator"]
         sentences.append(
             f"Each statistic was set against a randomisation null ({cite('Aguirre et al. 2014')}): for "
             "every posterior draw, breeding values were simulated down each population's pedigree with "
             "that draw's G, the phenotyped animals were randomly reassigned to populations of the original "
             f"sizes, and a null G was estimated per population {NULL_ESTIMATOR_TEXT[est]}; the same "
-            "statistics were computed on the null G's.")
+            "statistics were computed on the null G's. This null carries no error of estimating G and "
+            "was used descriptively, not as a test.")
     sentences.append(
         f"Computations used Python {v('python')}, NumPy {v('numpy')}, SciPy {v('scipy')}, "
         f"PyTensor {v('pytensor')} and xarray {v('xarray')}.")
@@ -233,7 +256,7 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
 
 
 def cautions(config: dict[str, Any], failed_fits: list[str], null_present: bool,
-             has_null_columns: bool, n_changes: int | None) -> list[str]:
+             has_null_columns: bool, n_changes: int | None, refit: dict[str, Any] | None = None) -> list[str]:
     """Plain-language cautions for reading the results (assumptions first, then reading rules)."""
     mass = config["compare"]["interval_mass"]
     priors = config["model"]["priors"]
@@ -259,19 +282,38 @@ def cautions(config: dict[str, Any], failed_fits: list[str], null_present: bool,
         f"Reading intervals: requiring two {mass:.0%} intervals not to overlap is a much stricter "
         f"criterion than a test at the {1 - mass:.0%} level (Schenker & Gentleman 2001), and overlapping "
         "intervals do not show "
-        "that two quantities are equal. Use the paired posterior probability (p_obs_gt_null) and the "
-        "posterior of differences, not overlap alone.",
+        "that two quantities are equal. "
+        + ("Whether populations differ is read from the calibrated p-values (the reading rule in the "
+           "Comparisons section), not from overlap." if refit else
+           "Use the paired posterior probability (p_obs_gt_null) and the posterior of differences, not "
+           "overlap alone."),
         "HPD intervals are single intervals even when a posterior has several modes, are not invariant "
         "to transformation, and for variances piled up near zero they include the boundary.",
-        "Many statistics are reported at once; treat them as a description of how the G matrices differ, "
-        "not as many independent tests.",
+        ("Holm's adjustment controls the chance of any false difference within one family of tests, "
+         "not across every statistic of the report: the more families are read, the likelier one chance "
+         "finding among them." if refit else
+         "Many statistics are reported at once; treat them as a description of how the G matrices differ, "
+         "not as many independent tests."),
         "Statistics of G depend on the scale of the traits. Variance-standardised comparisons change when "
         "phenotypic (including environmental) variance differs among populations; mean-standardisation is "
         "meaningful only for ratio-scale traits with positive means. Heritability is not evolvability.",
         "Eigenvector-based summaries (g_max, Krzanowski subspaces, eigentensors) are unstable when "
         "eigenvalues are close; their posteriors are then wide and their directions arbitrary.",
     ]
-    if null_present or has_null_columns:
+    if refit:
+        items.append(
+            "The refitting null assumes the fitted model is right for every population (additive "
+            "inheritance, normal effects, the fixed and random effects in the config) and replaces each "
+            "population's R and fixed effects by their posterior means; under it the p-values are "
+            "calibrated, but a model that fits poorly can still make populations look different. "
+            "A difference that is not supported is one the data cannot tell from noise; it is not "
+            "evidence that the G matrices are equal, and small studies have little power.")
+        items.append(
+            "Each population's posterior mean of G is shrunk towards the prior when its data are few "
+            "(variances near zero are pulled up, large ones down); the refitting null carries the same "
+            "shrinkage, so the tests stay calibrated, but point estimates of single G elements and "
+            "heritabilities from a few hundred records can sit far from the truth.")
+    elif null_present or has_null_columns:
         items.append(
             "The randomisation null contains no prediction error: its breeding values are simulated "
             "exactly, while the observed G's were estimated from phenotypes. The null is therefore "

@@ -387,6 +387,12 @@ def compare_display(frame: pd.DataFrame) -> pd.DataFrame:
     return out[cols]
 
 
+def supported_words(column: pd.Series) -> list[str]:
+    """The ``supported`` column as yes / no / blank (untested), whatever its stored spelling."""
+    text = column.astype(str).str.lower()
+    return ["yes" if v in ("true", "1", "1.0") else "no" if v in ("false", "0", "0.0") else "" for v in text]
+
+
 def compare_compact(display: pd.DataFrame, mass: float) -> pd.DataFrame:
     """A narrow version of :func:`compare_display` for the HTML page: one label column and the
     intervals written as ``[lower, upper]``."""
@@ -402,6 +408,17 @@ def compare_compact(display: pd.DataFrame, mass: float) -> pd.DataFrame:
                         "compared": row_labels(display),
                         "observed": display["estimate"].to_numpy(),
                         f"{mass:.0%} HPD": interval("lower", "upper")})
+    if "p_adjusted" in display and display["p_adjusted"].notna().any():
+        # the calibrated test against the refitting null (the reading rule's columns)
+        out["tested value"] = display["test_value"].to_numpy()
+        out[f"noise alone: median [{mass:.0%}]"] = [
+            f"{fmt(m)} [{fmt(a)}, {fmt(b)}]" if _present(m) else ""
+            for m, a, b in zip(display["null_refit_median"], display["null_refit_lower"],
+                               display["null_refit_upper"])]
+        out["p"] = display["p_value"].to_numpy()
+        out["p (Holm)"] = display["p_adjusted"].to_numpy()
+        out["supported"] = supported_words(display["supported"])
+        return out
     if "null_estimate" in display and display["null_estimate"].notna().any():
         out["null"] = display["null_estimate"].to_numpy()
         out[f"null {mass:.0%} HPD"] = interval("null_lower", "null_upper")

@@ -1,0 +1,169 @@
+"""Calibration and power of the refitting null's tests over simulated studies.
+
+Each simulated study takes a fixed design -- every population's pedigree, records, missing cells
+and fixed-effect rows -- and simulates new records with known G, R and fixed effects; it is then
+analysed exactly as the workflow does: each population is fitted (the "observed" fit), the
+refitting null simulates ``replicates`` studies under the mean of the posterior-mean G matrices
+and refits them, and the compare stage's :func:`ped2g.compare.pipeline.compare` gives every row
+its p-value. When every population shares one G, a calibrated test has P(p < 0.05) = 0.05 for
+every statistic, within Monte Carlo error (sqrt(0.05 * 0.95 / studies)); with real differences
+the same share is the power.
+
+To keep this affordable the observed fits use the refits' shorter chains (the estimate is the
+posterior mean in both, so only its small Monte Carlo error differs), and each population's model
+is compiled once for every study (only the records change).
+
+Run as a script (the README quotes its tables)::
+
+    python tests/null/refit_calibration.py --studies 20 --replicates 39            # shared G
+    python tests/null/refit_calibration.py --studies 10 --replicates 39 --truth    # the demo's G
+
+``--truth`` simulates with the demo's true G matrices (one population reduced along one axis,
+one with a rotated leading axis), which gives the power. The slow test
+(tests/null/test_refit_calibration.py) runs a tiny design.
+"""
+
+from __future__ import annotations
+
+import argparse
+import copy
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import yaml
+
+from ped2g.compare.pipeline import compare
+from ped2g.config import validate
+from ped2g.null.refit import (DesignParameters, Refitter, design_parameters, replicate_name,
+                              shared_G, simulate_records)
+from ped2g.null.refit_io import DIAGNOSTICS, RefitNull
+from ped2g.posterior import FitSet
+from ped2g.rng import generator
+
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def demo_design(config_path: Path = ROOT / "config" / "config.yaml"):
+    """The demo study's prepared populations, its validated config and its truth file."""
+    from ped2g.config import load_config
+    from ped2g.fit.prepare import prepare
+    from ped2g.io import read_table
+    from ped2g.pedigree.clean import read_raw_pedigree
+
+    cfg = load_config(config_path)
+    cols = cfg["data"]["columns"]
+    ped, _ = read_raw_pedigree(ROOT / cfg["data"]["pedigree"], id_col=cols["id"], sire_col=cols["sire"],
+                               dam_col=cols["dam"], missing=cfg["data"]["missing_parent"])
+    phen = read_table(ROOT / cfg["data"]["phenotypes"], "phenotype table")
+    truth = yaml.safe_load((ROOT / "resources_demo" / "truth.yaml").read_text(encoding="utf-8"))
+    pops = list(truth["populations"])
+    data = {p: prepare(cfg, phen, ped, p) for p in pops}
+    return data, cfg, truth
+
+
+def true_parameters(data, truth: dict, shared: bool) -> tuple[dict, dict]:
+    """True G and design parameters per population from the demo's truth file (the records'
+    fixed part from its intercepts and sex effects)."""
+    Gs, params = {}, {}
+    pops = list(data)
+    G_ref = np.array(truth["populations"][pops[0]]["G"])
+    for p, d in data.items():
+        tp = truth["populations"][p]
+        traits = d.traits
+        intercept = np.array([tp["intercept"][t] for t in traits])
+        sex = np.array([tp["sex_effect"][t] for t in traits])
+        mu = intercept + d.X[:, 1:2] * sex if d.X.shape[1] > 1 else np.broadcast_to(intercept, (d.n_records, len(traits)))
+        params[p] = DesignParameters(mu=np.array(mu, dtype=float), R=np.array(tp["R"]))
+        Gs[p] = G_ref if shared else np.array(tp["G"])
+    return Gs, params
+
+
+def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int, study: int) -> pd.DataFrame:
+    """Fit one simulated study, build its refitting null, and return every compare row."""
+    pops = list(data)
+    observed = {p: refitters[p].refit(Y[p], f"calibration:{study}:{p}") for p in pops}
+    G0 = shared_G([observed[p].G.mean(axis=0) for p in pops])
+    params = {p: design_parameters(data[p], observed[p].means) for p in pops}
+    seed = int(config["sampling"]["seed"]) + 1000 * study
+    reps = {p: [refitters[p].refit(simulate_records(data[p], G0, params[p],
+                                                    generator(seed, "null_refit", p, r)),
+                                   replicate_name(p, r) + f":{study}") for r in range(replicates)]
+            for p in pops}
+    traits = data[pops[0]].traits
+
+    def stack(items, name, axis):
+        return np.stack([getattr(i, name) for i in items], axis=axis)
+
+    obs = [observed[p] for p in pops]
+    fits = FitSet(populations=pops, traits=traits, G=stack(obs, "G", 1), R=stack(obs, "P", 1) - stack(obs, "G", 1),
+                  P=stack(obs, "P", 1), mean=stack(obs, "mean", 1), draw_index=np.arange(obs[0].G.shape[0]), fits=[])
+    null = RefitNull(
+        populations=pops, traits=traits, replicates=np.arange(replicates),
+        G=np.stack([stack([reps[p][r] for p in pops], "G", 1) for r in range(replicates)]),
+        P=np.stack([stack([reps[p][r] for p in pops], "P", 1) for r in range(replicates)]),
+        mean=np.stack([stack([reps[p][r] for p in pops], "mean", 1) for r in range(replicates)]),
+        diagnostics=pd.DataFrame([{"population": p, "replicate": r,
+                                   **{k: getattr(reps[p][r], k) for k in DIAGNOSTICS}}
+                                  for p in pops for r in range(replicates)]),
+        shared_G=G0, attrs={})
+    # the share of p < 0.05 needs no Holm-reachable replicate count: allow fewer replicates
+    result = compare(fits, None, config, refits=null, check_replicates=False)
+    rows = pd.concat(result.tables.values(), ignore_index=True)
+    rows = rows[rows["p_value"].notna()].copy()
+    rows["study"] = study
+    return rows
+
+
+def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicates: int,
+        seed: int = 1, progress=print) -> pd.DataFrame:
+    """Simulate and analyse ``studies`` studies on one design; every tested row of every study."""
+    config = copy.deepcopy(config)
+    config["checks"]["on_failure"] = "flag"
+    refitters = {p: Refitter(d, "marginal", config) for p, d in data.items()}
+    out = []
+    for s in range(studies):
+        start = time.perf_counter()
+        Y = {p: simulate_records(d, Gs[p], params[p], generator(seed, "calibration", s, p))
+             for p, d in data.items()}
+        out.append(analyse(refitters, data, Y, config, replicates, s))
+        progress(f"study {s + 1} of {studies} in {time.perf_counter() - start:.0f} s")
+    return pd.concat(out, ignore_index=True)
+
+
+def share_table(rows: pd.DataFrame, level: float = 0.05) -> pd.DataFrame:
+    """Per statistic: rows, share with p < level, its Monte Carlo SE, share supported (Holm)."""
+    g = rows.groupby(["method", "statistic"])
+    table = pd.DataFrame({
+        "rows": g.size(),
+        "share_p_below": g["p_value"].apply(lambda p: float((p < level).mean())),
+        "share_supported": g["supported"].apply(lambda s: float(s.fillna(False).astype(bool).mean())),
+    })
+    table["mc_se"] = np.sqrt(level * (1 - level) / g["study"].nunique())
+    return table.reset_index()
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--studies", type=int, default=20)
+    parser.add_argument("--replicates", type=int, default=39)
+    parser.add_argument("--truth", action="store_true", help="simulate with the demo's true G matrices (power)")
+    parser.add_argument("--seed", type=int, default=1)
+    parser.add_argument("--out", default=None, help="CSV of every tested row")
+    args = parser.parse_args()
+    data, cfg, truth = demo_design()
+    cfg = validate({**cfg, "compare": {**cfg["compare"], "null_model": {**cfg["compare"]["null_model"]}}})
+    Gs, params = true_parameters(data, truth, shared=not args.truth)
+    start = time.perf_counter()
+    rows = run(data, cfg, Gs, params, args.studies, args.replicates, args.seed)
+    if args.out:
+        rows.to_csv(args.out, index=False)
+    print(f"{args.studies} studies x {args.replicates} null replicates, "
+          f"{'the demo truth (power)' if args.truth else 'one shared G (calibration)'}, "
+          f"{time.perf_counter() - start:.0f} s")
+    print(share_table(rows).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
+
+
+if __name__ == "__main__":
+    main()
