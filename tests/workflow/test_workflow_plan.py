@@ -26,6 +26,7 @@ STAGE_OUTPUTS = {
     "fit": ["fits/{p}/posterior.nc", "fits/{p}/parameters.csv", "fits/{p}/diagnostics.json",
             "fits/{p}/pedigree_used.csv"],
     "null": ["null/null_G.nc", "null/summary.json"],
+    "null_refit": ["null/refits/{p}/replicates_0.nc", "null/refits/{p}/replicates_1.nc"],
     "compare": ["compare/draws.nc"],
     "report": ["report/report.html"],
 }
@@ -38,21 +39,27 @@ def test_dry_run_lists_one_fit_per_population(tmp_path):
     table = pd.read_csv(tmp_path / "data" / "phenotypes.csv", dtype=str)
     populations = sorted(table["site"].unique())
     assert populations == ["north", "south"]
-    assert planned_jobs(result) == {"pedigree": 1, "fit": 2, "null": 1, "compare": 1,
+    # the refitting null: config/tiny.yaml asks for 40 replicates, 20 per job
+    assert planned_jobs(result) == {"pedigree": 1, "fit": 2, "null_refit": 4, "compare": 1,
                                     "report": 1, "all": 1}
+    assert planned_wildcards(result, "null_refit") == ["north", "north", "south", "south"]
     assert planned_wildcards(result, "fit") == populations
 
 
 def test_populations_key_limits_the_fits(tmp_path):
     # three populations in the table: every one by default, the listed ones when listed
-    config = make_study(tmp_path)
+    # three populations need 60 null replicates with the tiny study's two traits (alpha 0.05)
+    null_model = {"replicates": 60, "replicates_per_job": 20,
+                  "refit": {"chains": 1, "warmup": 100, "draws": 100}}
+    config = make_study(tmp_path, compare={"skewers": 50, "null_model": null_model})
     table = pd.read_csv(tmp_path / "data" / "phenotypes.csv", dtype=str)
     table.loc[table["bird"].isin([f"S{i:03d}" for i in range(1, 13)]), "site"] = "east"
     table.to_csv(tmp_path / "data" / "phenotypes.csv", index=False)
     everything = snakemake(tmp_path, "-n", config=config)
     assert everything.returncode == 0, everything.stderr[-3000:]
     assert planned_wildcards(everything, "fit") == ["east", "north", "south"]
-    config = make_study(tmp_path, populations=["south", "east"])
+    config = make_study(tmp_path, populations=["south", "east"],
+                        compare={"skewers": 50, "null_model": null_model})
     table.to_csv(tmp_path / "data" / "phenotypes.csv", index=False)  # make_study copied afresh
     result = snakemake(tmp_path, "-n", config=config)
     assert result.returncode == 0, result.stderr[-3000:]
@@ -97,6 +104,10 @@ MISTAKES = {
                                                 "population": "site"}}},
                           ["data.columns.id", "ring"]),
     "one population only": ({"populations": ["north"]}, ["two populations", "populations"]),
+    "alpha outside (0, 1)": ({"compare": {"alpha": 1.5}}, ["compare.alpha", "1.5"]),
+    # two populations, two traits: Holm's smallest adjusted p 2 / (R + 1) < 0.05 needs R >= 40
+    "too few null replicates": ({"compare": {"null_model": {"replicates": 25}}},
+                                ["compare.null_model.replicates", "25", "at least 40"]),
 }
 
 
@@ -183,13 +194,20 @@ def _fake_finished_run(folder: Path, populations: list[str]) -> None:
 @pytest.mark.parametrize("changes, expected", [
     ({}, {}),
     ({"compare": {"skewers": 80}}, {"compare": 1, "report": 1, "all": 1}),
-    ({"compare": {"null_model": {"estimator": "sample"}}},
-     {"null": 1, "compare": 1, "report": 1, "all": 1}),
+    # the breeding-value null's estimator is not read by the refitting null
+    ({"compare": {"null_model": {"estimator": "sample", "replicates": 40, "replicates_per_job": 20,
+                                 "refit": {"chains": 1, "warmup": 100, "draws": 100}}}},
+     {"compare": 1, "report": 1, "all": 1}),
+    ({"compare": {"null_model": {"replicates": 40, "replicates_per_job": 20,
+                                 "refit": {"chains": 1, "warmup": 100, "draws": 120}}}},
+     {"null_refit": 4, "compare": 1, "report": 1, "all": 1}),
+    ({"compare": {"alpha": 0.1}}, {"compare": 1, "report": 1, "all": 1}),
     ({"report": {"title": "Another title"}}, {"report": 1, "all": 1}),
-    ({"sampling": {"draws": 150}}, {"fit": 2, "null": 1, "compare": 1, "report": 1, "all": 1}),
+    ({"sampling": {"draws": 150}}, {"fit": 2, "null_refit": 4, "compare": 1, "report": 1, "all": 1}),
     ({"data": {"missing_parent": ["0", "NA", "-"]}},
-     {"pedigree": 1, "fit": 2, "null": 1, "compare": 1, "report": 1, "all": 1}),
-], ids=["nothing", "skewers", "null-estimator", "report-title", "draws", "missing-codes"])
+     {"pedigree": 1, "fit": 2, "null_refit": 4, "compare": 1, "report": 1, "all": 1}),
+], ids=["nothing", "skewers", "null-estimator", "refit-draws", "alpha", "report-title", "draws",
+        "missing-codes"])
 def test_a_settings_change_reruns_only_the_stages_it_affects(tmp_path, changes, expected):
     config = make_study(tmp_path)
     first = snakemake(tmp_path, "-n", config=config)  # writes results/config/*.yaml
@@ -211,4 +229,4 @@ def test_changed_phenotype_table_reruns_the_fits(tmp_path):
     _fake_finished_run(tmp_path, ["north", "south"])
     (tmp_path / "data" / "phenotypes.csv").touch()
     result = snakemake(tmp_path, "-n", config=config)
-    assert planned_jobs(result) == {"fit": 2, "null": 1, "compare": 1, "report": 1, "all": 1}
+    assert planned_jobs(result) == {"fit": 2, "null_refit": 4, "compare": 1, "report": 1, "all": 1}

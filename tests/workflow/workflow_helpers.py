@@ -81,7 +81,7 @@ def planned_wildcards(result: subprocess.CompletedProcess, rule: str) -> list[st
     found = []
     for block in blocks:
         if re.match(rf"\s*(local)?rule {rule}:", block):
-            m = re.search(r"wildcards: population=(\S+)", block)
+            m = re.search(r"wildcards: population=([^,\s]+)", block)
             if m:
                 found.append(m.group(1))
     return sorted(found)

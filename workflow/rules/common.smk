@@ -227,7 +227,7 @@ STAGE_KEYS = {
     "fit": ["data", "traits", "fixed", "random", "model", "sampling", "checks"],
     "null": ["traits", "sampling.seed", "compare.null_model", "compare.max_draws"],
     "null_refit": ["data", "traits", "fixed", "random", "model", "sampling.seed",
-                   "sampling.target_accept", "compare.null_model"],
+                   "sampling.target_accept", "compare.null_model.replicates", "compare.null_model.refit"],
     "compare": ["traits", "sampling.seed", "compare", "checks.max_rhat"],
     "report": None,  # the whole config: the report shows all of it
 }
