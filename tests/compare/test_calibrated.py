@@ -87,3 +87,10 @@ def test_replicates_needed_let_the_largest_family_reach_alpha():
 
 def test_reading_rule_names_its_level():
     assert "alpha = 0.05" in READING_RULE.format(alpha=0.05)
+
+
+def test_the_readme_states_the_reading_rule_in_the_same_words():
+    from pathlib import Path
+
+    readme = " ".join((Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8").split())
+    assert " ".join(READING_RULE.format(alpha=0.05).split()) in readme

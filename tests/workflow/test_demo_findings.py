@@ -13,7 +13,15 @@ first command does, and checks that
   covariance tensor: one eigenvector of that eigentensor lies close to the true direction, and the
   reduced population has the least genetic variance of all populations along it;
 * the rotated population shows the largest g_max angle: every pair of populations that includes
-  it has a larger posterior-mean angle between g_max vectors than any pair that does not.
+  it has a larger posterior-mean angle between g_max vectors than any pair that does not;
+* against the refitting null (the workflow's default): the leading eigentensor's variance is a
+  supported difference (Holm-adjusted p < compare.alpha), the reduced population's deviation
+  along the axis above has p < 0.05, the angle between the rotated population's g_max and the
+  reference population's has p < 0.05, and the g_max angle of the reference and the reduced
+  population -- equal in truth (the reduction is along another axis) -- is not flagged.
+
+The demo's 500 records per population give these tests modest power (tests/null/
+refit_calibration.py --truth measures it); the demo's numbers are fixed by its seed.
 """
 
 from __future__ import annotations
@@ -39,6 +47,7 @@ def demo(tmp_path_factory):
     shutil.copy(ROOT / "config" / "config.yaml", config)
     result = snakemake(folder, "--cores", "2", config=config, timeout=1800)
     assert result.returncode == 0, (result.stdout + result.stderr)[-5000:]
+    assert list((folder / "results" / "null" / "refits").iterdir()), "the refitting null did not run"
     truth = yaml.safe_load((folder / "resources_demo" / "truth.yaml").read_text(encoding="utf-8"))
     return folder, truth
 
@@ -69,10 +78,15 @@ def test_reduced_population_shows_in_the_leading_eigentensor(demo):
     assert cosines[best] > 0.8, cosines
 
     tensor = pd.read_csv(folder / "results/compare/tensor.csv")
-    along = tensor[(tensor.statistic == "vector_variance") & (tensor.axis == 1)
-                   & (tensor.axis2 == best)].set_index("population")["mean"]
+    rows = tensor[(tensor.statistic == "vector_variance") & (tensor.axis == 1)
+                  & (tensor.axis2 == best)].set_index("population")
+    along = rows["mean"]
     assert set(along.index) == set(truth["populations"])
     assert along.idxmin() == reduced, along.to_dict()
+    # calibrated: the reduced population stands out along that axis beyond estimation noise
+    assert rows.loc[reduced, "p_value"] < 0.05, rows[["mean", "p_value", "p_adjusted"]]
+    leading = tensor[(tensor.statistic == "variance") & (tensor.axis == 1)].iloc[0]
+    assert leading["p_adjusted"] < 0.05 and bool(leading["supported"]), leading
 
 
 def test_rotated_population_shows_the_largest_gmax_angle(demo):
@@ -82,5 +96,12 @@ def test_rotated_population_shows_the_largest_gmax_angle(demo):
     pairs = gmax[gmax.statistic == "angle_between"]
     assert len(pairs) == 3
     with_rotated = pairs[(pairs.population == rotated) | (pairs.population2 == rotated)]["mean"]
-    without = pairs[(pairs.population != rotated) & (pairs.population2 != rotated)]["mean"]
-    assert with_rotated.min() > without.max(), pairs[["population", "population2", "mean"]]
+    without = pairs[(pairs.population != rotated) & (pairs.population2 != rotated)]
+    assert with_rotated.min() > without["mean"].max(), pairs[["population", "population2", "mean"]]
+    # calibrated: the rotated g_max against the reference's is beyond estimation noise, while the
+    # angle of the two populations whose g_max is the same in truth is not flagged
+    reference = _population_with(truth, "reference")
+    turned = pairs[pairs.population.isin([rotated, reference]) & pairs.population2.isin([rotated, reference])]
+    assert len(turned) == 1 and turned["p_value"].iloc[0] < 0.05, pairs[["population", "population2", "p_value"]]
+    assert len(without) == 1
+    assert without["p_value"].iloc[0] >= 0.05 and not bool(without["supported"].iloc[0]), without
