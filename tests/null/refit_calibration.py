@@ -80,10 +80,33 @@ def true_parameters(data, truth: dict, shared: bool) -> tuple[dict, dict]:
     return Gs, params
 
 
-def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int, study: int) -> pd.DataFrame:
-    """Fit one simulated study, build its refitting null, and return every compare row."""
+def recovery_rows(rep, G_true: np.ndarray, R_true: np.ndarray, traits: list[str], mass: float = 0.9) -> list[dict]:
+    """Bias and interval coverage of one fit: every lower-triangle element of G and every h2, with
+    its posterior mean, HPD and equal-tailed intervals at ``mass`` and the true value."""
+    from ped2g.intervals import equal_tailed, hpd
+
+    t = len(traits)
+    P_true = G_true + R_true
+    rows = []
+    values = {f"G[{traits[i]},{traits[j]}]": (rep.G[:, i, j], G_true[i, j]) for i in range(t) for j in range(i + 1)}
+    values.update({f"h2[{traits[i]}]": (rep.G[:, i, i] / rep.P[:, i, i], G_true[i, i] / P_true[i, i]) for i in range(t)})
+    for name, (draws, truth) in values.items():
+        lo, hi = hpd(draws, mass)
+        elo, ehi = equal_tailed(draws, mass)
+        rows.append({"parameter": name, "truth": float(truth), "mean": float(draws.mean()), "sd": float(draws.std()),
+                     "hpd_covers": bool(lo <= truth <= hi), "et_covers": bool(elo <= truth <= ehi)})
+    return rows
+
+
+def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int, study: int,
+            truth: dict | None = None) -> pd.DataFrame:
+    """Fit one simulated study, build its refitting null, and return every compare row (and, with
+    ``truth`` = {population: (G, R)}, the fits' recovery rows in ``analyse.recovery``)."""
     pops = list(data)
     observed = {p: refitters[p].refit(Y[p], f"calibration:{study}:{p}") for p in pops}
+    if truth is not None:
+        analyse.recovery = [dict(r, population=p, study=study)
+                            for p in pops for r in recovery_rows(observed[p], *truth[p], data[p].traits)]
     G0 = shared_G([observed[p].G.mean(axis=0) for p in pops])
     params = {p: design_parameters(data[p], observed[p].means) for p in pops}
     seed = int(config["sampling"]["seed"]) + 1000 * study
@@ -118,18 +141,34 @@ def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int,
 
 def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicates: int,
         seed: int = 1, progress=print) -> pd.DataFrame:
-    """Simulate and analyse ``studies`` studies on one design; every tested row of every study."""
+    """Simulate and analyse ``studies`` studies on one design; every tested row of every study.
+
+    The fits' recovery of the true G and h2 (one row per study, population and parameter) is left
+    in ``run.recovery``."""
     config = copy.deepcopy(config)
     config["checks"]["on_failure"] = "flag"
     refitters = {p: Refitter(d, "marginal", config) for p, d in data.items()}
-    out = []
+    out, recovery = [], []
+    truth = {p: (Gs[p], params[p].R) for p in data}
     for s in range(studies):
         start = time.perf_counter()
         Y = {p: simulate_records(d, Gs[p], params[p], generator(seed, "calibration", s, p))
              for p, d in data.items()}
-        out.append(analyse(refitters, data, Y, config, replicates, s))
+        out.append(analyse(refitters, data, Y, config, replicates, s, truth))
+        recovery += analyse.recovery
         progress(f"study {s + 1} of {studies} in {time.perf_counter() - start:.0f} s")
+    run.recovery = pd.DataFrame(recovery)
     return pd.concat(out, ignore_index=True)
+
+
+def recovery_table(recovery: pd.DataFrame) -> pd.DataFrame:
+    """Per parameter: mean bias, bias in posterior SDs, 90% HPD and equal-tailed coverage."""
+    r = recovery.assign(bias=recovery["mean"] - recovery["truth"],
+                        z=(recovery["mean"] - recovery["truth"]) / recovery["sd"])
+    g = r.groupby("parameter", sort=False)
+    return pd.DataFrame({"fits": g.size(), "truth_mean": g["truth"].mean(), "bias": g["bias"].mean(),
+                         "bias_in_sd": g["z"].mean(), "hpd90_coverage": g["hpd_covers"].mean(),
+                         "et90_coverage": g["et_covers"].mean()}).reset_index()
 
 
 def share_table(rows: pd.DataFrame, level: float = 0.05) -> pd.DataFrame:
@@ -159,10 +198,18 @@ def main() -> None:
     rows = run(data, cfg, Gs, params, args.studies, args.replicates, args.seed)
     if args.out:
         rows.to_csv(args.out, index=False)
+        run.recovery.to_csv(str(args.out).replace(".csv", "") + "_recovery.csv", index=False)
     print(f"{args.studies} studies x {args.replicates} null replicates, "
           f"{'the demo truth (power)' if args.truth else 'one shared G (calibration)'}, "
           f"{time.perf_counter() - start:.0f} s")
     print(share_table(rows).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
+    print("recovery of the fits (1 chain x (150 + 300) each; 90% intervals):")
+    print(recovery_table(run.recovery).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
+    rec = run.recovery
+    print(f"all G elements: HPD {rec[rec.parameter.str.startswith('G')].hpd_covers.mean():.3f}, "
+          f"equal-tailed {rec[rec.parameter.str.startswith('G')].et_covers.mean():.3f}; all h2: HPD "
+          f"{rec[rec.parameter.str.startswith('h2')].hpd_covers.mean():.3f}, equal-tailed "
+          f"{rec[rec.parameter.str.startswith('h2')].et_covers.mean():.3f}")
 
 
 if __name__ == "__main__":

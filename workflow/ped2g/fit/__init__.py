@@ -47,6 +47,15 @@ Engine interface
         missing trait values); ped2g.fit.sample then runs PyMC's sampler with these steps
         before NUTS in every iteration.
 
+    with_records(data: FitData, y, center, scale) -> FitData
+        A copy of ``data`` with other standardised records (same animals, design and missing
+        cells), reusing what does not depend on the records (the marginal engine's
+        eigendecomposition). Used by the refitting null (ped2g.null.refit).
+
+    data_values(data: FitData, model_config: dict) -> dict
+        The model's ``pm.Data`` values that change when only the records change, for
+        ``compiled.with_data``; empty when a model must be built per data set instead.
+
     breeding_values(data: FitData, idata, rng, max_draws=None, conditional_mean=False) -> np.ndarray
         Breeding values of every animal of data.pedigree, shape (S, n_animals, t), standardised
         scale (multiply by data.y_scale for original units), for S = at most max_draws evenly
