@@ -21,8 +21,8 @@ from workflow_helpers import ROOT, make_study, planned_jobs, planned_wildcards, 
 
 STAGE_OUTPUTS = {
     # in the order the stages run
-    "pedigree": ["pedigree/pedigree.csv", "pedigree/ainverse.mtx", "pedigree/changes.csv",
-                 "pedigree/summary.json"],
+    "pedigree": ["pedigree/pedigree.csv", "pedigree/relationship_inverse.mtx",
+                 "pedigree/changes.csv", "pedigree/summary.json"],
     "fit": ["fits/{p}/posterior.nc", "fits/{p}/parameters.csv", "fits/{p}/diagnostics.json",
             "fits/{p}/pedigree_used.csv"],
     "null": ["null/null_G.nc", "null/summary.json"],
