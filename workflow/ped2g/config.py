@@ -1,7 +1,7 @@
 """Loading and validating the one config file that drives every stage.
 
-The schema (``workflow/schemas/config.schema.yaml``) gives every key a type, a description and a
-default. :func:`load_config` reads a YAML file, rejects unknown keys and wrong types with one line
+The schema (``schemas/config.schema.yaml`` inside this package, so an installed ped2g has it too)
+gives every key a type, a description and a default. :func:`load_config` reads a YAML file, rejects unknown keys and wrong types with one line
 naming the key's path, and returns the config with every default filled in.
 """
 
@@ -17,7 +17,8 @@ import yaml
 
 from .errors import UserError
 
-SCHEMA_PATH = Path(__file__).resolve().parents[1] / "schemas" / "config.schema.yaml"
+#: The one copy of the schema, package data (declared in pyproject.toml).
+SCHEMA_PATH = Path(__file__).resolve().parent / "schemas" / "config.schema.yaml"
 
 
 @lru_cache(maxsize=1)
