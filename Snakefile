@@ -17,7 +17,7 @@ configfile: "config/config.yaml"
 report: "workflow/report/workflow.rst"
 
 
-# Validates the config against workflow/schemas/config.schema.yaml, checks that the input
+# Validates the config against workflow/ped2g/schemas/config.schema.yaml, checks that the input
 # tables and their columns exist, reads the populations from the phenotype table and writes
 # the effective config and per-stage settings under results/config/. Any mistake ends here,
 # before a job runs, with one line naming the key or file.

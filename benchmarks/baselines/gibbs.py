@@ -36,7 +36,7 @@ from scipy import stats
 
 from ped2g.fit.data import FitData
 from ped2g.pedigree.core import Pedigree
-from ped2g.pedigree.relationships import ainverse
+from ped2g.pedigree.relationships import relationship_inverse
 
 
 def _factor(C: sp.csc_matrix):
@@ -78,7 +78,7 @@ class MixedModelEquations:
                           shape=(n_rec, self.q))
         self.W = sp.hstack([sp.csr_matrix(np.asarray(data.X, dtype=float)), Z]).tocsr()
         self.WtW = (self.W.T @ self.W).tocsr()
-        self.Ainv = ainverse(ped).tocsr()
+        self.Ainv = relationship_inverse(ped).tocsr()
         self.prior_block = sp.block_diag([sp.csr_matrix((self.p, self.p)), self.Ainv]).tocsr()
         sqrt_dinv = 1.0 / np.sqrt(ped.mendelian)
         # (I - P)' D^-1/2: a sparse square root of A^-1, padded with zero rows for the fixed effects.

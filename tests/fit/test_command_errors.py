@@ -119,3 +119,33 @@ def test_phenotyped_animal_absent_from_pedigree_is_added_as_founder():
     assert data.pedigree.sire[i] == -1 and data.pedigree.dam[i] == -1 and data.phenotyped[i]
     assert any("added as founders" in note and "stray" in note for note in data.notes)
     assert data.repeated_records
+
+
+@pytest.mark.parametrize("case,words", [
+    ("folder", ["is a folder"]),
+    ("empty", ["is empty"]),
+    ("twice", ["key 'traits' is given twice", "lines"]),
+    ("template", ["'__use_yte__'"]),
+    ("indefinite G", ["model.fixed_covariances.G", "not positive definite"]),
+])
+def test_config_file_refusals_end_in_one_line_and_write_nothing(tmp_path, capsys, case, words):
+    cfg = write_study(tmp_path)
+    text = cfg.read_text()
+    if case == "folder":
+        cfg = tmp_path / "configs"
+        cfg.mkdir()
+    elif case == "empty":
+        cfg.write_text("")
+    elif case == "twice":
+        cfg.write_text(text + "traits: [wing, mass]\n")
+    elif case == "template":
+        cfg.write_text("__use_yte__: true\n" + text)
+    else:
+        # [[1, 2], [2, 1]] has eigenvalues 3 and -1 (exact)
+        cfg.write_text(text + "model:\n  fixed_covariances:\n    G: [[1, 2], [2, 1]]\n"
+                              "    R: [[1, 0], [0, 1]]\n")
+    before = sorted(p.name for p in tmp_path.iterdir())
+    status, err = run_fit(tmp_path, capsys, cfg)
+    assert_one_line_error(status, err, str(cfg), *words)
+    assert len(err) == 1, err
+    assert sorted(p.name for p in tmp_path.iterdir()) == before  # no out/, nothing else

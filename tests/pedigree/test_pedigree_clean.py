@@ -16,7 +16,7 @@ from hypothesis import strategies as st
 
 from ped2g.errors import UserError
 from ped2g.pedigree.clean import clean_pedigree, order_parents_first, read_raw_pedigree
-from ped2g.pedigree.relationships import ainverse
+from ped2g.pedigree.relationships import relationship_inverse
 
 DATA = Path(__file__).resolve().parents[1] / "data"
 
@@ -227,7 +227,7 @@ def test_shuffling_rows_changes_only_row_order(n, seed):
     # A-inverse is the same matrix after re-indexing
     where = {name: i for i, name in enumerate(ped2.ids)}
     p = np.array([where[name] for name in ped1.ids])
-    a1 = ainverse(ped1).toarray()
-    a2 = ainverse(ped2).toarray()[np.ix_(p, p)]
+    a1 = relationship_inverse(ped1).toarray()
+    a2 = relationship_inverse(ped2).toarray()[np.ix_(p, p)]
     np.testing.assert_allclose(a1, a2, atol=1e-12)
     assert sorted(ch1["problem"]) == sorted(ch2["problem"])

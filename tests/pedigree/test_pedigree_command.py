@@ -27,14 +27,14 @@ def test_outputs_of_a_messy_table(tmp_path, capsys):
     status, _ = run(capsys, DATA / "pedigree_messy.tsv", "--out", out, "--id", "animal",
                     "--sire", "father", "--dam", "mother")
     assert status == 0
-    assert sorted(p.name for p in out.iterdir()) == ["ainverse.mtx", "changes.csv",
-                                                     "pedigree.csv", "summary.json"]
+    assert sorted(p.name for p in out.iterdir()) == ["changes.csv", "pedigree.csv",
+                                                     "relationship_inverse.mtx", "summary.json"]
     ped = Pedigree.read_csv(out / "pedigree.csv")
     header = (out / "pedigree.csv").read_text().splitlines()[0]
     assert header == "id,sire,dam,generation,inbreeding"
     # A-inverse file equals the inverse of the tabular A of the written pedigree
     # (exact identity; tabular method as in Mrode 2014, section 2.2)
-    ainv = scipy.io.mmread(out / "ainverse.mtx").toarray()
+    ainv = scipy.io.mmread(out / "relationship_inverse.mtx").toarray()
     a = tabular_relationship(ped.sire, ped.dam)
     np.testing.assert_allclose(ainv @ a, np.eye(ped.n), atol=1e-9)
     np.testing.assert_allclose(ped.inbreeding, np.diag(a) - 1, atol=1e-9)
@@ -134,7 +134,7 @@ def test_hermaphrodite_option_accepts_selfing(tmp_path, capsys):
     ped = Pedigree.read_csv(tmp_path / "out" / "pedigree.csv")
     # selfing of a non-inbred parent: F = 1/2; A-inverse [[3, -2], [-2, 2]] (derived by hand)
     assert ped.inbreeding.tolist() == [0.0, 0.5]
-    ainv = scipy.io.mmread(tmp_path / "out" / "ainverse.mtx").toarray()
+    ainv = scipy.io.mmread(tmp_path / "out" / "relationship_inverse.mtx").toarray()
     np.testing.assert_allclose(ainv, [[3, -2], [-2, 2]], atol=1e-12)
 
 

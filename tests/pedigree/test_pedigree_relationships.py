@@ -11,7 +11,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from ped2g.pedigree.relationships import (
-    ainverse,
+    relationship_inverse,
     inbreeding,
     log_det_relationship,
     relationship_matrix,
@@ -51,7 +51,7 @@ def test_six_animal_example_relationship_matrix():
                                [[1.125, 0.625], [0.625, 1.0]], atol=TOL)
 
 
-def test_six_animal_example_ainverse():
+def test_six_animal_example_relationship_inverse():
     # Henderson's rules with inbreeding as in Mrode (2014) p. 27; the exact fractions are the
     # textbook's printed decimals (1.833, 0.500, -1, -0.667, 2.033, 0.533, -1.067, ...)
     # [decimals recalled], and the matrix must also equal inv(A) of the printed A (p. 32).
@@ -64,7 +64,7 @@ def test_six_animal_example_ainverse():
         ["0", "-16/15", "0", "0", "-16/15", "32/15"],
     ])
     ped = make_pedigree(P1)
-    ainv = ainverse(ped)
+    ainv = relationship_inverse(ped)
     np.testing.assert_allclose(ainv.toarray(), expected, atol=TOL)
     np.testing.assert_allclose(ainv.toarray(), ainv.toarray().T, atol=0)
     # log det A = sum log b (exact identity, det T = 1); compare with numpy's slogdet.
@@ -73,7 +73,7 @@ def test_six_animal_example_ainverse():
     assert log_det_relationship(ped) == pytest.approx(logdet, abs=TOL)
 
 
-def test_eight_animal_example_ainverse():
+def test_eight_animal_example_relationship_inverse():
     # Mrode (2014) Example 3.1 pedigree, A-inverse printed on p. 58 (to 3 decimals; written
     # here as the exact fractions 11/6 = 1.833, 2/3 = 0.667 that the rules give).
     ped = make_pedigree([("1", None, None), ("2", None, None), ("3", None, None),
@@ -89,7 +89,7 @@ def test_eight_animal_example_ainverse():
         ["0", "0", "0", "-1", "-1", "0", "2", "0"],
         ["0", "0", "-1", "0", "0", "-1", "0", "2"],
     ])
-    np.testing.assert_allclose(ainverse(ped).toarray(), expected, atol=TOL)
+    np.testing.assert_allclose(relationship_inverse(ped).toarray(), expected, atol=TOL)
     np.testing.assert_allclose(ped.inbreeding, 0, atol=TOL)
 
 
@@ -105,7 +105,7 @@ def test_inbred_parents_example():
     assert a[1, 6] == pytest.approx(0.4375, abs=TOL)
     assert a[4, 6] == pytest.approx(0.78125, abs=TOL)
     assert a[5, 6] == pytest.approx(0.78125, abs=TOL)
-    np.testing.assert_allclose(ainverse(ped).toarray() @ a, np.eye(7), atol=TOL)
+    np.testing.assert_allclose(relationship_inverse(ped).toarray() @ a, np.eye(7), atol=TOL)
 
 
 def test_full_sib_mating_example():
@@ -129,7 +129,7 @@ def test_full_sib_mating_example():
         [0, 0, -1, -1, 0, 0, 2, 0],
         [0, 0, 0, 0, -1, -1, 0, 2],
     ], dtype=float)
-    np.testing.assert_allclose(ainverse(ped).toarray(), expected, atol=TOL)
+    np.testing.assert_allclose(relationship_inverse(ped).toarray(), expected, atol=TOL)
 
 
 def test_selfing():
@@ -138,7 +138,7 @@ def test_selfing():
     ped = make_pedigree([("1", None, None), ("2", "1", "1")])
     np.testing.assert_allclose(ped.inbreeding, [0, 0.5], atol=TOL)
     np.testing.assert_allclose(relationship_matrix(ped), [[1, 1], [1, 1.5]], atol=TOL)
-    np.testing.assert_allclose(ainverse(ped).toarray(), [[3, -2], [-2, 2]], atol=TOL)
+    np.testing.assert_allclose(relationship_inverse(ped).toarray(), [[3, -2], [-2, 2]], atol=TOL)
 
 
 def test_repeated_selfing_approaches_one():
@@ -209,7 +209,7 @@ def test_random_pedigrees_match_the_tabular_method(n, seed, selfing, p_unknown):
     np.testing.assert_allclose(f, np.diag(a_tab) - 1, atol=TOL)
     ped = make_pedigree([(str(i), str(s) if s >= 0 else None, str(d) if d >= 0 else None)
                          for i, (s, d) in enumerate(zip(sire, dam))])
-    np.testing.assert_allclose(ainverse(ped).toarray() @ a_tab, np.eye(n), atol=1e-8)
+    np.testing.assert_allclose(relationship_inverse(ped).toarray() @ a_tab, np.eye(n), atol=1e-8)
     np.testing.assert_allclose(relationship_matrix(ped), a_tab, atol=TOL)
     subset = rng.permutation(n)[: max(1, n // 3)]
     np.testing.assert_allclose(relationship_matrix(ped, subset, memory_budget=64),
@@ -238,5 +238,5 @@ def test_deep_inbred_pedigree_matches_column_method():
     assert ped.inbreeding.max() > 0.5          # genuinely deep inbreeding
     a = relationship_matrix(ped)
     np.testing.assert_allclose(ped.inbreeding, np.diag(a) - 1, atol=1e-9)
-    ainv = ainverse(ped)
+    ainv = relationship_inverse(ped)
     np.testing.assert_allclose(ainv @ a[:, :50], np.eye(n)[:, :50], atol=1e-8)

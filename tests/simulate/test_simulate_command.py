@@ -98,6 +98,9 @@ def test_bad_settings_files_end_in_one_line(tmp_path, capsys):
     bad = tmp_path / "broken.yaml"
     bad.write_text("traits: [a, b\nanimals: 3\n", encoding="utf-8")
     cases.append((str(bad), "is not valid YAML"))
+    twice = tmp_path / "twice.yaml"
+    twice.write_text("animals: 300\nfounders: 20\nanimals: 30\n", encoding="utf-8")
+    cases.append((str(twice), "key 'animals' is given twice (lines 1 and 3)"))
     for path, message in cases:
         assert main(["simulate", "--out", str(tmp_path / "o"), "--settings", path]) == 2
         err = capsys.readouterr().err.strip().splitlines()

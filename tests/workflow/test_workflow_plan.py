@@ -21,8 +21,8 @@ from workflow_helpers import ROOT, make_study, planned_jobs, planned_wildcards, 
 
 STAGE_OUTPUTS = {
     # in the order the stages run
-    "pedigree": ["pedigree/pedigree.csv", "pedigree/ainverse.mtx", "pedigree/changes.csv",
-                 "pedigree/summary.json"],
+    "pedigree": ["pedigree/pedigree.csv", "pedigree/relationship_inverse.mtx",
+                 "pedigree/changes.csv", "pedigree/summary.json"],
     "fit": ["fits/{p}/posterior.nc", "fits/{p}/parameters.csv", "fits/{p}/diagnostics.json",
             "fits/{p}/pedigree_used.csv"],
     "null": ["null/null_G.nc", "null/summary.json"],
@@ -108,6 +108,11 @@ MISTAKES = {
     # two populations, two traits: Holm's smallest adjusted p 2 / (R + 1) < 0.05 needs R >= 40
     "too few null replicates": ({"compare": {"null_model": {"replicates": 25}}},
                                 ["compare.null_model.replicates", "25", "at least 40"]),
+    # [[1, 2], [2, 1]] has eigenvalues 3 and -1 (exact), so it is no covariance matrix
+    "fixed G not positive definite": (
+        {"model": {"fixed_covariances": {"G": [[1.0, 2.0], [2.0, 1.0]],
+                                         "R": [[1.0, 0.0], [0.0, 1.0]]}}},
+        ["model.fixed_covariances.G", "not positive definite"]),
 }
 
 
@@ -230,3 +235,66 @@ def test_changed_phenotype_table_reruns_the_fits(tmp_path):
     (tmp_path / "data" / "phenotypes.csv").touch()
     result = snakemake(tmp_path, "-n", config=config)
     assert planned_jobs(result) == {"fit": 2, "null_refit": 4, "compare": 1, "report": 1, "all": 1}
+
+
+# Each case: (text added to the study's config, words the one-line message must contain).
+# Snakemake's own reading keeps the last of two equal keys; the workflow reads the file again
+# strictly (ped2g.config.read_config_file).
+TEXT_MISTAKES = {
+    "key given twice": ("traits: [tarsus, wing]\n", ["key 'traits' is given twice", "line"]),
+    "nested key given twice": ("sampling:\n  draws: 100\n  draws: 200\n",
+                               ["key 'sampling' is given twice"]),
+    "template request": ("__use_yte__: false\n", ["'__use_yte__'"]),
+}
+
+
+@pytest.mark.parametrize("case", sorted(TEXT_MISTAKES))
+def test_config_text_mistake_stops_with_one_line_before_any_job(tmp_path, case):
+    added, words = TEXT_MISTAKES[case]
+    config = make_study(tmp_path)
+    config.write_text(config.read_text() + added)
+    result = snakemake(tmp_path, "--cores", "1", config=config)
+    assert result.returncode == 2, result.stderr[-3000:]
+    lines = [ln for ln in result.stderr.splitlines() if ln.strip()]
+    assert len(lines) == 1, result.stderr
+    assert lines[0].startswith("ped2g workflow: error: config study.yaml")
+    for word in words:
+        assert word in lines[0], (word, lines[0])
+    assert not (tmp_path / "logs").exists()
+    assert not (tmp_path / "results").exists()
+
+
+def test_snakemake_evaluates_a_template_before_the_workflow_can_refuse_it(tmp_path):
+    # What the README's security note says: with a top-level __use_yte__: true, Snakemake runs
+    # the file's expressions while reading --configfile, before any code of ours. The workflow
+    # still refuses the file, but the expression has already run (here it makes a file).
+    config = make_study(tmp_path)
+    probe = tmp_path / "evaluated"
+    config.write_text("__use_yte__: true\n"
+                      f"probe: ?__import__('pathlib').Path({str(probe)!r}).touch()\n"
+                      + config.read_text())
+    result = snakemake(tmp_path, "-n", config=config)
+    assert result.returncode == 2
+    assert "'__use_yte__'" in result.stderr
+    assert probe.exists()
+
+
+@pytest.mark.parametrize("case", ["folder", "empty file"])
+def test_a_folder_or_empty_file_as_configfile_loses_nothing(tmp_path, case):
+    # Snakemake opens every --configfile itself before it reads the Snakefile, so these two end
+    # in Snakemake's own message, not ours (ped2g's commands refuse them in one line:
+    # tests/test_config.py): a traceback for a folder, an unnamed WorkflowError for an empty
+    # file. Checked here so the README's note is revised if Snakemake ever changes this. What
+    # the workflow guarantees: no job runs and nothing is written.
+    make_study(tmp_path)
+    bad = tmp_path / "configs"
+    if case == "folder":
+        bad.mkdir()
+    else:
+        bad = tmp_path / "empty.yaml"
+        bad.write_text("")
+    before = sorted(p.name for p in tmp_path.iterdir())
+    result = snakemake(tmp_path, "--cores", "1", config=bad)
+    assert result.returncode != 0
+    assert "Traceback" in result.stderr if case == "folder" else "WorkflowError" in result.stderr
+    assert sorted(p.name for p in tmp_path.iterdir() if p.name != ".snakemake") == before

@@ -10,11 +10,14 @@ wiring.
 from __future__ import annotations
 
 import shutil
+import subprocess
+import time
 
 import pandas as pd
+import psutil
 import pytest
 
-from workflow_helpers import make_study, planned_jobs, snakemake
+from workflow_helpers import make_study, planned_jobs, snakemake, snakemake_command
 
 pytestmark = pytest.mark.slow
 
@@ -83,6 +86,102 @@ def test_same_config_and_seed_give_the_same_numbers(finished, tmp_path):
     assert redo.returncode == 0, redo.stderr[-3000:]
     assert planned_jobs(redo) == {"null": 1, "compare": 1, "report": 1, "all": 1}
     _assert_same_tables(before, _tables(folder / "results/compare", "*.csv"))
+
+
+def _kill(processes):
+    """SIGKILL these processes, as a crash or ``kill -9`` would; wait until they are gone."""
+    for member in processes:
+        try:
+            member.kill()
+        except psutil.NoSuchProcess:
+            pass
+    psutil.wait_procs(processes, timeout=60)
+
+
+def _copy_and_kill_during_a_fit(finished, tmp_path, population, whole_tree):
+    """Copy the finished study, run one fit with Snakemake's lock, SIGKILL it during the fit.
+
+    ``whole_tree`` kills Snakemake and the job it started (a crash of the machine); otherwise
+    only Snakemake, and the fit, orphaned, is left to finish on its own (``kill -9`` of the
+    Snakemake process alone, or a cluster whose jobs outlive the login session). Returns
+    (study folder, config, options of the command, surviving processes).
+    """
+    folder, config, _ = finished
+    other = tmp_path / "killed"
+    other.mkdir()
+    shutil.copytree(folder / "data", other / "data")
+    shutil.copy(config, other / "study.yaml")
+    study = other / "study.yaml"
+    options = ("--cores", "2", f"results/fits/{population}/parameters.csv")
+    command, env = snakemake_command(other, *options, config=study, tmpdir=folder / "tmp",
+                                     lock=True)
+    fit_log = other / f"logs/fit/{population}.log"
+    with subprocess.Popen(command, cwd=other, env=env, stdout=subprocess.DEVNULL,
+                          stderr=subprocess.DEVNULL) as run:
+        deadline = time.monotonic() + 600
+        while not (fit_log.is_file() and "engine:" in fit_log.read_text(encoding="utf-8")):
+            assert run.poll() is None, "the run ended before its fit started"
+            assert time.monotonic() < deadline, "the fit did not start within 10 minutes"
+            time.sleep(0.2)
+        parent = psutil.Process(run.pid)
+        parent.suspend()  # so it starts nothing between the listing and the kill
+        children = parent.children(recursive=True)
+        if whole_tree:
+            for child in children:
+                child.suspend()
+            _kill([parent, *parent.children(recursive=True)])
+            children = []
+        else:
+            _kill([parent])
+    return other, study, options, children
+
+
+def test_a_killed_run_completes_after_unlock_with_the_same_numbers(finished, tmp_path):
+    # What the README says to do after a run is killed: unlock with the same options, then the
+    # same command. Snakemake and its fit are killed (SIGKILL, so nothing can clean up) during
+    # the fit, in a copy of the finished study with the same compile cache; the rerun must give
+    # the finished run's numbers exactly.
+    folder = finished[0]
+    other, study, options, _ = _copy_and_kill_during_a_fit(finished, tmp_path, "south",
+                                                           whole_tree=True)
+    assert not (other / "results/fits/south/parameters.csv").exists()  # killed mid-fit
+
+    locked = snakemake(other, *options, config=study, tmpdir=folder / "tmp", lock=True)
+    assert locked.returncode != 0
+    assert "cannot be locked" in locked.stderr and "--unlock" in locked.stderr
+    unlocked = snakemake(other, *options, "--unlock", config=study, lock=True)
+    assert unlocked.returncode == 0, unlocked.stderr[-3000:]
+    rerun = snakemake(other, *options, config=study, tmpdir=folder / "tmp", lock=True,
+                      timeout=900)
+    assert rerun.returncode == 0, rerun.stderr[-3000:]
+    assert planned_jobs(rerun) == {"fit": 1}  # the pedigree finished before the kill
+    _assert_same_tables(_tables(folder / "results/fits/south", "*.csv"),
+                        _tables(other / "results/fits/south", "*.csv"))
+
+
+def test_a_fit_that_outlived_its_killed_snakemake_reruns_with_rerun_incomplete(finished,
+                                                                               tmp_path):
+    # Only Snakemake is killed; its fit runs on and writes its files. Snakemake cannot know they
+    # are complete, so after unlocking the same command stops at "incomplete files", and the
+    # README's --rerun-incomplete fits again, with the finished run's numbers.
+    folder = finished[0]
+    other, study, options, orphans = _copy_and_kill_during_a_fit(finished, tmp_path, "north",
+                                                                 whole_tree=False)
+    assert orphans, "the fit job was not running when Snakemake was killed"
+    psutil.wait_procs(orphans, timeout=900)
+    assert (other / "results/fits/north/parameters.csv").is_file()  # the orphan finished
+
+    unlocked = snakemake(other, *options, "--unlock", config=study, lock=True)
+    assert unlocked.returncode == 0, unlocked.stderr[-3000:]
+    same = snakemake(other, *options, config=study, tmpdir=folder / "tmp", lock=True)
+    assert same.returncode != 0
+    assert "--rerun-incomplete" in same.stderr
+    rerun = snakemake(other, *options, "--rerun-incomplete", config=study,
+                      tmpdir=folder / "tmp", lock=True, timeout=900)
+    assert rerun.returncode == 0, rerun.stderr[-3000:]
+    assert planned_jobs(rerun) == {"fit": 1}
+    _assert_same_tables(_tables(folder / "results/fits/north", "*.csv"),
+                        _tables(other / "results/fits/north", "*.csv"))
 
 
 def test_a_comparison_setting_reruns_only_compare_and_report(finished):

@@ -8,9 +8,10 @@ import re
 import pytest
 import yaml
 
+from ped2g.config import SCHEMA_PATH
 from workflow_helpers import ROOT
 
-SCHEMA = yaml.safe_load((ROOT / "workflow/schemas/config.schema.yaml").read_text(encoding="utf-8"))
+SCHEMA = yaml.safe_load(SCHEMA_PATH.read_text(encoding="utf-8"))
 README = (ROOT / "config" / "README.md").read_text(encoding="utf-8")
 
 

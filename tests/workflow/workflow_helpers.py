@@ -39,15 +39,18 @@ def make_study(folder: Path, **changes) -> Path:
     return path
 
 
-def snakemake(folder: Path, *args: str, config: Path | None = None, timeout: float = 600,
-              tmpdir: Path | None = None) -> subprocess.CompletedProcess:
-    """Run the workflow's Snakefile with ``folder`` as working directory.
+def snakemake_command(folder: Path, *args: str, config: Path | None = None,
+                      tmpdir: Path | None = None, lock: bool = False) -> tuple[list[str], dict]:
+    """The command line and environment that run the workflow's Snakefile in ``folder``.
 
     ``tmpdir`` becomes the jobs' temporary directory (``TMPDIR``), where the fits keep their
-    compile cache: a new folder means a cold cache.
+    compile cache: a new folder means a cold cache. Without ``lock`` Snakemake does not lock the
+    folder (``--nolock``), so tests that run it side by side do not wait on each other.
     """
     command = [sys.executable, "-m", "snakemake", "--snakefile", str(SNAKEFILE),
-               "--directory", str(folder), "--nolock"]
+               "--directory", str(folder)]
+    if not lock:
+        command.append("--nolock")
     if config is not None:
         command += ["--configfile", str(config)]
     command += list(args)
@@ -55,6 +58,13 @@ def snakemake(folder: Path, *args: str, config: Path | None = None, timeout: flo
     if tmpdir is not None:
         tmpdir.mkdir(parents=True, exist_ok=True)
         env["TMPDIR"] = str(tmpdir)
+    return command, env
+
+
+def snakemake(folder: Path, *args: str, config: Path | None = None, timeout: float = 600,
+              tmpdir: Path | None = None, lock: bool = False) -> subprocess.CompletedProcess:
+    """Run the workflow's Snakefile with ``folder`` as working directory (see snakemake_command)."""
+    command, env = snakemake_command(folder, *args, config=config, tmpdir=tmpdir, lock=lock)
     return subprocess.run(command, cwd=folder, capture_output=True, text=True, timeout=timeout,
                           env=env)
 

@@ -1,8 +1,11 @@
 """Loading and validating the one config file that drives every stage.
 
-The schema (``workflow/schemas/config.schema.yaml``) gives every key a type, a description and a
-default. :func:`load_config` reads a YAML file, rejects unknown keys and wrong types with one line
-naming the key's path, and returns the config with every default filled in.
+The schema (``schemas/config.schema.yaml`` inside this package, so an installed ped2g has it too)
+gives every key a type, a description and a default. :func:`read_config_file` reads a YAML file
+strictly (one line for a folder, an empty file, a key given twice or a request to evaluate the
+file as a template); :func:`load_config` then rejects unknown keys and wrong types with one line
+naming the key's path, and returns the config with every default filled in. The workflow
+(``workflow/rules/common.smk``) reads its ``--configfile`` files with the same two functions.
 """
 
 from __future__ import annotations
@@ -17,7 +20,11 @@ import yaml
 
 from .errors import UserError
 
-SCHEMA_PATH = Path(__file__).resolve().parents[1] / "schemas" / "config.schema.yaml"
+#: The one copy of the schema, package data (declared in pyproject.toml).
+SCHEMA_PATH = Path(__file__).resolve().parent / "schemas" / "config.schema.yaml"
+
+#: A top-level key that makes Snakemake evaluate the file as a template (its YTE engine).
+TEMPLATE_KEY = "__use_yte__"
 
 
 @lru_cache(maxsize=1)
@@ -25,6 +32,82 @@ def schema() -> dict[str, Any]:
     """The config schema as a dict."""
     with open(SCHEMA_PATH, encoding="utf-8") as handle:
         return yaml.safe_load(handle)
+
+
+class DuplicateKeyError(yaml.YAMLError):
+    """A mapping in a YAML file gives the same key twice."""
+
+    def __init__(self, key: Any, first_line: int, second_line: int):
+        super().__init__(f"key {key!r} is given twice (lines {first_line} and {second_line})")
+        self.key = key
+        self.first_line = first_line
+        self.second_line = second_line
+
+
+class StrictLoader(yaml.SafeLoader):
+    """PyYAML's safe loader, refusing a key given twice in one mapping.
+
+    PyYAML keeps the last of two equal keys without a word, so a config with ``traits:`` twice
+    would fit only the second list. Keys brought in by a merge (``<<: *anchor``) may still be
+    overridden by the mapping's own keys, as YAML's merge key allows.
+    """
+
+    def construct_mapping(self, node: yaml.MappingNode, deep: bool = False) -> dict[Any, Any]:
+        if isinstance(node, yaml.MappingNode):
+            seen: dict[Any, int] = {}
+            for key_node, _ in node.value:
+                if key_node.tag == "tag:yaml.org,2002:merge":
+                    continue
+                key = self.construct_object(key_node, deep=True)
+                try:
+                    first = seen.get(key)
+                except TypeError:
+                    continue  # an unhashable key: the base class names it
+                line = key_node.start_mark.line + 1
+                if first is not None:
+                    raise DuplicateKeyError(key, first, line)
+                seen[key] = line
+        return super().construct_mapping(node, deep=deep)
+
+
+def read_config_file(path: str | os.PathLike) -> dict[str, Any]:
+    """The mapping in a YAML config file, read strictly; not yet validated.
+
+    Raises
+    ------
+    UserError
+        One line naming the file (and the line where there is one) if the path is missing or a
+        folder, the file is not UTF-8, not YAML, empty, not a mapping, gives a key twice, or
+        has the top-level key ``__use_yte__`` (which asks Snakemake to evaluate the file as a
+        template; ped2g configs hold plain values only).
+    """
+    path = Path(path)
+    if path.is_dir():
+        raise UserError(f"config {path} is a folder; give the path of a YAML file")
+    if not path.is_file():
+        raise UserError(f"config file not found: {path}")
+    try:
+        with open(path, encoding="utf-8") as handle:
+            raw = yaml.load(handle, Loader=StrictLoader)  # noqa: S506 (a SafeLoader subclass)
+    except DuplicateKeyError as err:
+        raise UserError(f"config {path}: {err}; keep one of them") from None
+    except yaml.YAMLError as err:
+        mark = getattr(err, "problem_mark", None)
+        where = f" line {mark.line + 1}" if mark is not None else ""
+        raise UserError(f"config {path}{where} is not valid YAML: {getattr(err, 'problem', err)}") from None
+    except UnicodeDecodeError:
+        raise UserError(f"config {path} is not UTF-8 text") from None
+    if raw is None:
+        raise UserError(f"config {path} is empty; a config needs at least the 'data' section "
+                        "and 'traits' (ped2g init writes one)")
+    if not isinstance(raw, dict):
+        raise UserError(f"config {path}: the config must be a mapping of keys to values")
+    if TEMPLATE_KEY in raw:
+        raise UserError(
+            f"config {path}: top-level key '{TEMPLATE_KEY}' asks the workflow engine to evaluate "
+            "the file as a template (it runs code); ped2g configs hold plain values only, so "
+            "remove the key and write the values out")
+    return raw
 
 
 def _key_path(parts: Any) -> str:
@@ -98,6 +181,7 @@ def _check_consistency(config: dict[str, Any], source: str) -> None:
                 raise UserError(
                     f"{source}: key 'model.fixed_covariances.{name}' must be a "
                     f"{len(traits)}x{len(traits)} matrix (one row and column per trait)")
+            _check_covariance(matrix, f"{source}: key 'model.fixed_covariances.{name}'")
     names = [r["name"] for r in config["random"]]
     if len(set(names)) != len(names):
         raise UserError(f"{source}: key 'random': two random effects share a name")
@@ -106,24 +190,31 @@ def _check_consistency(config: dict[str, Any], source: str) -> None:
         raise UserError(f"{source}: key 'fixed': '{sorted(clash)[0]}' is also a trait")
 
 
+def _check_covariance(matrix: list[list[float]], where: str) -> None:
+    """Refuse a covariance matrix that is not finite, symmetric and positive definite.
+
+    The same conditions as the fit's (``ped2g.fit.priors.fixed_covariances``), checked here so a
+    bad matrix stops the workflow before any job instead of inside a fit, after reading the data.
+    """
+    import numpy as np
+
+    m = np.asarray(matrix, dtype=float)
+    if not np.all(np.isfinite(m)):
+        raise UserError(f"{where} holds a value that is not a finite number")
+    if not np.allclose(m, m.T, rtol=1e-10, atol=1e-12):
+        raise UserError(f"{where} is not symmetric")
+    smallest = float(np.linalg.eigvalsh(m)[0])
+    if smallest <= 0:
+        raise UserError(f"{where} is not positive definite (smallest eigenvalue {smallest:.4g}); "
+                        "a covariance matrix needs every eigenvalue above zero")
+
+
 def load_config(path: str | os.PathLike) -> dict[str, Any]:
-    """Read, validate and default-fill a YAML config file.
+    """Read (:func:`read_config_file`), validate and default-fill a YAML config file.
 
     Raises
     ------
     UserError
-        If the file is missing, is not YAML, or breaks the schema (naming the key).
+        If the file cannot be read strictly or breaks the schema (naming the key).
     """
-    path = Path(path)
-    if not path.is_file():
-        raise UserError(f"config file not found: {path}")
-    try:
-        with open(path, encoding="utf-8") as handle:
-            raw = yaml.safe_load(handle)
-    except yaml.YAMLError as err:
-        mark = getattr(err, "problem_mark", None)
-        where = f" line {mark.line + 1}" if mark is not None else ""
-        raise UserError(f"config {path}{where} is not valid YAML: {getattr(err, 'problem', err)}") from None
-    except UnicodeDecodeError:
-        raise UserError(f"config {path} is not UTF-8 text") from None
-    return validate(raw, source=f"config {path}")
+    return validate(read_config_file(path), source=f"config {path}")

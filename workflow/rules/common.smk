@@ -4,7 +4,7 @@
 # How the pieces fit:
 #
 # * The config is validated and default-filled by ped2g.config.validate (the schema in
-#   workflow/schemas/config.schema.yaml), then the input tables are checked (files exist,
+#   workflow/ped2g/schemas/config.schema.yaml), then the input tables are checked (files exist,
 #   named columns exist) and the populations are read from the phenotype table.
 # * The effective config (every default filled in, populations resolved to an explicit list) is
 #   written to results/config/effective.yaml; every stage command reads that one file, so
@@ -88,21 +88,22 @@ def user_config():
     Snakefile. A study's config must not inherit the demo's keys (its fixed effects, its
     traits), so when --configfile is given the demo config is dropped and only the given
     file(s) and --config overrides count.
+
+    Each file is read again with ped2g's own strict reader (ped2g.config.read_config_file), not
+    taken from Snakemake's merged config: Snakemake keeps the last of two equal keys without a
+    word, and evaluates a file with a top-level `__use_yte__` key as a template; the strict
+    reader refuses both in one line. (Snakemake has by then already read the files; the README's
+    security note says what that means.)
     """
     settings = workflow.config_settings
     files = list(settings.configfiles) or [Path(p) for p in workflow.configfiles[:1]]
     merged = {}
     for path in files:
         try:
-            with open(path, encoding="utf-8") as handle:
-                loaded = yaml.safe_load(handle)
-        except yaml.YAMLError as err:
-            mark = getattr(err, "problem_mark", None)
-            where = f" line {mark.line + 1}" if mark is not None else ""
-            fail(f"config {path}{where} is not valid YAML: {getattr(err, 'problem', err)}")
-        if loaded is not None and not isinstance(loaded, dict):
-            fail(f"config {path}: the config must be a mapping of keys to values")
-        update_config(merged, loaded or {})
+            loaded = ped2g.config.read_config_file(os.path.relpath(path))
+        except UserError as err:
+            fail(err)
+        update_config(merged, loaded)
     if settings.config:
         update_config(merged, coerce(dict(settings.config), ped2g.config.schema()))
     names = ", ".join(os.path.relpath(p) for p in files) or "(none)"

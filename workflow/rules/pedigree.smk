@@ -7,7 +7,7 @@ rule pedigree:
         settings=settings_file("pedigree"),
     output:
         pedigree=f"{RESULTS}/pedigree/pedigree.csv",
-        ainverse=f"{RESULTS}/pedigree/ainverse.mtx",
+        relationship_inverse=f"{RESULTS}/pedigree/relationship_inverse.mtx",
         changes=f"{RESULTS}/pedigree/changes.csv",
         summary=f"{RESULTS}/pedigree/summary.json",
     params:

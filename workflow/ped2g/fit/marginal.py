@@ -287,7 +287,7 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     posterior draw of G, R, beta, the missing values and the extra random effects; see the module
     docstring for the formula. Draws are processed in chunks of ``chunk``.
     """
-    from ..pedigree.relationships import ainverse
+    from ..pedigree.relationships import relationship_inverse
     from ..posterior import thin_indices
     from ..simulate.breeding_values import simulate_breeding_values
 
@@ -306,7 +306,7 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
         extras.append((eff, np.einsum("slk,sjk->slj", z, chol)))
     ped = data.pedigree
     n_all, n, t = ped.n, data.n_records, data.n_traits
-    lu = scipy.sparse.linalg.splu(ainverse(ped).tocsc())
+    lu = scipy.sparse.linalg.splu(relationship_inverse(ped).tocsc())
     y0 = np.where(data.missing, 0.0, data.y)
     out = np.empty((len(index), n_all, t))
     for lo in range(0, len(index), chunk):

@@ -5,8 +5,8 @@ fast):
 
 * :mod:`ped2g.pedigree.clean` -- ``read_raw_pedigree``, ``clean_pedigree``,
   ``order_parents_first``;
-* :mod:`ped2g.pedigree.relationships` -- ``inbreeding``, ``ainverse``, ``relationship_matrix``,
-  ``log_det_relationship``, ``ancestors``;
+* :mod:`ped2g.pedigree.relationships` -- ``inbreeding``, ``relationship_inverse``,
+  ``relationship_matrix``, ``log_det_relationship``, ``ancestors``;
 * :mod:`ped2g.pedigree.prune` -- ``prune``;
 * :mod:`ped2g.pedigree.summary` -- ``summarise``.
 """

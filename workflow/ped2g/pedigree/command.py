@@ -9,13 +9,14 @@ HELP = "clean a raw pedigree table; write it parents-first with inbreeding, A-in
 DESCRIPTION = """\
 Read a raw pedigree table (CSV, TSV or Excel; one row per animal with its id, sire and dam) and
 write to --out:
-  pedigree.csv   id, sire, dam, generation, inbreeding; parents before offspring; unknown parent
-                 left empty
-  ainverse.mtx   the inverse of the additive relationship matrix (Matrix Market, symmetric,
-                 rows and columns in the order of pedigree.csv)
-  changes.csv    every change made to the table: row (line in the file; for an added founder,
-                 the first line that names it), id, problem, action
-  summary.json   counts of animals, founders, families, generations, inbreeding and changes
+  pedigree.csv               id, sire, dam, generation, inbreeding; parents before offspring;
+                             unknown parent left empty
+  relationship_inverse.mtx   the inverse of the additive relationship matrix, A-inverse (Matrix
+                             Market, symmetric, rows and columns in the order of pedigree.csv)
+  changes.csv                every change made to the table: row (line in the file; for an
+                             added founder, the first line that names it), id, problem, action
+  summary.json               counts of animals, founders, families, generations, inbreeding and
+                             changes
 
 Repairs made and logged: white space around ids is stripped; exact duplicate rows are dropped;
 parents that have no row of their own are added as founders. Refused, with a one-line message
@@ -34,8 +35,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("raw", metavar="RAW",
                         help="the raw pedigree table (.csv, .tsv, .txt or .xlsx)")
     parser.add_argument("--out", required=True, metavar="DIR",
-                        help="folder to write pedigree.csv, ainverse.mtx, changes.csv and "
-                             "summary.json into (created if needed; other files left alone)")
+                        help="folder to write pedigree.csv, relationship_inverse.mtx, changes.csv "
+                             "and summary.json into (created if needed; other files left alone)")
     parser.add_argument("--id", default="id", metavar="COL", dest="id_col",
                         help="name of the column holding each animal's id")
     parser.add_argument("--sire", default="sire", metavar="COL", dest="sire_col",
@@ -60,7 +61,7 @@ def run(args: argparse.Namespace) -> int:
     from .. import __version__
     from ..io import file_sha256, get_logger, output_dir, write_json
     from .clean import read_raw_pedigree
-    from .relationships import ainverse
+    from .relationships import relationship_inverse
     from .summary import summarise
 
     log = get_logger("pedigree")
@@ -76,8 +77,8 @@ def run(args: argparse.Namespace) -> int:
     log.info("read %s: %d rows, %d animals after cleaning, %d changes (%.1f s)", raw, rows_read,
              ped.n, len(changes), time.perf_counter() - start)
     t = time.perf_counter()
-    ainv = ainverse(ped)
-    log.info("built A-inverse: %d x %d, %d non-zeros (%.1f s)", ped.n, ped.n, ainv.nnz,
+    a_inverse = relationship_inverse(ped)
+    log.info("built A-inverse: %d x %d, %d non-zeros (%.1f s)", ped.n, ped.n, a_inverse.nnz,
              time.perf_counter() - t)
     summary = summarise(ped, changes)
     summary = {
@@ -99,13 +100,13 @@ def run(args: argparse.Namespace) -> int:
     t = time.perf_counter()
     with output_dir(args.out) as tmp:
         ped.write_csv(tmp / "pedigree.csv")
-        scipy.io.mmwrite(tmp / "ainverse.mtx", ainv, symmetry="symmetric",
+        scipy.io.mmwrite(tmp / "relationship_inverse.mtx", a_inverse, symmetry="symmetric",
                          comment=f"A-inverse of pedigree.csv (ped2g {__version__}); rows and "
                                  "columns in pedigree.csv order")
         changes.to_csv(tmp / "changes.csv", index=False)
         write_json(tmp / "summary.json", summary)
-    log.info("wrote pedigree.csv, ainverse.mtx, changes.csv, summary.json to %s (%.1f s)",
-             args.out, time.perf_counter() - t)
+    log.info("wrote pedigree.csv, relationship_inverse.mtx, changes.csv, summary.json to %s "
+             "(%.1f s)", args.out, time.perf_counter() - t)
     log.info("%d founders, %d generations, mean inbreeding %.4f, max %.4f",
              summary["founders"], summary["max_generation"] + 1, summary["mean_inbreeding"],
              summary["max_inbreeding"])

@@ -26,7 +26,7 @@ from .core import Pedigree, mendelian_coefficients
 
 __all__ = [
     "inbreeding",
-    "ainverse",
+    "relationship_inverse",
     "relationship_matrix",
     "log_det_relationship",
     "ancestors",
@@ -179,7 +179,7 @@ def inbreeding(sire, dam) -> np.ndarray:
     return _inbreeding_kernel(sire, dam, _pair_codes(sire, dam))
 
 
-def ainverse(ped: Pedigree) -> sp.csr_matrix:
+def relationship_inverse(ped: Pedigree) -> sp.csr_matrix:
     """The inverse of the additive relationship matrix, built directly from the pedigree.
 
     Parameters

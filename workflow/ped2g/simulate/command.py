@@ -55,11 +55,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def _read_settings(path: str) -> dict[str, Any]:
     import yaml
 
+    from ..config import DuplicateKeyError, StrictLoader
+
     p = Path(path)
     if not p.is_file():
         raise UserError(f"settings file not found: {p}")
     try:
-        values = yaml.safe_load(p.read_text(encoding="utf-8"))
+        values = yaml.load(p.read_text(encoding="utf-8"), Loader=StrictLoader)  # noqa: S506
+    except DuplicateKeyError as err:
+        raise UserError(f"settings file {p}: {err}; keep one of them") from None
     except (yaml.YAMLError, UnicodeDecodeError) as err:
         mark = getattr(err, "problem_mark", None)
         where = f" (line {mark.line + 1})" if mark is not None else ""
