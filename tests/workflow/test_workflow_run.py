@@ -46,7 +46,7 @@ def finished(tmp_path_factory):
 
 def test_every_stage_ran_and_the_report_was_written(finished):
     folder, _config, result = finished
-    assert planned_jobs(result) == {"pedigree": 1, "fit": 2, "null": 1, "compare": 1,
+    assert planned_jobs(result) == {"pedigree": 1, "fit": 2, "null_refit": 2, "compare": 1,
                                     "report": 1, "all": 1}
     html = (folder / "results/report/report.html").read_text(encoding="utf-8")
     assert all(p in html for p in POPULATIONS)
@@ -54,8 +54,13 @@ def test_every_stage_ran_and_the_report_was_written(finished):
     for p in POPULATIONS:
         assert (folder / f"results/fits/{p}/posterior.nc").stat().st_size > 0
         assert (folder / f"logs/fit/{p}.log").stat().st_size > 0
-    for stage in ("pedigree", "null", "compare", "report"):
+    for stage in ("pedigree", "compare", "report"):
         assert (folder / f"logs/{stage}/{stage}.log").stat().st_size > 0
+    for p in POPULATIONS:
+        assert (folder / f"logs/null/refit_{p}_0.log").stat().st_size > 0
+    # every comparison row that compares populations has its calibrated p-value
+    distance = pd.read_csv(folder / "results/compare/distance.csv")
+    assert distance["p_value"].between(1 / 41, 1).all() and distance["p_adjusted"].notna().all()
 
 
 def test_a_second_run_does_nothing(finished):
@@ -80,11 +85,12 @@ def test_same_config_and_seed_give_the_same_numbers(finished, tmp_path):
     assert any((folder / "tmp/ped2g-compile-cache").iterdir())
     _assert_same_tables(_tables(folder / "results/fits/south", "*.csv"),
                         _tables(other / "results/fits/south", "*.csv"))
-    # the null and the comparisons made again in place
+    # the refitting null and the comparisons made again in place
     before = _tables(folder / "results/compare", "*.csv")
-    redo = snakemake(folder, "--cores", "2", "--forcerun", "null", config=config)
+    redo = snakemake(folder, "--cores", "2", "--forcerun", "null_refit", config=config,
+                     tmpdir=folder / "tmp")
     assert redo.returncode == 0, redo.stderr[-3000:]
-    assert planned_jobs(redo) == {"null": 1, "compare": 1, "report": 1, "all": 1}
+    assert planned_jobs(redo) == {"null_refit": 2, "compare": 1, "report": 1, "all": 1}
     _assert_same_tables(before, _tables(folder / "results/compare", "*.csv"))
 
 
@@ -187,7 +193,7 @@ def test_a_fit_that_outlived_its_killed_snakemake_reruns_with_rerun_incomplete(f
 def test_a_comparison_setting_reruns_only_compare_and_report(finished):
     folder, config, _ = finished
     kept = {p: p.stat().st_mtime_ns for p in
-            [*(folder / "results/fits").rglob("*.nc"), folder / "results/null/null_G.nc",
+            [*(folder / "results/fits").rglob("*.nc"), *(folder / "results/null/refits").rglob("*.nc"),
              folder / "results/pedigree/pedigree.csv"]}
     result = snakemake(folder, "--cores", "2", "--config", "compare={skewers: 60}",
                        config=config)
