@@ -105,3 +105,21 @@ def test_rotated_population_shows_the_largest_gmax_angle(demo):
     assert len(turned) == 1 and turned["p_value"].iloc[0] < 0.05, pairs[["population", "population2", "p_value"]]
     assert len(without) == 1
     assert without["p_value"].iloc[0] >= 0.05 and not bool(without["supported"].iloc[0]), without
+
+
+def test_the_report_states_the_rule_and_the_supported_findings(demo):
+    from ped2g.compare.calibrated import READING_RULE
+
+    folder, _truth = demo
+    page = " ".join((folder / "results/report/report.html").read_text(encoding="utf-8").split())
+    assert "Findings: differences beyond estimation noise" in page
+    assert READING_RULE.format(alpha=0.05).replace("'", "&#39;") in page or READING_RULE.format(alpha=0.05) in page
+    tensor = pd.read_csv(folder / "results/compare/tensor.csv")
+    supported = tensor[tensor["supported"].astype(str) == "True"]
+    assert len(supported) >= 1
+    import re
+
+    counted = re.search(r"(\d+) of (\d+) tested statistics differ by more than estimation noise", page)
+    assert counted and int(counted.group(1)) >= len(supported), counted
+    methods = " ".join((folder / "results/report/methods.txt").read_text(encoding="utf-8").split())
+    assert READING_RULE.format(alpha=0.05) in methods and "Holm" in methods

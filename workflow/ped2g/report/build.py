@@ -386,16 +386,17 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
     scale = config["compare"]["scale"]
     extras = inputs.compare_extras
     traits = next(iter(inputs.fits.values())).traits
+    refit = (extras.get("summary") or {}).get("refit_null")
     if inputs.null_summary is not None:
-        sec.heading("Randomisation null")
+        sec.heading("Breeding-value null (descriptive)")
         sec.table(html.key_values(tables.record_items(inputs.null_summary)))
-    elif not inputs.null_present:
-        sec.note("No randomisation null was found (null/null_G.nc): the comparisons below have no null "
-                 "reference. Run 'ped2g null' and 'ped2g compare' to add one.")
+    elif not inputs.null_present and not refit:
+        sec.note("No null was found (null/refits/ or null/null_G.nc): the comparisons below have no "
+                 "reference for estimation noise. Run 'ped2g null-refit' for every population and "
+                 "'ped2g compare --refits' to add one.")
     if not inputs.compare:
         sec.note("No comparison tables were found (compare/*.csv): run 'ped2g compare' to add them.")
         return False
-    refit = (extras.get("summary") or {}).get("refit_null")
     if refit:
         _findings(sec, inputs, refit, mass)
     if extras.get("summary"):
