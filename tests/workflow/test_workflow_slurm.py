@@ -128,9 +128,16 @@ def slurm_run(request, tmp_path_factory):
     since = time.strftime("%Y-%m-%dT%H:%M:%S", time.localtime(time.time() - 5))
     # the fits load the code the local run compiled (its cache folder), so they start at once;
     # the plugin first asks SLURM about its jobs after 10 s instead of 40
-    result = snakemake(folder, "--profile", profile, "--slurm-keep-successful-logs",
-                       "--slurm-init-seconds-before-status-checks", "10",
-                       config=config, timeout=900, tmpdir=local[0] / "tmp")
+    try:
+        result = snakemake(folder, "--profile", profile, "--slurm-keep-successful-logs",
+                           "--slurm-init-seconds-before-status-checks", "10",
+                           config=config, timeout=900, tmpdir=local[0] / "tmp")
+    except subprocess.TimeoutExpired as stopped:
+        # a job the plugin refuses to submit leaves Snakemake waiting for ever
+        said = stopped.stderr or b""
+        said = said.decode(errors="replace") if isinstance(said, bytes) else said
+        pytest.fail(f"Snakemake did not finish on SLURM in 900 s; squeue: "
+                    f"{_run('squeue').stdout.strip()!r}; its last output:\n{said[-3000:]}")
     logs = "\n".join(p.read_text(errors="replace")[-2000:]
                      for p in sorted((folder / ".snakemake" / "slurm_logs").rglob("*.log")))
     assert result.returncode == 0, (result.stdout + result.stderr)[-5000:] + logs
