@@ -35,13 +35,10 @@ def _assert_same_tables(first, second):
 
 
 @pytest.fixture(scope="module")
-def finished(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("tiny_study")
-    config = make_study(folder)
-    # a compile cache of its own, so the fits here compile cold and the refit below loads them
-    result = snakemake(folder, "--cores", "2", config=config, timeout=1500, tmpdir=folder / "tmp")
-    assert result.returncode == 0, (result.stdout + result.stderr)[-5000:]
-    return folder, config, result
+def finished(tiny_local_run):
+    # one run shared with test_workflow_slurm.py (conftest.py); its fits compile cold into a
+    # cache of their own, and the refit below loads them
+    return tiny_local_run
 
 
 def test_every_stage_ran_and_the_report_was_written(finished):
