@@ -8,12 +8,13 @@ PED2G_REQUIRE_SLURM=1 (set by .ci/run) it fails instead, so CI cannot pass witho
 PED2G_SLURM_ACCOUNT and PED2G_SLURM_PARTITION name the account and partition (default: those
 `.ci/slurm-up` makes; its default partition allows one hour, too little for a fit's request).
 
-Checked against SLURM's own accounting record (`sacct`): every fit, and nothing else, ran as a
-SLURM job that completed, with the memory, time limit and CPUs the fit rule asks for (the
-resources Snakemake resolves for the rule in a dry run: fit_mem_mb and fit_runtime in
-workflow/rules/common.smk, threads = chains), on the profile's account and partition. Checked
-against the same config and seed run on this machine (the session's local run, conftest.py):
-every table of every fit and every posterior draw are identical.
+Checked against SLURM's own accounting record (`sacct`): every fit and every job of the
+refitting null, and nothing else, ran as a SLURM job that completed, with the memory, time limit
+and CPUs its rule asks for (the resources Snakemake resolves for the rule in a dry run:
+fit_mem_mb and fit_runtime in workflow/rules/common.smk, threads = chains of a fit or of a
+refit), on the profile's account and partition. Checked against the same config and seed run on
+this machine (the session's local run, conftest.py): every table of every fit, every posterior
+draw and every comparison table (p-values of the refitting null included) are identical.
 """
 
 from __future__ import annotations
@@ -79,18 +80,20 @@ def _profile(folder) -> str:
     return str(folder)
 
 
-def _fit_resources(dry_run: subprocess.CompletedProcess, chains: int) -> dict[str, dict[str, int]]:
-    """{population: {'mem_mb', 'runtime', 'threads'}} of the fit jobs a dry run plans (a fit
-    runs one chain per thread; a dry run for a cluster does not print the threads)."""
+def _fit_resources(dry_run: subprocess.CompletedProcess, threads: dict[str, int]) -> dict[str, dict[str, int]]:
+    """{'<rule>_<population>': {'mem_mb', 'runtime', 'threads'}} of the fit and null_refit jobs a
+    dry run plans (one chain per thread, ``threads`` per rule; a dry run for a cluster does not
+    print the threads)."""
     found = {}
     for block in re.split(r"\n(?=\[)", dry_run.stdout + dry_run.stderr):
-        if re.search(r"\brule fit:", block):
+        rule = re.search(r"\brule (fit|null_refit):", block)
+        if rule:
             population = re.search(r"wildcards: population=(\w+)", block).group(1)
             resources = re.search(r"resources: (.*)", block).group(1)
-            found[population] = {
+            found[f"{rule.group(1)}_{population}"] = {
                 "mem_mb": int(re.search(r"\bmem_mb=(\d+)", resources).group(1)),
                 "runtime": int(re.search(r"\bruntime=(\d+)", resources).group(1)),
-                "threads": chains,
+                "threads": threads[rule.group(1)],
             }
     return found
 
@@ -141,19 +144,23 @@ def slurm_run(request, tmp_path_factory):
     logs = "\n".join(p.read_text(errors="replace")[-2000:]
                      for p in sorted((folder / ".snakemake" / "slurm_logs").rglob("*.log")))
     assert result.returncode == 0, (result.stdout + result.stderr)[-5000:] + logs
-    chains = yaml.safe_load(config.read_text())["sampling"]["chains"]
-    return folder, local[0], _fit_resources(dry, chains), _jobs_of(folder, since)
+    settings = yaml.safe_load(config.read_text())
+    threads = {"fit": settings["sampling"]["chains"],
+               "null_refit": settings["compare"]["null_model"]["refit"]["chains"]}
+    return folder, local[0], _fit_resources(dry, threads), _jobs_of(folder, since)
 
 
 def test_every_fit_ran_as_a_slurm_job_with_the_resources_its_rule_asks_for(slurm_run):
     _folder, _local, asked, jobs = slurm_run
-    assert sorted(asked) == POPULATIONS
-    # only the fits go to SLURM; the light steps run where Snakemake runs
-    comments = sorted(jobs["Comment"])
-    assert comments == [f"rule_fit_wildcards_{p}" for p in POPULATIONS], jobs.to_string()
+    expected = sorted(f"{rule}_{p}" for rule in ("fit", "null_refit") for p in POPULATIONS)
+    assert sorted(asked) == expected
+    # only the fits and the refitting null's jobs go to SLURM; the light steps run where
+    # Snakemake runs (the tiny study has one null_refit job per population)
+    ran = sorted(re.match(r"rule_(fit|null_refit)_wildcards_(\w+?)(?:_\d+)?$", c).expand(r"\1_\2")
+                 for c in jobs["Comment"])
+    assert ran == expected, jobs.to_string()
     for _, job in jobs.iterrows():
-        population = job["Comment"].rsplit("_", 1)[1]
-        want = asked[population]
+        want = asked[re.match(r"rule_(fit|null_refit)_wildcards_(\w+?)(?:_\d+)?$", job["Comment"]).expand(r"\1_\2")]
         assert job["State"] == "COMPLETED" and job["ExitCode"] == "0:0", job.to_string()
         assert job["ReqMem"] == f"{want['mem_mb']}M", job.to_string()
         assert int(job["TimelimitRaw"]) == want["runtime"], job.to_string()
@@ -177,3 +184,9 @@ def test_the_cluster_run_gives_the_numbers_of_the_local_run(slurm_run):
                                 engine="h5netcdf") as b:
             assert "G" in a.data_vars
             xr.testing.assert_equal(a.load(), b.load())
+    compared = sorted(p.name for p in (local / "results/compare").glob("*.csv"))
+    assert "distance.csv" in compared
+    for name in compared:
+        pd.testing.assert_frame_equal(pd.read_csv(local / "results/compare" / name),
+                                      pd.read_csv(folder / "results/compare" / name),
+                                      check_exact=True, obj=f"compare/{name}")
