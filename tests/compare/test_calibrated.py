@@ -94,3 +94,14 @@ def test_the_readme_states_the_reading_rule_in_the_same_words():
 
     readme = " ".join((Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8").split())
     assert " ".join(READING_RULE.format(alpha=0.05).split()) in readme
+
+
+def test_planned_replicates_default_and_refusal():
+    from ped2g.compare.calibrated import planned_replicates
+    from ped2g.errors import UserError
+
+    assert planned_replicates(3, 4, 0.05, None) == 99       # needs 80, at least 99
+    assert planned_replicates(6, 4, 0.05, None) == 300      # 15 pairs: R + 1 > 300
+    assert planned_replicates(2, 2, 0.05, 40) == 40
+    with pytest.raises(UserError, match="needs at least 40"):
+        planned_replicates(2, 2, 0.05, 25)

@@ -347,20 +347,13 @@ NULL_KIND = CFG["compare"]["null_model"]["kind"]
 
 def refit_replicates():
     """Replicates of the refitting null: the config's number, or the fewest the reading rule needs."""
-    from ped2g.compare.calibrated import required_replicates
+    from ped2g.compare.calibrated import planned_replicates
 
-    t = len(CFG["traits"])
-    m = len(POPULATIONS)
-    need = required_replicates(m, t, min(m - 1, t * (t + 1) // 2), float(CFG["compare"]["alpha"]))
-    asked = CFG["compare"]["null_model"]["replicates"]
-    if asked is None:
-        return max(99, need)
-    if int(asked) < need:
-        fail(f"{SOURCE}: key 'compare.null_model.replicates' is {asked}, but with {m} populations "
-             f"and {t} traits the largest family of tests needs at least {need} replicates for a "
-             f"Holm-adjusted p-value to reach compare.alpha = {CFG['compare']['alpha']:g}; raise it "
-             "or leave it null")
-    return int(asked)
+    try:
+        return planned_replicates(len(POPULATIONS), len(CFG["traits"]), float(CFG["compare"]["alpha"]),
+                                  CFG["compare"]["null_model"]["replicates"])
+    except UserError as err:
+        fail(f"{SOURCE}: {err}")
 
 
 def refit_chunks():

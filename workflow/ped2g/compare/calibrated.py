@@ -97,6 +97,29 @@ def required_replicates(n_populations: int, n_traits: int, n_eigentensors: int, 
     return int(math.floor(max(needs) / alpha + 1e-9))
 
 
+def planned_replicates(n_populations: int, n_traits: int, alpha: float, asked: int | None) -> int:
+    """Replicates of the refitting null: ``asked``, or with None the fewest the reading rule needs
+    (:func:`required_replicates` with every eigentensor kept), and at least 99.
+
+    Raises
+    ------
+    UserError
+        ``asked`` is below what the largest family of tests needs.
+    """
+    from ..errors import UserError
+
+    t = n_traits
+    need = required_replicates(n_populations, t, min(n_populations - 1, t * (t + 1) // 2), alpha)
+    if asked is None:
+        return max(99, need)
+    if int(asked) < need:
+        raise UserError(f"key 'compare.null_model.replicates' is {asked}, but with {n_populations} "
+                        f"populations and {t} traits the largest family of tests needs at least {need} "
+                        f"replicates for a Holm-adjusted p-value to reach compare.alpha = {alpha:g}; "
+                        "raise it or leave it null")
+    return int(asked)
+
+
 def families(table: pd.DataFrame) -> pd.Series:
     """The family of each row (see the module docstring) as a label."""
     per_pop = table["population"].fillna("").astype(str) != ""

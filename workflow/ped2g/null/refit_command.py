@@ -30,7 +30,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "(default: clean the config's data.pedigree here)")
     parser.add_argument("--first", type=int, default=0, help="first replicate number (default 0)")
     parser.add_argument("--count", type=int, default=None,
-                        help="number of replicates (default: compare.null_model.replicates)")
+                        help="number of replicates (default: compare.null_model.replicates, or with null "
+                             "the fewest the reading rule needs)")
     parser.add_argument("--out", required=True, metavar="FILE", help="netCDF file to write")
 
 
@@ -58,6 +59,7 @@ def fit_engine(fit_dir: Path, population: str, on_failure: str = "stop", log=Non
 
 def run(args: argparse.Namespace) -> int:
     from .. import __version__
+    from ..compare.calibrated import planned_replicates
     from ..config import load_config
     from ..errors import UserError
     from ..fit.command import load_pedigree
@@ -71,13 +73,16 @@ def run(args: argparse.Namespace) -> int:
     start = time.perf_counter()
     config = load_config(args.config)
     null_cfg = config["compare"]["null_model"]
-    count = int(null_cfg["replicates"]) if args.count is None else args.count
-    if args.first < 0 or count < 1:
-        raise UserError(f"--first must be 0 or more and --count 1 or more, got {args.first} and {count}")
     fits = {}
     for d in args.fits:
         fit = load_fit(d)
         fits[fit.population] = fit
+    count = args.count
+    if count is None:
+        count = planned_replicates(len(fits), len(config["traits"]), float(config["compare"]["alpha"]),
+                                   null_cfg["replicates"])
+    if args.first < 0 or count < 1:
+        raise UserError(f"--first must be 0 or more and --count 1 or more, got {args.first} and {count}")
     population = str(args.population)
     if population not in fits:
         raise UserError(f"population '{population}' has no fit among --fits ({', '.join(fits)})")
