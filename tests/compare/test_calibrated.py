@@ -75,14 +75,27 @@ def test_rows_that_do_not_compare_G_get_no_test():
 
 def test_replicates_needed_let_the_largest_family_reach_alpha():
     # three populations, four traits: H's four eigenvalues are the largest family; Holm's smallest
-    # adjusted p, 4 / (R + 1), must be below 0.05: R + 1 > 80
-    assert required_replicates(3, 4, 2, 0.05) == 80
-    assert required_replicates(2, 2, 1, 0.05) == 40       # two traits or two deviations
-    assert required_replicates(6, 4, 5, 0.05) == 300      # 15 pairs
-    for m, t, k, a in [(3, 4, 2, 0.05), (4, 8, 3, 0.1), (2, 3, 1, 0.01)]:
+    # adjusted p, 4 / (R + 1), must be at most 0.05: R + 1 >= 80
+    assert required_replicates(3, 4, 2, 0.05) == 79
+    assert required_replicates(2, 2, 1, 0.05) == 39       # two traits or two deviations
+    assert required_replicates(6, 4, 5, 0.05) == 299      # 15 pairs
+    for m, t, k, a in [(3, 4, 2, 0.05), (4, 8, 3, 0.1), (2, 3, 1, 0.01), (3, 3, 2, 0.07)]:
         R = required_replicates(m, t, k, a)
         worst = max(m * (m - 1) // 2, m, t, k)
-        assert worst / (R + 1) < a <= worst / R      # the fewest that can fall below alpha
+        assert worst / (R + 1) <= a * (1 + 1e-12) and a < worst / R   # the fewest that can reach alpha
+
+
+def test_rule_is_at_or_below_alpha_so_the_level_is_exact():
+    # Monte Carlo test (Davison & Hinkley 1997, section 4.2 [M]): with R = 39 replicates and a
+    # uniform rank, p = k / 40 takes each of 1/40 ... 40/40 with probability 1/40, so rejecting at
+    # p <= 0.05 has level exactly 2/40 = 0.05 [exact identity]; "p < 0.05" would give 1/40.
+    from ped2g.compare.calibrated import at_or_below
+
+    p = np.arange(1, 41) / 40
+    assert at_or_below(p, 0.05).mean() == pytest.approx(0.05)
+    # Holm's product 3 x (1/60) is 0.05 up to rounding and counts as reaching 0.05
+    assert at_or_below(np.array([3 * (1 / 60)]), 0.05).all()
+    assert not at_or_below(np.array([0.0501, np.nan]), 0.05).any()
 
 
 def test_reading_rule_names_its_level():
@@ -100,8 +113,9 @@ def test_planned_replicates_default_and_refusal():
     from ped2g.compare.calibrated import planned_replicates
     from ped2g.errors import UserError
 
-    assert planned_replicates(3, 4, 0.05, None) == 99       # needs 80, at least 99
-    assert planned_replicates(6, 4, 0.05, None) == 300      # 15 pairs: R + 1 > 300
+    assert planned_replicates(3, 4, 0.05, None) == 99       # needs 79, at least 99
+    assert planned_replicates(6, 4, 0.05, None) == 299      # 15 pairs: R + 1 >= 300
     assert planned_replicates(2, 2, 0.05, 40) == 40
-    with pytest.raises(UserError, match="needs at least 40"):
-        planned_replicates(2, 2, 0.05, 25)
+    assert planned_replicates(2, 2, 0.05, 39) == 39
+    with pytest.raises(UserError, match="needs at least 39"):
+        planned_replicates(2, 2, 0.05, 38)

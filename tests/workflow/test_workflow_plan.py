@@ -39,7 +39,7 @@ def test_dry_run_lists_one_fit_per_population(tmp_path):
     table = pd.read_csv(tmp_path / "data" / "phenotypes.csv", dtype=str)
     populations = sorted(table["site"].unique())
     assert populations == ["north", "south"]
-    # the refitting null: config/tiny.yaml asks for 40 replicates, 40 per job
+    # the refitting null: config/tiny.yaml asks for 39 replicates, 39 per job
     assert planned_jobs(result) == {"pedigree": 1, "fit": 2, "null_refit": 2, "compare": 1,
                                     "report": 1, "all": 1}
     assert planned_wildcards(result, "null_refit") == ["north", "south"]
@@ -105,9 +105,9 @@ MISTAKES = {
                           ["data.columns.id", "ring"]),
     "one population only": ({"populations": ["north"]}, ["two populations", "populations"]),
     "alpha outside (0, 1)": ({"compare": {"alpha": 1.5}}, ["compare.alpha", "1.5"]),
-    # two populations, two traits: Holm's smallest adjusted p 2 / (R + 1) < 0.05 needs R >= 40
+    # two populations, two traits: Holm's smallest adjusted p 2 / (R + 1) <= 0.05 needs R >= 39
     "too few null replicates": ({"compare": {"null_model": {"replicates": 25}}},
-                                ["compare.null_model.replicates", "25", "at least 40"]),
+                                ["compare.null_model.replicates", "25", "at least 39"]),
     # [[1, 2], [2, 1]] has eigenvalues 3 and -1 (exact), so it is no covariance matrix
     "fixed G not positive definite": (
         {"model": {"fixed_covariances": {"G": [[1.0, 2.0], [2.0, 1.0]],
