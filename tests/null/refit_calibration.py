@@ -20,7 +20,12 @@ Run as a script (the README quotes its tables)::
     python tests/null/refit_calibration.py --studies 10 --replicates 39 --truth    # the demo's G
 
 ``--truth`` simulates with the demo's true G matrices (one population reduced along one axis,
-one with a rotated leading axis), which gives the power. The slow test
+one with a rotated leading axis), which gives the power. ``--recovery-only`` fits the simulated
+studies without a null, to measure the fits' bias and interval coverage with other chain lengths
+or priors, for example::
+
+    python tests/null/refit_calibration.py --truth --recovery-only --studies 30 \
+        --chains 2 --warmup 500 --draws 1000 --lkj-eta 1 The slow test
 (tests/null/test_refit_calibration.py) runs a tiny design.
 """
 
@@ -141,8 +146,9 @@ def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int,
 
 
 def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicates: int,
-        seed: int = 1, progress=print) -> pd.DataFrame:
-    """Simulate and analyse ``studies`` studies on one design; every tested row of every study.
+        seed: int = 1, progress=print, with_null: bool = True) -> pd.DataFrame:
+    """Simulate and analyse ``studies`` studies on one design; every tested row of every study
+    (none with ``with_null=False``, which only fits each study).
 
     The fits' recovery of the true G and h2 (one row per study, population and parameter) is left
     in ``run.recovery``."""
@@ -155,11 +161,17 @@ def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicat
         start = time.perf_counter()
         Y = {p: simulate_records(d, Gs[p], params[p], generator(seed, "calibration", s, p))
              for p, d in data.items()}
-        out.append(analyse(refitters, data, Y, config, replicates, s, truth))
-        recovery += analyse.recovery
+        if with_null:
+            out.append(analyse(refitters, data, Y, config, replicates, s, truth))
+            recovery += analyse.recovery
+        else:
+            for p in data:
+                fit = refitters[p].refit(Y[p], f"recovery:{s}:{p}")
+                recovery += [dict(r, population=p, study=s, rhat_max=fit.rhat_max, ess_bulk_min=fit.ess_bulk_min)
+                             for r in recovery_rows(fit, *truth[p], data[p].traits)]
         progress(f"study {s + 1} of {studies} in {time.perf_counter() - start:.0f} s")
     run.recovery = pd.DataFrame(recovery)
-    return pd.concat(out, ignore_index=True)
+    return pd.concat(out, ignore_index=True) if out else pd.DataFrame()
 
 
 def recovery_table(recovery: pd.DataFrame) -> pd.DataFrame:
@@ -211,6 +223,11 @@ def main() -> None:
     parser.add_argument("--truth", action="store_true", help="simulate with the demo's true G matrices (power)")
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--out", default=None, help="CSV of every tested row")
+    parser.add_argument("--recovery-only", action="store_true", help="fit the studies without a null")
+    parser.add_argument("--chains", type=int, default=None, help="chains per fit (default: the refits')")
+    parser.add_argument("--warmup", type=int, default=None, help="tuning iterations per chain")
+    parser.add_argument("--draws", type=int, default=None, help="kept draws per chain")
+    parser.add_argument("--lkj-eta", type=float, default=None, help="model.priors.lkj_eta of the fits")
     parser.add_argument("--tables", default=None, metavar="CSV",
                         help="only print the tables of a CSV written by an earlier run with --out")
     args = parser.parse_args()
@@ -224,8 +241,25 @@ def main() -> None:
         return
     data, cfg, truth = demo_design()
     cfg = validate({**cfg, "compare": {**cfg["compare"], "null_model": {**cfg["compare"]["null_model"]}}})
+    for key in ("chains", "warmup", "draws"):
+        if getattr(args, key) is not None:
+            cfg["compare"]["null_model"]["refit"][key] = getattr(args, key)
+    if args.lkj_eta is not None:
+        cfg["model"]["priors"]["lkj_eta"] = args.lkj_eta
+    chains = cfg["compare"]["null_model"]["refit"]
     Gs, params = true_parameters(data, truth, shared=not args.truth)
     start = time.perf_counter()
+    if args.recovery_only:
+        run(data, cfg, Gs, params, args.studies, 0, args.seed, with_null=False)
+        rec = run.recovery
+        if args.out:
+            rec.to_csv(args.out, index=False)
+        print(f"recovery of {len(rec.groupby(['study', 'population']))} fits, {chains['chains']} chain(s) x "
+              f"({chains['warmup']} + {chains['draws']}), lkj_eta {cfg['model']['priors']['lkj_eta']:g}, "
+              f"{time.perf_counter() - start:.0f} s; 90% intervals")
+        print(recovery_table(rec).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
+        print(recovery_summary(rec))
+        return
     rows = run(data, cfg, Gs, params, args.studies, args.replicates, args.seed)
     if args.out:
         rows.to_csv(args.out, index=False)
@@ -235,13 +269,20 @@ def main() -> None:
           f"{time.perf_counter() - start:.0f} s")
     print(share_table(rows).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
     print(overall(rows))
-    print("recovery of the fits (1 chain x (150 + 300) each; 90% intervals):")
+    print(f"recovery of the fits ({chains['chains']} chain(s) x ({chains['warmup']} + {chains['draws']}) each; "
+          "90% intervals):")
     print(recovery_table(run.recovery).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
-    rec = run.recovery
-    print(f"all G elements: HPD {rec[rec.parameter.str.startswith('G')].hpd_covers.mean():.3f}, "
-          f"equal-tailed {rec[rec.parameter.str.startswith('G')].et_covers.mean():.3f}; all h2: HPD "
-          f"{rec[rec.parameter.str.startswith('h2')].hpd_covers.mean():.3f}, equal-tailed "
-          f"{rec[rec.parameter.str.startswith('h2')].et_covers.mean():.3f}")
+    print(recovery_summary(run.recovery))
+
+
+def recovery_summary(rec: pd.DataFrame) -> str:
+    """Coverage over all G elements, covariances and h2, and the mean bias in posterior SDs."""
+    kinds = {"G variances": rec.parameter.str.match(r"G\[(\w+),\1\]"),
+             "G covariances": rec.parameter.str.startswith("G") & ~rec.parameter.str.match(r"G\[(\w+),\1\]"),
+             "h2": rec.parameter.str.startswith("h2")}
+    z = (rec["mean"] - rec["truth"]) / rec["sd"]
+    return "; ".join(f"{k}: HPD {rec[m].hpd_covers.mean():.3f}, equal-tailed {rec[m].et_covers.mean():.3f}, "
+                     f"bias {z[m].mean():+.2f} SD" for k, m in kinds.items())
 
 
 if __name__ == "__main__":
