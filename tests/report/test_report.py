@@ -62,7 +62,7 @@ def test_sections_are_all_there_in_the_required_order(built_report):
     paths, _ = built_report
     page = _parse(paths["out"] / "report.html")
     assert page.sections == [sid for sid, _ in SECTION_ORDER]
-    assert [sid for sid, _ in SECTION_ORDER] == ["run", "data", "diagnostics", "estimates",
+    assert [sid for sid, _ in SECTION_ORDER] == ["findings", "run", "data", "diagnostics", "estimates",
                                                   "comparisons", "methods", "provenance", "cautions"]
 
 

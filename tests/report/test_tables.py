@@ -49,11 +49,11 @@ def test_phenotype_counts_by_hand():
                           "b": [1.0, 2.0, np.nan, np.nan]})
     out = tables.phenotype_counts(pheno, ["x", "y"], ["a", "b"]).set_index("population")
     assert out.loc["x", "records"] == 3
-    assert out.loc["x", "a n"] == 2
-    assert out.loc["x", "a % missing"] == pytest.approx(100 / 3)
-    assert out.loc["y", "b % missing"] == pytest.approx(100.0)
-    assert out.loc["x", "complete records"] == 1
-    assert out.loc["y", "complete records"] == 0
+    assert out.loc["x", "a_n"] == 2
+    assert out.loc["x", "a_missing_percent"] == pytest.approx(100 / 3)
+    assert out.loc["y", "b_missing_percent"] == pytest.approx(100.0)
+    assert out.loc["x", "complete_records"] == 1
+    assert out.loc["y", "complete_records"] == 0
 
 
 def test_estimates_interval_matches_deterministic_hpd():

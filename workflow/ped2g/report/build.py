@@ -224,7 +224,8 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
                                             methods=list(inputs.compare), null_present=inputs.null_present,
                                             versions=versions,
                                             compare_record=inputs.compare_extras.get("summary"),
-                                            samplers=samplers, missing_by_gibbs=missing_by_gibbs)
+                                            samplers=samplers, missing_by_gibbs=missing_by_gibbs,
+                                            sample_sizes=_sample_sizes(inputs, pheno, traits))
         refs = sorted(set(refs) | {REFERENCES[k] for k in CAUTION_REFERENCES})
         sec = sections["methods"]
         sec.note("Generated from the settings and outputs of this run; adapt it for a paper and keep "
@@ -561,6 +562,24 @@ def _supported(display: pd.DataFrame) -> pd.DataFrame:
     mask = pd.DataFrame(False, index=display.index, columns=display.columns)
     mask["supported"] = display["supported"] == "yes"
     return mask.reset_index(drop=True)
+
+
+def _sample_sizes(inputs: ResultInputs, pheno, traits: list[str]) -> list[dict[str, Any]]:
+    """Records, complete records, missing values and pedigree animals per population."""
+    counts = tables.phenotype_counts(pheno, inputs.populations, traits)
+    ped = tables.pedigree_by_population(inputs)
+    out = []
+    for pop in inputs.populations:
+        row: dict[str, Any] = {"population": pop}
+        if counts is not None:
+            c = counts[counts["population"] == pop].iloc[0]
+            row["records"] = int(c["records"])
+            row["complete"] = int(c["complete_records"])
+            row["missing"] = int(sum(c["records"] - c[f"{t}_n"] for t in traits))
+        if ped is not None and (ped["population"] == pop).any():
+            row["animals"] = int(ped.loc[ped["population"] == pop, "animals"].iloc[0])
+        out.append(row)
+    return out
 
 
 def _refit_note(sec: Section, refit: dict[str, Any]) -> None:

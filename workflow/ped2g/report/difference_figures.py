@@ -283,7 +283,7 @@ def ellipses_figure(mean_G: dict[str, np.ndarray], draws: dict[str, np.ndarray],
         ax.set_aspect("equal")
         ax.axhline(0, color="0.7", lw=0.6)
         ax.axvline(0, color="0.7", lw=0.6)
-        ax.set_xlabel(f"{traits[i]} (genetic SD, {scale_note})", fontsize=8)
+        ax.set_xlabel(f"{traits[i]} (genetic SD, {scale_note})", fontsize=8)  # scale_note: SD units
         ax.set_ylabel(f"{traits[j]} (genetic SD)", fontsize=8)
         ax.tick_params(labelsize=7)
     for ax in list(grid.flat)[len(pairs):]:
@@ -292,7 +292,9 @@ def ellipses_figure(mean_G: dict[str, np.ndarray], draws: dict[str, np.ndarray],
     from matplotlib.lines import Line2D
     handles += [Line2D([], [], color="0.3", lw=1.4, ls=(0, (4, 1.5))),
                 Line2D([], [], color="0.3", lw=1.2, ls=":")]
-    names += ["g_max (dashed)", "true G (dotted)" if truth else "true G: no truth file"]
+    names += ["g_max (dashed)", "true G (dotted)"]
+    if not truth:
+        handles, names = handles[:-1], names[:-1]
     if divergence is not None:
         handles.append(Line2D([], [], color="black", lw=1.3, marker=">", markersize=5))
         names.append("divergence of the means")
@@ -367,7 +369,9 @@ def pairwise_matrix_figure(matrices: dict[str, pd.DataFrame]) -> Figure:
     nrow = int(np.ceil(n / ncol))
     fig, grid = plt.subplots(nrow, ncol, figsize=((size + 1.0) * ncol, size * nrow), squeeze=False)
     for ax, (name, frame) in zip(grid.flat, matrices.items()):
-        mat = frame.to_numpy(dtype=float)
+        mat = frame.to_numpy(dtype=float).copy()
+        if mat.shape[0] == mat.shape[1] and list(frame.index) == list(frame.columns):
+            np.fill_diagonal(mat, np.nan)  # a population against itself says nothing
         low, centre, high, cmap_name = MATRIX_SCALES.get(name, (None, None, None, "cividis"))
         finite = mat[np.isfinite(mat)]
         if low == "log":
@@ -393,6 +397,11 @@ def pairwise_matrix_figure(matrices: dict[str, pd.DataFrame]) -> Figure:
         ax.set_title(MATRIX_LABELS.get(name, name), fontsize=9)
         ax.grid(False)
         cbar = fig.colorbar(image, ax=ax, shrink=0.75)
+        if low == "log":
+            ticks = [norm.vmin, np.sqrt(norm.vmin), 1.0, np.sqrt(norm.vmax), norm.vmax]
+            cbar.set_ticks(ticks)
+            cbar.set_ticklabels([fmt(v, 2) for v in ticks])
+            cbar.ax.minorticks_off()
         cbar.ax.tick_params(labelsize=7)
     for ax in list(grid.flat)[n:]:
         ax.set_visible(False)

@@ -56,6 +56,11 @@ def scale_note(scale: str) -> str:
             "original": "original units"}.get(scale, scale)
 
 
+def sd_note(scale: str) -> str:
+    return {"variance": "in phenotypic SDs", "mean": "mean-standardised",
+            "original": "original units"}.get(scale, scale)
+
+
 def build_context(inputs: ResultInputs, config: dict[str, Any], draws, truth: dict | None,
                   log=None) -> Context | None:
     """Scaled G draws of every population, the fixed axes, the null's band and the truth."""
@@ -195,7 +200,7 @@ def difference_blocks(sec, inputs: ResultInputs, ctx: Context, draws, saved, sto
         if set(ctx.traits) <= set(part.index):
             divergence = part.loc[ctx.traits].to_numpy(dtype=float)
     sec.figure(store.add("g_ellipses", dfig.ellipses_figure(ctx.mean_G, ctx.G, ctx.traits, divergence,
-                                                            ctx.truth_G, note),
+                                                            ctx.truth_G, sd_note(ctx.scale)),
                          "G in the planes of trait pairs",
                          "One-genetic-SD ellipse of each population's posterior-mean G (thick), of "
                          f"{dfig.ELLIPSE_DRAWS} posterior draws (thin), g_max of the posterior-mean G "

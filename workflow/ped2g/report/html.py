@@ -61,6 +61,10 @@ def plain(value: Any, digits: int = 3, max_decimals: int | None = None) -> str:
     return "0" if float(text) == 0 else text
 
 
+#: Values are never cut to fewer decimals than this (0.0042 stays 0.0042 beside 12.8).
+MIN_DECIMALS = 4
+
+
 def column_decimals(values: pd.Series, digits: int = 3) -> int | None:
     """Decimals that give the column's largest |value| ``digits + 1`` significant figures: the
     cap for every value of the column, so that tiny values print as 0 beside large ones."""
@@ -70,7 +74,7 @@ def column_decimals(values: pd.Series, digits: int = 3) -> int | None:
     x = np.abs(x[np.isfinite(x)])
     if not len(x) or x.max() == 0:
         return None
-    return max(digits - math.floor(math.log10(x.max())), 0)
+    return max(digits - math.floor(math.log10(x.max())), MIN_DECIMALS)
 
 
 def _header(name: str) -> str:

@@ -112,7 +112,8 @@ def pedigree_by_population(inputs: ResultInputs) -> pd.DataFrame | None:
 
 def phenotype_counts(pheno: pd.DataFrame | None, populations: list[str],
                      traits: list[str]) -> pd.DataFrame | None:
-    """Per population: records, and per trait the number of values and the percent missing."""
+    """Per population: records, and per trait the number of values (``<trait>_n``) and the percent
+    missing (``<trait>_missing_percent``); ``complete_records`` have every trait."""
     if pheno is None:
         return None
     rows = []
@@ -121,9 +122,9 @@ def phenotype_counts(pheno: pd.DataFrame | None, populations: list[str],
         row: dict[str, Any] = {"population": pop, "records": len(part)}
         for trait in traits:
             n = int(part[trait].notna().sum())
-            row[f"{trait} n"] = n
-            row[f"{trait} % missing"] = 100.0 * (1 - n / len(part)) if len(part) else float("nan")
-        row["complete records"] = int(part[traits].notna().all(axis=1).sum())
+            row[f"{trait}_n"] = n
+            row[f"{trait}_missing_percent"] = 100.0 * (1 - n / len(part)) if len(part) else float("nan")
+        row["complete_records"] = int(part[traits].notna().all(axis=1).sum())
         rows.append(row)
     return pd.DataFrame(rows)
 
