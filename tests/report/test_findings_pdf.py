@@ -121,7 +121,7 @@ def test_findings_name_the_populations_the_csvs_say_differ(refit_report):
     assert READING_RULE.format(alpha=0.05).replace("'", "&#39;") in page or \
         READING_RULE.format(alpha=0.05) in page
     # findings come first on the page
-    assert page.index("Findings at a glance") < page.index("What was run")
+    assert page.index("1. Findings at a glance") < page.index("2. What was run")
     findings = pd.read_csv(paths["out"] / "tables" / "findings.csv")
     assert len(findings) == len(tested) and findings["supported"].head(len(yes)).all()
 

@@ -145,4 +145,7 @@ def test_row_labels_name_pairs_indices_and_traits():
     frame = pd.DataFrame({"population": ["a", "a", np.nan, "c"], "population2": ["b", np.nan, np.nan, np.nan],
                           "axis": [np.nan, 2.0, 1.0, "1"], "axis2": [np.nan, np.nan, "wing", "2"],
                           "statistic": ["s", "s", "s", "s"]})
-    assert tables.row_labels(frame) == ["a vs b", "a #2", "#1 wing", "c #1 #2"]
+    assert tables.row_labels(frame) == ["a and b", "a, component 2", "component 1, wing",
+                                        "c, component 1, component 2"]
+    frame["method"] = "tensor"
+    assert tables.row_labels(frame)[3] == "c, eigentensor 1, eigenvector 2"

@@ -395,10 +395,13 @@ def compare_display(frame: pd.DataFrame) -> pd.DataFrame:
 
 
 #: Columns of a compare table shown on the page, in order (names as in compare/<method>.csv).
-COMPARE_SHOWN = ["statistic", "population", "population2", "axis", "axis2", "mean", "median", "hpd_lower",
+COMPARE_SHOWN = ["statistic", "population", "population2", "axis", "axis2", "mean", "hpd_lower",
                  "hpd_upper", "null_median", "null_hpd_lower", "null_hpd_upper", "p_obs_gt_null",
                  "hpd_overlap", "test_value", "null_refit_median", "null_refit_lower", "null_refit_upper",
                  "p_value", "p_adjusted", "supported"]
+
+
+BREEDING_NULL_SHOWN = ("null_median", "null_hpd_lower", "null_hpd_upper", "p_obs_gt_null", "hpd_overlap")
 
 
 def drop_empty(frame: pd.DataFrame) -> pd.DataFrame:
@@ -412,6 +415,9 @@ def compare_shown(raw: pd.DataFrame) -> pd.DataFrame:
     """The columns of a compare table worth reading on the page, under their CSV names, empty
     columns left out; rows the reading rule supports first."""
     cols = [c for c in COMPARE_SHOWN if c in raw.columns]
+    if "p_adjusted" in raw and raw["p_adjusted"].notna().any():
+        # the calibrated test is the reading; the descriptive null's columns stay in the CSV
+        cols = [c for c in cols if c not in BREEDING_NULL_SHOWN]
     out = drop_empty(raw[cols])
     if "supported" in out:
         yes = out["supported"].astype(str).str.lower().isin(["true", "1", "1.0"])

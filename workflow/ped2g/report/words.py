@@ -36,12 +36,13 @@ def combination_in_words(vector: Any, traits: list[str]) -> str:
     lead = order[0]
     if v[lead] ** 2 >= ONE_TRAIT_SHARE:
         return f"almost only {traits[lead]}"
-    named = [k for k in order[:MAX_NAMED] if abs(v[k]) >= NAMED_SHARE * abs(v[lead])]
+    large = [k for k in order if abs(v[k]) >= NAMED_SHARE * abs(v[lead])]
     sign = np.sign(v[lead])
+    if len(large) == len(traits) and all(np.sign(v[k]) == sign for k in large):
+        return "all traits together"
+    named = large[:MAX_NAMED]
     same = [traits[k] for k in named if np.sign(v[k]) == sign]
     other = [traits[k] for k in named if np.sign(v[k]) != sign]
-    if len(named) == len(traits) and not other:
-        return "all traits together"
     if other:
         return f"mostly {_join(same)} against {_join(other)}"
     return f"mostly {_join(same)} together" if len(same) > 1 else f"mostly {same[0]}"
