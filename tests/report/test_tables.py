@@ -49,11 +49,11 @@ def test_phenotype_counts_by_hand():
                           "b": [1.0, 2.0, np.nan, np.nan]})
     out = tables.phenotype_counts(pheno, ["x", "y"], ["a", "b"]).set_index("population")
     assert out.loc["x", "records"] == 3
-    assert out.loc["x", "a n"] == 2
-    assert out.loc["x", "a % missing"] == pytest.approx(100 / 3)
-    assert out.loc["y", "b % missing"] == pytest.approx(100.0)
-    assert out.loc["x", "complete records"] == 1
-    assert out.loc["y", "complete records"] == 0
+    assert out.loc["x", "a_n"] == 2
+    assert out.loc["x", "a_missing_percent"] == pytest.approx(100 / 3)
+    assert out.loc["y", "b_missing_percent"] == pytest.approx(100.0)
+    assert out.loc["x", "complete_records"] == 1
+    assert out.loc["y", "complete_records"] == 0
 
 
 def test_estimates_interval_matches_deterministic_hpd():
@@ -145,4 +145,7 @@ def test_row_labels_name_pairs_indices_and_traits():
     frame = pd.DataFrame({"population": ["a", "a", np.nan, "c"], "population2": ["b", np.nan, np.nan, np.nan],
                           "axis": [np.nan, 2.0, 1.0, "1"], "axis2": [np.nan, np.nan, "wing", "2"],
                           "statistic": ["s", "s", "s", "s"]})
-    assert tables.row_labels(frame) == ["a vs b", "a #2", "#1 wing", "c #1 #2"]
+    assert tables.row_labels(frame) == ["a and b", "a, component 2", "component 1, wing",
+                                        "c, component 1, component 2"]
+    frame["method"] = "tensor"
+    assert tables.row_labels(frame)[3] == "c, eigentensor 1, eigenvector 2"

@@ -20,16 +20,21 @@ import pandas as pd
 import yaml
 from markupsafe import Markup
 
-from ..io import output_dir, write_json
+from ..io import get_logger, output_dir, write_json
 from . import html, tables
+from .differences import build_context, correlation_figure, difference_blocks, findings_section
 from .figures import (MAX_RANK_PANELS, FigureStore, comparison_figure, covariance_unit,
-                      eigentensor_figure, g_heatmaps_figure, heritability_figure, loadings_figure,
-                      null_density_figure, pairwise_matrix_figure, rank_plots_figure, slug)
-from .loaders import ResultInputs, read_compare_draws, read_phenotypes, read_results
+                      eigentensor_figure, heritability_figure, loadings_figure, null_density_figure,
+                      rank_plots_figure, slug)
+from .pdf import PdfResult, write_pdf
+from .truth import find_truth, read_truth
+from .loaders import (ResultInputs, read_compare_as_written, read_compare_draws, read_phenotypes,
+                      read_results)
 from .methods_text import CAUTION_REFERENCES, REFERENCES, cautions, methods_paragraph
 from .provenance import checksums, package_versions, run_context, stage_records
 
 SECTION_ORDER = [
+    ("findings", "Findings at a glance"),
     ("run", "What was run"),
     ("data", "The data"),
     ("diagnostics", "Fit diagnostics"),
@@ -40,7 +45,7 @@ SECTION_ORDER = [
     ("cautions", "Cautions: assumptions and how to read the results"),
 ]
 #: Short labels for the navigation bar.
-NAV_LABELS = {"comparisons": "Comparisons", "cautions": "Cautions"}
+NAV_LABELS = {"findings": "Findings", "comparisons": "Comparisons", "cautions": "Cautions"}
 METHOD_TITLES = {
     "skewers": "Random skewers",
     "subspace": "Krzanowski common subspace (eigenvalues of H)",
@@ -117,6 +122,8 @@ class ReportResult:
     tables: list[str]
     failed_fits: list[str]
     seconds: float
+    pdf: Path | None = None
+    pdf_note: str = ""
 
 
 class _Tables:
@@ -143,7 +150,8 @@ def _resolve_input(path: str, config_path: Path | None) -> Path:
 
 
 def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
-                 config_path: str | Path | None = None, argv: list[str] | None = None) -> ReportResult:
+                 config_path: str | Path | None = None, argv: list[str] | None = None,
+                 truth: str | Path | None = None, pdf: bool = True) -> ReportResult:
     """Write ``report.html``, ``figures/``, ``tables/``, ``methods.txt`` and ``provenance.json``.
 
     Parameters
@@ -171,11 +179,20 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
     pedigree_path = _resolve_input(config["data"]["pedigree"], config_path)
     pheno = read_phenotypes(pheno_path, config["data"]["columns"]["population"], traits)
     versions = package_versions()
+    truth_path = find_truth(pheno_path, truth)
+    truth_data = read_truth(truth_path) if truth_path else None
+    draws = read_compare_draws(inputs.root)
 
     with output_dir(out) as tmp:
         store = FigureStore(tmp / "figures")
         saved = _Tables(tmp / "tables")
         sections = {sid: Section(sid, title) for sid, title in SECTION_ORDER}
+
+        # -- findings at a glance ---------------------------------------------------------------
+        ctx = build_context(inputs, config, draws, truth_data, log=get_logger("report"))
+        findings_section(sections["findings"], inputs, config, saved, store, ctx)
+        if truth_path:
+            sections["findings"].note(f"Truth markers come from {truth_path} (true parameters of a simulated study).")
 
         # -- what was run ---------------------------------------------------------------------
         settings = tables.run_settings(config, inputs)
@@ -192,7 +209,8 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
         _estimates_section(sections["estimates"], inputs, traits, units, mass, saved, store)
 
         # -- comparisons -----------------------------------------------------------------------
-        has_null_cols = _comparisons_section(sections["comparisons"], inputs, pops, config, saved, store)
+        has_null_cols = _comparisons_section(sections["comparisons"], inputs, pops, config, saved, store,
+                                             ctx, draws)
 
         # -- methods ---------------------------------------------------------------------------
         engines = sorted({str(f.diagnostics["engine"]) for f in inputs.fits.values()
@@ -206,7 +224,8 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
                                             methods=list(inputs.compare), null_present=inputs.null_present,
                                             versions=versions,
                                             compare_record=inputs.compare_extras.get("summary"),
-                                            samplers=samplers, missing_by_gibbs=missing_by_gibbs)
+                                            samplers=samplers, missing_by_gibbs=missing_by_gibbs,
+                                            sample_sizes=_sample_sizes(inputs, pheno, traits))
         refs = sorted(set(refs) | {REFERENCES[k] for k in CAUTION_REFERENCES})
         sec = sections["methods"]
         sec.note("Generated from the settings and outputs of this run; adapt it for a paper and keep "
@@ -238,10 +257,12 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
             sections=[sections[sid] for sid, _ in SECTION_ORDER], nav=NAV_LABELS,
             made=prov["context"]["report made (UTC)"], version=versions.get("ped2g", ""), failed=failed)
         (tmp / "report.html").write_text(page, encoding="utf-8")
+        printed = write_pdf(tmp / "report.html", tmp / "report.pdf") if pdf else PdfResult(None, "not asked for")
         prov["context"]["report seconds"] = round(time.perf_counter() - start, 2)
         write_json(tmp / "provenance.json", prov)
     return ReportResult(out=Path(out), figures=[f.name for f in store.figures], tables=saved.names,
-                        failed_fits=failed, seconds=time.perf_counter() - start)
+                        failed_fits=failed, seconds=time.perf_counter() - start,
+                        pdf=Path(out) / "report.pdf" if printed.path else None, pdf_note=printed.reason)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -289,7 +310,8 @@ def _data_section(sec: Section, inputs: ResultInputs, pheno, pheno_path: Path, t
         if by is not None:
             saved.save("pedigree_changes_by_problem", by)
             sec.table(html.table(by))
-        sec.table(html.table(changes, max_rows=MAX_HTML_ROWS, collapse_after=COLLAPSE_AFTER))
+        sec.table(html.table(changes, collapse_after=COLLAPSE_AFTER,
+                             summary=f"Show all {len(changes)} changes"))
 
 
 def _diagnostics_section(sec: Section, inputs: ResultInputs, checks: dict[str, Any], saved: _Tables,
@@ -317,13 +339,12 @@ def _diagnostics_section(sec: Section, inputs: ResultInputs, checks: dict[str, A
         sec.table(html.table(missed, misses=tables.detail_misses(missed, checks), digits={"r_hat": 4}))
     else:
         sec.text("Every parameter meets the R-hat and ESS checks.")
-    shown = detail.head(MAX_HTML_ROWS).reset_index(drop=True)
-    sec.note("All parameters:")
+    # every parameter, those that miss a check first (nothing left out)
+    order = np.argsort((detail["miss"] == "").to_numpy(), kind="stable")
+    shown = detail.iloc[order].reset_index(drop=True)
     sec.table(html.table(shown, misses=tables.detail_misses(shown, checks), digits={"r_hat": 4},
-                         collapse_after=COLLAPSE_AFTER))
-    if len(detail) > len(shown):
-        sec.note(f"{len(detail) - len(shown)} more parameters are in tables/diagnostics_parameters.csv"
-                 + ("; every miss is listed above." if len(missed) else "."))
+                         collapse_after=COLLAPSE_AFTER,
+                         summary=f"Show all {len(shown)} parameters ({len(missed)} missing a check, listed first)"))
     sec.heading("Rank plots of the elements of G")
     sec.note("Each chain's draws ranked among all chains: with good mixing every line is flat at the "
              f"dashed level. Elements are shown worst R-hat first, at most {MAX_RANK_PANELS} per population.")
@@ -347,20 +368,8 @@ def _estimates_section(sec: Section, inputs: ResultInputs, traits: list[str], un
     sec.text(f"Posterior median with its {mass:.0%} HPD interval in brackets. G, R and P are in original "
              f"units ({unit}); h2 and r_G are unitless. All values, with means and SDs, are in "
              "tables/estimates.csv.")
-    med, lo, hi = {}, {}, {}
-    for pop, fit in inputs.fits.items():
-        d = tables.draws_of(fit, "G")
-        med[pop] = np.median(d, axis=0)
-        part = est[(est["population"] == pop) & (est["quantity"] == "G")]
-        lo[pop], hi[pop] = np.full_like(med[pop], np.nan), np.full_like(med[pop], np.nan)
-        idx = {t: i for i, t in enumerate(traits)}
-        for r in part.itertuples():
-            i, j = idx[r.trait], idx[r.trait2]
-            lo[pop][i, j] = lo[pop][j, i] = r.hpd_lower
-            hi[pop][i, j] = hi[pop][j, i] = r.hpd_upper
-    sec.figure(store.add("g_heatmaps", g_heatmaps_figure(med, lo, hi, traits, units), "G per population",
-                         "Posterior median G of each population on one colour scale (HPD intervals in "
-                         "brackets for up to four traits)."))
+    if all("rg" in f.idata.posterior and "h2" in f.idata.posterior for f in inputs.fits.values()):
+        correlation_figure(sec, inputs, traits, store)
     if {"h2", "rg"} & set(est["quantity"]):
         sec.figure(store.add("heritability_correlation", heritability_figure(est, pops, traits),
                              "Heritabilities and genetic correlations",
@@ -381,7 +390,7 @@ def _estimates_section(sec: Section, inputs: ResultInputs, traits: list[str], un
 
 
 def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], config: dict[str, Any],
-                         saved: _Tables, store: FigureStore) -> bool:
+                         saved: _Tables, store: FigureStore, ctx=None, draws=None) -> bool:
     mass = config["compare"]["interval_mass"]
     scale = config["compare"]["scale"]
     extras = inputs.compare_extras
@@ -398,7 +407,9 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
         sec.note("No comparison tables were found (compare/*.csv): run 'ped2g compare' to add them.")
         return False
     if refit:
-        _findings(sec, inputs, refit, mass)
+        _refit_note(sec, refit)
+    if ctx is not None:
+        difference_blocks(sec, inputs, ctx, draws, saved, store)
     if extras.get("summary"):
         sec.heading("Comparison settings")
         sec.table(html.key_values(tables.record_items(extras["summary"])))
@@ -426,7 +437,7 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
                  "see Cautions). This breeding-value null is descriptive: it has no error of estimating G, "
                  "so it is not a test.")
     loadings = extras.get("loadings")
-    draws = read_compare_draws(inputs.root)
+    raw = read_compare_as_written(inputs.root)
     has_null_cols = False
     for method, frame in inputs.compare.items():
         sec.heading(METHOD_TITLES.get(method, method))
@@ -434,14 +445,23 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
             sec.text(METHOD_NOTES[method])
         display = tables.compare_display(frame)
         has_null_cols |= "null_estimate" in display and display["null_estimate"].notna().any()
-        saved.save(f"compare_{method}", display)
+        as_written = raw.get(method, frame)
+        saved.save(f"compare_{method}", tables.drop_empty(as_written))
         if "description" in frame:
             described = frame.drop_duplicates("statistic")[["statistic", "description"]].dropna()
             if len(described):
                 sec.items([f"{r.statistic}: {r.description}" for r in described.itertuples()])
-        compact = tables.compare_compact(display, mass)
-        marks = _supported(compact) if "supported" in compact else _no_overlap(compact)
-        sec.table(html.table(compact, misses=marks, max_rows=MAX_HTML_ROWS))
+        if "axis_meaning" in as_written and as_written["axis_meaning"].notna().any():
+            meanings = as_written["axis_meaning"].dropna().unique()
+            sec.note("axis and axis2: " + "; ".join(map(str, meanings)) + ".")
+        shown = tables.compare_shown(as_written)
+        marks = pd.DataFrame(False, index=shown.index, columns=shown.columns)
+        if "supported" in shown:
+            marks["supported"] = shown["supported"].astype(str).str.lower().isin(["true", "1", "1.0"])
+        elif "hpd_overlap" in shown:
+            marks["hpd_overlap"] = shown["hpd_overlap"].astype(str).str.lower().isin(["false", "0", "0.0"])
+        sec.table(html.table(shown, misses=marks, collapse_after=COLLAPSE_AFTER,
+                             summary=f"Show the {len(shown)} rows of compare/{method}.csv"))
         forest, matrices, too_long = {}, {}, []
         for statistic, part in frame.groupby("statistic", sort=False):
             part = part.reset_index(drop=True)
@@ -453,10 +473,6 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
             else:
                 too_long.append(str(statistic))
         title = METHOD_TITLES.get(method, method)
-        if matrices:
-            sec.figure(store.add(f"compare_{method}_matrix", pairwise_matrix_figure(matrices, pops, title),
-                                 f"{title}: every pair of populations",
-                                 "Posterior median of each pairwise statistic."))
         if forest:
             sec.figure(store.add(f"compare_{method}", comparison_figure(forest, title, f"G on the {scale} scale"),
                                  title, "Observed statistics (blue) against the randomisation null (grey), "
@@ -470,7 +486,8 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
         saved.save("compare_references", references)
         sec.heading("Reference values")
         sec.note("Fixed settings and random-direction reference values the comparisons used.")
-        sec.table(html.table(references, max_rows=MAX_HTML_ROWS, collapse_after=COLLAPSE_AFTER))
+        sec.table(html.table(tables.drop_empty(references), collapse_after=COLLAPSE_AFTER,
+                             summary=f"Show the {len(references)} reference values"))
     if loadings is not None and not loadings.empty:
         saved.save("compare_loadings", loadings)
     return bool(has_null_cols)
@@ -547,33 +564,27 @@ def _supported(display: pd.DataFrame) -> pd.DataFrame:
     return mask.reset_index(drop=True)
 
 
-def _findings(sec: Section, inputs: ResultInputs, refit: dict[str, Any], mass: float) -> None:
-    """What the calibrated tests say, generated from the numbers: the rule, then the supported
-    differences and the count of those that are not."""
-    sec.heading("Findings: differences beyond estimation noise")
-    sec.text(refit["reading_rule"])
-    found, tested = [], 0
-    for method, frame in inputs.compare.items():
-        if "p_adjusted" not in frame:
-            continue
-        rows = frame[frame["p_adjusted"].notna()].reset_index(drop=True)
-        tested += len(rows)
-        labels = tables.row_labels(rows)
-        yes = np.array(tables.supported_words(rows["supported"])) == "yes"
-        for i in np.flatnonzero(yes):
-            r = rows.iloc[i]
-            found.append(f"{METHOD_TITLES.get(method, method)}, {r['statistic']} ({labels[i]}): "
-                         f"{html.fmt(r['test_value'])} where noise alone gives {html.fmt(r['null_refit_median'])} "
-                         f"[{html.fmt(r['null_refit_lower'])}, {html.fmt(r['null_refit_upper'])}]; "
-                         f"p = {html.fmt(r['p_value'])}, Holm-adjusted p = {html.fmt(r['p_adjusted'])}")
-    if found:
-        sec.text(f"{len(found)} of {tested} tested statistics differ by more than estimation noise alone "
-                 "would give:")
-        sec.items(found)
-    else:
-        sec.text(f"None of the {tested} tested statistics differs by more than estimation noise alone would "
-                 "give: the data do not show that these G matrices differ (which is not evidence that "
-                 "they are equal).")
+def _sample_sizes(inputs: ResultInputs, pheno, traits: list[str]) -> list[dict[str, Any]]:
+    """Records, complete records, missing values and pedigree animals per population."""
+    counts = tables.phenotype_counts(pheno, inputs.populations, traits)
+    ped = tables.pedigree_by_population(inputs)
+    out = []
+    for pop in inputs.populations:
+        row: dict[str, Any] = {"population": pop}
+        if counts is not None:
+            c = counts[counts["population"] == pop].iloc[0]
+            row["records"] = int(c["records"])
+            row["complete"] = int(c["complete_records"])
+            row["missing"] = int(sum(c["records"] - c[f"{t}_n"] for t in traits))
+        if ped is not None and (ped["population"] == pop).any():
+            row["animals"] = int(ped.loc[ped["population"] == pop, "animals"].iloc[0])
+        out.append(row)
+    return out
+
+
+def _refit_note(sec: Section, refit: dict[str, Any]) -> None:
+    """How the refitting null was made and how well its short refits estimate (the findings
+    themselves are at the top of the page)."""
     sec.note(f"The refitting null: {refit['replicates']} simulated studies in which every population "
              f"shares one G (the mean of the posterior-mean G matrices), each refitted like the data "
              f"({refit['chains']} chain(s) of {refit['warmup']} + {refit['draws']} iterations). The "

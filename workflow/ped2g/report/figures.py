@@ -25,7 +25,9 @@ from matplotlib.colors import TwoSlopeNorm  # noqa: E402
 from matplotlib.figure import Figure  # noqa: E402
 from scipy.stats import rankdata  # noqa: E402
 
+from .difference_figures import text_colour  # noqa: E402
 from .html import fmt  # noqa: E402
+from .words import combination_in_words  # noqa: E402
 from .tables import row_labels  # noqa: E402
 
 PNG_DPI = 130
@@ -35,6 +37,13 @@ MAX_RANK_PANELS = 12
 MAX_FOREST_POINTS = 160
 
 sns.set_theme(context="notebook", style="whitegrid", font_scale=0.9)
+
+
+def okabe_ito(n: int) -> list[str]:
+    """``n`` colours of the Okabe-Ito palette (distinct under common colour-vision deficiencies)."""
+    from .difference_figures import palette
+
+    return palette(n)
 
 
 def slug(text: str) -> str:
@@ -164,7 +173,7 @@ def heritability_figure(table: pd.DataFrame, populations: list[str], traits: lis
     row_height = 0.16 * len(populations) + 0.2
     fig, axes = plt.subplots(1, len(panels), figsize=(5.2 * len(panels), row_height * max(heights) + 1.6),
                              squeeze=False)
-    palette = sns.color_palette("colorblind", len(populations))
+    palette = okabe_ito(len(populations))
     for ax, (xlabel, part, rows, xlim) in zip(axes.flat, panels):
         offsets = np.linspace(-0.3, 0.3, len(populations)) if len(populations) > 1 else np.zeros(1)
         for k, pop in enumerate(populations):
@@ -210,10 +219,11 @@ def rank_plots_figure(elements: dict[str, np.ndarray], population: str, bins: in
         chains, draws = x.shape
         ranks = rankdata(x.ravel()).reshape(x.shape)
         edges = np.linspace(0.5, x.size + 0.5, bins + 1)
-        palette = sns.color_palette("colorblind", chains)
+        palette = okabe_ito(chains)
+        styles = ["-", "--", "-.", ":"]
         for c in range(chains):
             counts, _ = np.histogram(ranks[c], bins=edges)
-            ax.stairs(counts, edges, color=palette[c], lw=1.2, label=f"chain {c}")
+            ax.stairs(counts, edges, color=palette[c], lw=1.3, ls=styles[(c // 8) % 4], label=f"chain {c + 1}")
         ax.axhline(draws / bins, color="0.3", ls="--", lw=0.8)
         ax.set_title(name, fontsize=9)
         ax.set_xlabel("rank (all chains pooled)", fontsize=8)
@@ -260,7 +270,7 @@ def comparison_figure(frames: dict[str, pd.DataFrame], title: str, scale_note: s
                  "randomisation null")
         ax.set_yticks(y, labels, fontsize=8)
         ax.set_ylim(len(frame) - 0.5, -0.5)
-        ax.set_xlabel(statistic, fontsize=9)
+        ax.set_xlabel(f"{statistic} (degrees)" if "angle" in str(statistic) else statistic, fontsize=9)
         ax.tick_params(axis="x", labelsize=8)
         ax.grid(axis="y", visible=False)
         if not legend_done:
@@ -305,24 +315,30 @@ def loadings_figure(frame: pd.DataFrame, traits: list[str], group: str, title: s
     groups = list(dict.fromkeys(frame[group].tolist()))
     fig, ax = plt.subplots(figsize=(max(4.5, 1.1 * len(traits) + 2.5), 3.2))
     width = 0.8 / max(len(groups), 1)
-    palette = sns.color_palette("colorblind", len(groups))
+    palette = okabe_ito(len(groups))
     x = np.arange(len(traits))
     for k, g in enumerate(groups):
         part = frame[frame[group] == g].set_index("trait")["value"]
-        ax.bar(x - 0.4 + width * (k + 0.5), [part.get(t, np.nan) for t in traits], width,
-               color=palette[k], label=_axis_name(g, group))
+        values = [part.get(t, np.nan) for t in traits]
+        ax.bar(x - 0.4 + width * (k + 0.5), values, width, color=palette[k],
+               label=f"{_axis_name(g, group)}: {combination_in_words(values, traits)}")
     ax.axhline(0.0, color="0.3", lw=0.8)
     ax.set_xticks(x, traits, rotation=30 if len(traits) > 5 else 0, ha="right" if len(traits) > 5 else "center")
     ax.set_xlabel("trait")
     ax.set_ylabel(ylabel)
     ax.set_title(title)
     ax.grid(axis="x", visible=False)
-    ax.legend(fontsize=8, loc="center left", bbox_to_anchor=(1.01, 0.5), frameon=False)
+    ax.legend(fontsize=8, loc="upper center", bbox_to_anchor=(0.5, -0.18), frameon=False, ncol=1)
     fig.tight_layout()
     return fig
 
 
 def _axis_name(value, group: str) -> str:
+    if group == "axis2":
+        try:
+            return f"eigenvector {int(float(value))}"
+        except (TypeError, ValueError):
+            return str(value)
     if group == "axis":
         try:
             return f"#{int(float(value))}"
@@ -353,10 +369,11 @@ def eigentensor_figure(frame: pd.DataFrame, traits: list[str], max_tensors: int 
         if t <= 6:
             for i in range(t):
                 for j in range(t):
-                    ax.text(j, i, fmt(mat[i, j], 2), ha="center", va="center", fontsize=7)
+                    ax.text(j, i, fmt(mat[i, j], 2), ha="center", va="center", fontsize=7,
+                            color=text_colour(plt.get_cmap("RdBu_r")((mat[i, j] + lim) / (2 * lim))))
         ax.set_xticks(range(t), traits, rotation=40, ha="right")
         ax.set_yticks(range(t), traits if ax is axes.flat[0] else [""] * t)
-        ax.set_title(f"eigentensor E{_axis_name(a, 'axis')[1:]}")
+        ax.set_title(f"eigentensor {_axis_name(a, 'axis')[1:]}")
         ax.grid(False)
     cbar = fig.colorbar(image, ax=axes.ravel().tolist(), shrink=0.8)
     cbar.set_label("element of the eigentensor (unitless)")

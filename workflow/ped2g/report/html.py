@@ -6,6 +6,7 @@ import html
 import math
 from typing import Any
 
+import numpy as np
 import pandas as pd
 from markupsafe import Markup
 
@@ -41,9 +42,50 @@ def fmt(value: Any, digits: int = 3) -> str:
     return f"{x:.{decimals}f}"
 
 
+def plain(value: Any, digits: int = 3, max_decimals: int | None = None) -> str:
+    """Like :func:`fmt`, but never in scientific notation: at most ``max_decimals`` decimals
+    (a value that rounds to zero prints as 0), numbers of a million or more as integers."""
+    if isinstance(value, bool) or value is None:
+        return fmt(value, digits)
+    try:
+        x = float(value)
+    except (TypeError, ValueError):
+        return str(value)
+    if not math.isfinite(x) or x == 0 or isinstance(value, int):
+        return fmt(value, digits)
+    magnitude = math.floor(math.log10(abs(float(f"{x:.{digits}g}"))))
+    decimals = max(digits - 1 - magnitude, 0)
+    if max_decimals is not None:
+        decimals = min(decimals, max_decimals)
+    text = f"{x:.{decimals}f}"
+    return "0" if float(text) == 0 else text
+
+
+#: Values are never cut to fewer decimals than this (0.0042 stays 0.0042 beside 12.8).
+MIN_DECIMALS = 4
+
+
+def column_decimals(values: pd.Series, digits: int = 3) -> int | None:
+    """Decimals that give the column's largest |value| ``digits + 1`` significant figures: the
+    cap for every value of the column, so that tiny values print as 0 beside large ones."""
+    x = pd.to_numeric(values, errors="coerce").to_numpy(dtype=float) if values.dtype != bool else None
+    if x is None:
+        return None
+    x = np.abs(x[np.isfinite(x)])
+    if not len(x) or x.max() == 0:
+        return None
+    return max(digits - math.floor(math.log10(x.max())), MIN_DECIMALS)
+
+
+def _header(name: str) -> str:
+    """A column name with break opportunities after underscores (narrow columns, names unchanged)."""
+    return html.escape(str(name)).replace("_", "_<wbr>")
+
+
 def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int | None = None,
           index: bool = False, caption: str | None = None,
-          digits: dict[str, int] | None = None, collapse_after: int | None = None) -> Markup:
+          digits: dict[str, int] | None = None, collapse_after: int | None = None,
+          summary: str | None = None) -> Markup:
     """Render ``frame`` as an HTML table; cells where ``misses`` is True get class ``miss``.
 
     Rows beyond ``max_rows`` are left out with a note (the CSV holds them all). ``digits`` gives
@@ -56,8 +98,9 @@ def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int
     parts = ['<div class="table-wrap"><table>']
     if caption:
         parts.append(f"<caption>{html.escape(caption)}</caption>")
-    head = ([html.escape(str(frame.index.name or ""))] if index else []) + \
-        [html.escape(str(c)) for c in frame.columns]
+    head = ([_header(frame.index.name or "")] if index else []) + [_header(c) for c in frame.columns]
+    caps = {c: (column_decimals(frame[c], digits.get(c, 3)) if frame[c].dtype.kind == "f" else None)
+            for c in frame.columns}
     parts.append("<thead><tr>" + "".join(f"<th>{h}</th>" for h in head) + "</tr></thead><tbody>")
     for pos, (label, row) in enumerate(shown.iterrows()):
         row_miss = misses is not None and bool(misses.iloc[pos].any())
@@ -65,14 +108,17 @@ def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int
         for col in frame.columns:
             miss = misses is not None and col in misses.columns and bool(misses.iloc[pos][col])
             cls = ' class="miss"' if miss else ""
-            cells.append(f"<td{cls}>{html.escape(fmt(row[col], digits.get(col, 3)))}</td>")
+            text = (plain(row[col], digits.get(col, 3), caps[col]) if caps[col] is not None
+                    else fmt(row[col], digits.get(col, 3)))
+            cells.append(f"<td{cls}>{html.escape(text)}</td>")
         tr_cls = ' class="miss-row"' if row_miss else ""
         parts.append(f"<tr{tr_cls}>" + "".join(cells) + "</tr>")
     parts.append("</tbody></table></div>")
     if max_rows is not None and len(frame) > max_rows:
         parts.append(f'<p class="note">{len(frame) - max_rows} more rows are in the CSV table.</p>')
     if collapse_after is not None and len(shown) > collapse_after:
-        parts = [f"<details><summary>Show the table ({len(shown)} rows)</summary>", *parts, "</details>"]
+        label = html.escape(summary or f"Show the table ({len(shown)} rows)")
+        parts = [f"<details><summary>{label}</summary>", *parts, "</details>"]
     return Markup("".join(parts))
 
 

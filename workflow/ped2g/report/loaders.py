@@ -384,3 +384,29 @@ def read_results(results: str | os.PathLike, populations: list[str]) -> ResultIn
                         compare=read_compare_tables(root),
                         compare_extras=read_compare_extras(root),
                         files_read=[p for p in candidates if p.is_file()])
+
+
+def read_compare_as_written(root: Path) -> dict[str, pd.DataFrame]:
+    """Every per-method ``compare/*.csv`` with the compare stage's own column names (no aliases),
+    in the order of :func:`read_compare_tables`; the report's tables keep these names."""
+    folder = root / "compare"
+    if not folder.is_dir():
+        return {}
+    order = list(read_compare_tables(root))
+    out = {}
+    for name in order:
+        frame = _read_csv(folder / f"{name}.csv", "comparison table")
+        if not frame.empty:
+            out[name] = frame
+    return out
+
+
+def read_refit_null(root: Path, populations: list[str], traits: list[str]):
+    """The refitting null's replicates (``null/refits/``) through
+    :func:`ped2g.null.refit_io.read_refits`, or None when that folder is absent."""
+    from ..null.refit_io import read_refits
+
+    folder = root / "null" / "refits"
+    if not folder.is_dir() or not any(folder.rglob("*.nc")):
+        return None
+    return read_refits([folder], populations, traits)

@@ -136,7 +136,8 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
                       engines: list[str], n_changes: int | None, passed: int, methods: list[str],
                       null_present: bool, versions: dict[str, str],
                       compare_record: dict[str, Any] | None = None, samplers: list[str] | None = None,
-                      missing_by_gibbs: bool = False) -> tuple[str, list[str]]:
+                      missing_by_gibbs: bool = False,
+                      sample_sizes: list[dict[str, Any]] | None = None) -> tuple[str, list[str]]:
     """The methods paragraph and the references it cites.
 
     Parameters
@@ -157,6 +158,10 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         ``sampling.sampler`` when empty or None.
     missing_by_gibbs
         Whether some fit drew missing trait values by the marginal engine's Gibbs step.
+    sample_sizes
+        Per population: ``population``, ``records`` (phenotype rows), ``complete`` (rows with
+        every trait), ``missing`` (missing trait values) and ``animals`` (pedigree the model used);
+        any of them may be absent.
     """
     cite = Citations()
     v = lambda name: versions.get(name, "(version not found)")  # noqa: E731
@@ -171,6 +176,14 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         f"with ped2g {v('ped2g')}. The pedigree was checked and ordered with parents before offspring, "
         f"and inbreeding coefficients and the inverse relationship matrix were computed "
         f"({cite('Wright 1922', 'Henderson 1976', 'Quaas 1976')}).{change_text}")
+    if sample_sizes:
+        def size(r: dict[str, Any]) -> str:
+            bits = [f"{r['records']} records" if r.get("records") is not None else None,
+                    f"{r['complete']} with every trait" if r.get("complete") is not None else None,
+                    f"{r['missing']} missing trait values" if r.get("missing") is not None else None,
+                    f"{r['animals']} animals in the pedigree used" if r.get("animals") is not None else None]
+            return f"{r['population']}: " + ", ".join(b for b in bits if b)
+        sentences.append("Sample sizes were " + "; ".join(size(r) for r in sample_sizes) + ".")
     extra = [f"{r['name']} (grouped by {r['column']})" for r in config["random"]]
     fixed = [f"{k} ({v_})" for k, v_ in config["fixed"].items()]
     engine_text = {"marginal": "with the breeding values integrated out analytically",
@@ -188,7 +201,10 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
     sentences.append(
         f"Each standard deviation had a {family} prior with scale {priors['sd_scale']} times the "
         f"trait's phenotypic standard deviation, and each correlation matrix an LKJ prior with "
-        f"η = {priors['lkj_eta']} ({cite('Lewandowski et al. 2009')}).")
+        f"η = {priors['lkj_eta']} ({cite('Lewandowski et al. 2009')}), for G, R and any further "
+        f"covariance matrix alike; each fixed effect had an independent normal prior with mean 0 and "
+        f"standard deviation {priors.get('fixed_sd', 10.0)} on the scale of standardised traits (each "
+        "trait centred and divided by its phenotypic standard deviation), that is, nearly flat.")
     names = {"nutpie": f"nutpie {v('nutpie')}", "pymc": f"PyMC {v('pymc')}"}
     sampler = _list([names.get(x, x) for x in (samplers or [s["sampler"]])])
     ch = config["checks"]
@@ -197,12 +213,20 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         f"{sampler}, each with {s['warmup']} warm-up and {s['draws']} kept iterations (target acceptance "
         f"{s['target_accept']}, seed {s['seed']}), and required rank-normalised split R-hat ≤ "
         f"{ch['max_rhat']}, bulk and tail effective sample sizes ≥ {ch['min_ess']} "
-        f"({cite('Vehtari et al. 2021')}; ArviZ {v('arviz')}) and at most {ch['max_divergences']} "
-        f"divergent transitions; {passed} of {len(populations)} fits met every check.")
+        f"({cite('Vehtari et al. 2021')}; ArviZ {v('arviz')}) and "
+        + ("no divergent transitions" if int(ch['max_divergences']) == 0 else
+           f"at most {ch['max_divergences']} divergent transition{'s' if int(ch['max_divergences']) != 1 else ''}")
+        + f"; {passed} of {len(populations)} fits met every check.")
     if missing_by_gibbs:
         sentences.append(
-            "Missing trait values were drawn from their exact conditional distribution by a Gibbs step "
-            f"between NUTS transitions (data augmentation; {cite('Tanner & Wong 1987')}).")
+            "Records with missing trait values were kept; the missing values were drawn from their exact "
+            "conditional distribution by a Gibbs step between NUTS transitions (data augmentation; "
+            f"{cite('Tanner & Wong 1987')}).")
+    else:
+        sentences.append(
+            "Records with missing trait values were kept; the missing values were treated as unknowns and "
+            "integrated out (exactly in the likelihood, or by sampling them with the other parameters), "
+            "never filled in with a single value.")
     mass = config["compare"]["interval_mass"]
     sentences.append(
         f"Posterior distributions are summarised by their median and {mass:.0%} highest posterior "

@@ -112,7 +112,8 @@ def pedigree_by_population(inputs: ResultInputs) -> pd.DataFrame | None:
 
 def phenotype_counts(pheno: pd.DataFrame | None, populations: list[str],
                      traits: list[str]) -> pd.DataFrame | None:
-    """Per population: records, and per trait the number of values and the percent missing."""
+    """Per population: records, and per trait the number of values (``<trait>_n``) and the percent
+    missing (``<trait>_missing_percent``); ``complete_records`` have every trait."""
     if pheno is None:
         return None
     rows = []
@@ -121,9 +122,9 @@ def phenotype_counts(pheno: pd.DataFrame | None, populations: list[str],
         row: dict[str, Any] = {"population": pop, "records": len(part)}
         for trait in traits:
             n = int(part[trait].notna().sum())
-            row[f"{trait} n"] = n
-            row[f"{trait} % missing"] = 100.0 * (1 - n / len(part)) if len(part) else float("nan")
-        row["complete records"] = int(part[traits].notna().all(axis=1).sum())
+            row[f"{trait}_n"] = n
+            row[f"{trait}_missing_percent"] = 100.0 * (1 - n / len(part)) if len(part) else float("nan")
+        row["complete_records"] = int(part[traits].notna().all(axis=1).sum())
         rows.append(row)
     return pd.DataFrame(rows)
 
@@ -345,22 +346,28 @@ def _axis_text(value: Any) -> str:
     return f"#{int(number)}" if number.is_integer() else f"#{number}"
 
 
-def row_labels(frame: pd.DataFrame) -> list[str]:
-    """A short label per row from the population (or pair) and axis columns present.
+#: What ``axis`` and ``axis2`` count, per method, in labels ("eigentensor 1, eigenvector 2").
+AXIS_WORDS = {"tensor": ("eigentensor", "eigenvector"), "subspace": ("H axis", "")}
 
-    ``north vs south``; ``north #2`` (component 2); ``#1 wing`` (component 1, trait wing);
-    ``#1 #2`` (component 2 within component 1).
+
+def row_labels(frame: pd.DataFrame) -> list[str]:
+    """A short label per row in words from the population (or pair) and axis columns present.
+
+    ``north and south``; ``north, eigentensor 1, eigenvector 2``; ``H axis 2``; a trait name
+    as itself.
     """
     labels = []
     for _, row in frame.iterrows():
         parts = []
         if "population" in frame and _present(row.get("population")):
             pair = _present(row.get("population2")) if "population2" in frame else False
-            parts.append(f"{row['population']} vs {row['population2']}" if pair else str(row["population"]))
-        for col in ("axis", "axis2"):
+            parts.append(f"{row['population']} and {row['population2']}" if pair else str(row["population"]))
+        words = AXIS_WORDS.get(str(row.get("method", "")), ("component", "component"))
+        for col, word in zip(("axis", "axis2"), words):
             if col in frame and _present(row.get(col)):
-                parts.append(_axis_text(row[col]))
-        labels.append(" ".join(parts) if parts else str(row.get("statistic", "")))
+                text = _axis_text(row[col])
+                parts.append(f"{word or 'component'} {text[1:]}" if text.startswith("#") else text)
+        labels.append(", ".join(parts) if parts else str(row.get("statistic", "")))
     return labels
 
 
@@ -385,6 +392,37 @@ def compare_display(frame: pd.DataFrame) -> pd.DataFrame:
     cols = [c for c in DISPLAY_COLUMNS if c in out.columns]
     cols += [c for c in out.columns if c not in cols and c not in ("method", "overlap")]
     return out[cols]
+
+
+#: Columns of a compare table shown on the page, in order (names as in compare/<method>.csv).
+COMPARE_SHOWN = ["statistic", "population", "population2", "axis", "axis2", "mean", "hpd_lower",
+                 "hpd_upper", "null_median", "null_hpd_lower", "null_hpd_upper", "p_obs_gt_null",
+                 "hpd_overlap", "test_value", "null_refit_median", "null_refit_lower", "null_refit_upper",
+                 "p_value", "p_adjusted", "supported"]
+
+
+BREEDING_NULL_SHOWN = ("null_median", "null_hpd_lower", "null_hpd_upper", "p_obs_gt_null", "hpd_overlap")
+
+
+def drop_empty(frame: pd.DataFrame) -> pd.DataFrame:
+    """``frame`` without its entirely empty columns (names unchanged)."""
+    keep = [c for c in frame.columns
+            if frame[c].notna().any() and not frame[c].astype(str).str.strip().isin(["", "nan"]).all()]
+    return frame[keep]
+
+
+def compare_shown(raw: pd.DataFrame) -> pd.DataFrame:
+    """The columns of a compare table worth reading on the page, under their CSV names, empty
+    columns left out; rows the reading rule supports first."""
+    cols = [c for c in COMPARE_SHOWN if c in raw.columns]
+    if "p_adjusted" in raw and raw["p_adjusted"].notna().any():
+        # the calibrated test is the reading; the descriptive null's columns stay in the CSV
+        cols = [c for c in cols if c not in BREEDING_NULL_SHOWN]
+    out = drop_empty(raw[cols])
+    if "supported" in out:
+        yes = out["supported"].astype(str).str.lower().isin(["true", "1", "1.0"])
+        out = pd.concat([out[yes], out[~yes]])
+    return out.reset_index(drop=True)
 
 
 def supported_words(column: pd.Series) -> list[str]:
