@@ -61,6 +61,7 @@ def run(args: argparse.Namespace) -> int:
     import pandas as pd  # noqa: F401  (imported here to keep --help instant)
 
     from ..config import load_config
+    from ..contracts.fit_folder import check_fit_folder
     from ..errors import ChecksFailed, UserError
     from ..io import file_sha256, get_logger, output_dir, read_table, write_json
     from ..rng import generator
@@ -155,6 +156,7 @@ def run(args: argparse.Namespace) -> int:
             outputs.pedigree_used(data).to_csv(tmp / "pedigree_used.csv", index=False, float_format="%.10g")
             if save_all:
                 outputs.write_breeding_value_draws(tmp / "breeding_values.nc", data, bv)
+        check_fit_folder(tmp, stopped=stop)
     if stop:
         # Leave nothing from an earlier run that would look like a finished fit.
         for name in ("posterior.nc", "breeding_values.csv", "breeding_values.nc", "pedigree_used.csv"):

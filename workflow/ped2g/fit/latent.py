@@ -248,7 +248,7 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
         Standardised scale, animals in pedigree order, S = at most ``max_draws`` evenly thinned
         pooled draws (chain-major).
     """
-    from ..posterior import thin_indices
+    from ..contracts.fit_folder import thin_indices
 
     w = _pooled(idata, "w_animal")
     G = _pooled(idata, "G")

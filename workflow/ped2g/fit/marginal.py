@@ -288,7 +288,7 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     docstring for the formula. Draws are processed in chunks of ``chunk``.
     """
     from ..pedigree.relationships import relationship_inverse
-    from ..posterior import thin_indices
+    from ..contracts.fit_folder import thin_indices
     from ..simulate.breeding_values import simulate_breeding_values
 
     rot = rotation(data)

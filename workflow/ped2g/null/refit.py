@@ -79,7 +79,7 @@ class DesignParameters:
 
 
 def design_parameters(data: FitData, means: dict[str, Any]) -> DesignParameters:
-    """Posterior means of a fit (:func:`ped2g.posterior.posterior_means`) on ``data``'s design.
+    """Posterior means of a fit (:func:`ped2g.contracts.fit_folder.posterior_means`) on ``data``'s design.
 
     The fit reports fixed effects in original units, ``fixed[x, j] = s_j beta[x, j] / x_scale[x]``
     and the intercept ``c_j + s_j beta[0, j]`` (:mod:`ped2g.fit.outputs`), so the fixed part of
