@@ -14,8 +14,8 @@ forming A or a factor of it: the product by T is the recursion
     a_i = m_i + (a_sire(i) + a_dam(i)) / 2,      m = D^{1/2} W L_G',
 
 done in one pass over the animals in generation order (every parent comes before its offspring)
-by one PyTensor Op with a numba kernel (:mod:`ped2g.fit.pedigree_op`; its gradient is the pass
-back up with T'), so a gradient costs O(animals x traits) plus O(records x traits^2) and the
+by one PyTensor Op (:mod:`ped2g.fit.pedigree_op`) around the pedigree's one recursion
+(:mod:`ped2g.pedigree.recursion`; its gradient is the pass back up with T'), so a gradient costs O(animals x traits) plus O(records x traits^2) and the
 compiled graph does not grow with the depth of the pedigree. Records with missing trait values
 contribute the density of their observed traits only (an exact marginal), through one more Op
 (:mod:`ped2g.fit.observed_normal_op`).
@@ -45,8 +45,7 @@ import numpy as np
 from ..pedigree.core import Pedigree
 from .data import FitData
 
-__all__ = ["applicable", "build_model", "breeding_values", "generation_layout", "pedigree_product",
-           "NUTPIE_OPTIONS"]
+__all__ = ["applicable", "build_model", "breeding_values", "generation_layout", "NUTPIE_OPTIONS"]
 
 #: Extra options for ``nutpie.sample`` with this engine. The low-rank modified mass matrix adapts
 #: to the correlation between the scale of G and the standardised breeding values; on the
@@ -93,27 +92,6 @@ def generation_layout(ped: Pedigree) -> dict[str, np.ndarray]:
         raise ValueError("Mendelian-sampling coefficients must be positive (inbreeding F < 1)")
     return {"order": order, "rank": rank, "sire": sire_g.astype(np.int64), "dam": dam_g.astype(np.int64),
             "bounds": bounds, "sqrt_b": np.sqrt(b)}
-
-
-def pedigree_product(ped: Pedigree, m: np.ndarray) -> np.ndarray:
-    """Compute ``T m`` with ``T = (I - P)^{-1}``, in pedigree order, by the parent recursion.
-
-    ``(T m)_i = m_i + ((T m)_sire + (T m)_dam) / 2`` (unknown parents contribute 0), vectorised
-    within generations. Works on any trailing shape: ``m`` is ``(..., n, t)`` and so is the result.
-
-    Check: with ``m = D^{1/2} z``, ``T D T' = A`` (Mrode 2014, p. 25), so the covariance of the
-    result is the relationship matrix.
-    """
-    m = np.asarray(m, dtype=float)
-    n = ped.n
-    out = np.zeros(m.shape[:-2] + (n + 1, m.shape[-1]))
-    sire = np.where(ped.sire >= 0, ped.sire, n)
-    dam = np.where(ped.dam >= 0, ped.dam, n)
-    for idx in ped.generations:
-        if len(idx) == 0:
-            continue
-        out[..., idx, :] = m[..., idx, :] + 0.5 * (out[..., sire[idx], :] + out[..., dam[idx], :])
-    return out[..., :n, :]
 
 
 # --------------------------------------------------------------------------------------------
@@ -249,6 +227,7 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
         pooled draws (chain-major).
     """
     from ..contracts.fit_folder import thin_indices
+    from ..pedigree.recursion import down
 
     w = _pooled(idata, "w_animal")
     G = _pooled(idata, "G")
@@ -258,4 +237,4 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     chol = np.linalg.cholesky(0.5 * (G + np.swapaxes(G, -1, -2)))
     m_gen = lay["sqrt_b"][None, :, None] * np.einsum("snk,sjk->snj", w, chol)
     m = m_gen[:, lay["rank"], :]  # back to pedigree order
-    return pedigree_product(data.pedigree, m)
+    return down(data.pedigree, m)
