@@ -34,8 +34,7 @@ expect to need long chains; the fit stage's R-hat/ESS checks say when the chains
 ``8 x animals x traits x chains x draws`` bytes (1 GB for 8,000 animals, 4 traits, 4 x 1,000
 draws). (3) nutpie compiles the model with numba; expect tens of seconds before sampling starts.
 
-Engine interface (shared with :mod:`ped2g.fit.marginal`): :func:`applicable`,
-:func:`build_model`, :func:`breeding_values`.
+The engine's object for the interface of :mod:`ped2g.fit.engine` is :class:`LatentEngine`.
 """
 
 from __future__ import annotations
@@ -45,7 +44,8 @@ import numpy as np
 from ..pedigree.core import Pedigree
 from .data import FitData
 
-__all__ = ["applicable", "build_model", "breeding_values", "generation_layout", "NUTPIE_OPTIONS"]
+__all__ = ["LatentEngine", "applicable", "build_model", "breeding_values", "generation_layout",
+           "NUTPIE_OPTIONS"]
 
 #: Extra options for ``nutpie.sample`` with this engine. The low-rank modified mass matrix adapts
 #: to the correlation between the scale of G and the standardised breeding values; on the
@@ -187,17 +187,6 @@ def build_model(data: FitData, model_config: dict, animal_effect=None):
     return model
 
 
-def with_records(data: FitData, y: np.ndarray, center: np.ndarray, scale: np.ndarray) -> FitData:
-    """A copy of ``data`` with other standardised records ``y`` (same animals, design and missing
-    cells); used to refit simulated data sets on one population's design."""
-    import copy
-
-    new = copy.copy(data)
-    new.y = np.where(data.missing, np.nan, y)
-    new.y_center, new.y_scale = np.asarray(center, dtype=float), np.asarray(scale, dtype=float)
-    return new
-
-
 def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
     """The model's data that change when only the records change (for ``compiled.with_data``);
     empty with fixed covariances, which the model holds on the records' standardised scale."""
@@ -238,3 +227,28 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     m_gen = lay["sqrt_b"][None, :, None] * np.einsum("snk,sjk->snj", w, chol)
     m = m_gen[:, lay["rank"], :]  # back to pedigree order
     return down(data.pedigree, m)
+
+
+class LatentEngine:
+    """The latent engine behind the interface of :mod:`ped2g.fit.engine`."""
+
+    name = "latent"
+
+    def applies(self, data: FitData, model_config: dict) -> tuple[bool, str]:
+        return applicable(data)
+
+    def prefers(self, data: FitData, model_config: dict) -> tuple[bool, str]:
+        return True, ""
+
+    def build(self, data: FitData, model_config: dict):
+        from .engine import BuiltModel
+
+        return BuiltModel(model=build_model(data, model_config), extra_steps=[], nutpie_options=NUTPIE_OPTIONS,
+                          numba_opt_level=None, missing_values="masked" if data.missing.any() else "none")
+
+    def data_values(self, data: FitData, model_config: dict) -> dict[str, np.ndarray]:
+        return data_values(data, model_config)
+
+    def breeding_values(self, data: FitData, idata, rng: np.random.Generator, max_draws: int | None = None,
+                        conditional_mean: bool = False) -> np.ndarray:
+        return breeding_values(data, idata, rng, max_draws, conditional_mean)
