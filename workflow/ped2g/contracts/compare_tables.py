@@ -27,6 +27,7 @@ from typing import Any
 import pandas as pd
 
 from ..errors import UserError
+from ..io import read_stage_csv
 
 #: The comparison methods, in the order the stage runs them and the report shows them.
 METHOD_ORDER = ("skewers", "subspace", "tensor", "gmax", "evolvability", "dimensions", "distance")
@@ -87,16 +88,6 @@ def check_tables(tables: dict[str, pd.DataFrame]) -> None:
             raise ValueError(f"comparison table {method} holds rows of other methods")
 
 
-def _read_csv(path: Path, what: str) -> pd.DataFrame:
-    try:
-        return pd.read_csv(path, keep_default_na=True)
-    except pd.errors.EmptyDataError:
-        return pd.DataFrame()
-    except (pd.errors.ParserError, UnicodeDecodeError) as err:
-        raise UserError(f"{what} {path} is not a readable CSV table ({type(err).__name__}); "
-                        "rerun the stage that wrote it") from None
-
-
 def read_tables(folder: str | os.PathLike) -> dict[str, pd.DataFrame]:
     """Every method table of a compare folder, keyed by method: those of :data:`METHOD_ORDER` in
     that order, then any other (a method this version does not know) alphabetically. Empty
@@ -114,7 +105,7 @@ def read_tables(folder: str | os.PathLike) -> dict[str, pd.DataFrame]:
     for path in folder.glob("*.csv"):
         if path.name in AUX_FILES.values():
             continue
-        frame = _read_csv(path, "comparison table")
+        frame = read_stage_csv(path, "comparison table")
         if frame.empty:
             continue
         problem = _column_problem(list(frame.columns))
@@ -136,7 +127,7 @@ def read_extras(folder: str | os.PathLike) -> dict[str, Any]:
     out: dict[str, Any] = {}
     for key, name in AUX_FILES.items():
         path = folder / name
-        out[key] = _read_csv(path, "comparison table") if path.is_file() else None
+        out[key] = read_stage_csv(path, "comparison table") if path.is_file() else None
     path = folder / SUMMARY_FILE
     out["summary"] = None
     if path.is_file():

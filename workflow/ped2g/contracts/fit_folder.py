@@ -39,6 +39,7 @@ import xarray as xr
 
 from .. import __version__
 from ..errors import UserError
+from ..io import read_stage_csv
 
 FIT_KIND = "fit"
 MATRIX_DIMS = ("trait", "trait2")
@@ -364,22 +365,16 @@ def read_parameters(fit_dir: str | os.PathLike):
     UserError
         The table is not readable or lacks a column of the contract.
     """
-    import pandas as pd
-
     path = Path(fit_dir) / PARAMETERS_FILE
     if not path.is_file():
         return None
-    try:
-        frame = pd.read_csv(path, keep_default_na=True)
-    except pd.errors.EmptyDataError:
+    frame = read_stage_csv(path, "fit parameters")
+    if frame.empty:
         return None
-    except (pd.errors.ParserError, UnicodeDecodeError) as err:
-        raise UserError(f"fit parameters {path} is not a readable CSV table ({type(err).__name__}); "
-                        "rerun 'ped2g fit'") from None
     absent = [c for c in PARAMETER_COLUMNS if c not in frame.columns]
     if absent:
         raise UserError(f"fit parameters {path} has no column {', '.join(absent)}; rerun 'ped2g fit'")
-    return frame if not frame.empty else None
+    return frame
 
 
 def read_pedigree_used(fit_dir: str | os.PathLike):

@@ -24,6 +24,7 @@ import pandas as pd
 from ..contracts import compare_tables, fit_folder
 from ..contracts.breeding_value_null import NULL_FILE, SUMMARY_FILE as NULL_SUMMARY_FILE
 from ..errors import UserError
+from ..io import read_stage_csv
 
 #: The report's names for the comparison tables' columns: the median is the point estimate and
 #: the HPD interval the interval shown, for the observed statistic and the null alike.
@@ -32,16 +33,6 @@ REPORT_NAMES = {"median": "estimate", "hpd_lower": "lower", "hpd_upper": "upper"
                 "null_hpd_upper": "null_upper", "hpd_overlap": "overlap"}
 #: Columns of the pedigree stage's changes.csv.
 CHANGE_COLUMNS = ("row", "id", "problem", "action")
-
-
-def _read_csv(path: Path, what: str) -> pd.DataFrame:
-    try:
-        return pd.read_csv(path, keep_default_na=True)
-    except pd.errors.EmptyDataError:
-        return pd.DataFrame()
-    except (pd.errors.ParserError, UnicodeDecodeError) as err:
-        raise UserError(f"{what} {path} is not a readable CSV table ({type(err).__name__}); "
-                        "rerun the stage that wrote it") from None
 
 
 def _read_json(path: Path, what: str) -> dict[str, Any] | None:
@@ -141,7 +132,7 @@ def read_pedigree_changes(root: Path) -> pd.DataFrame | None:
     path = root / "pedigree" / "changes.csv"
     if not path.is_file():
         return None
-    frame = _read_csv(path, "pedigree changes")
+    frame = read_stage_csv(path, "pedigree changes")
     absent = [c for c in CHANGE_COLUMNS if c not in frame.columns]
     if absent and not frame.empty:
         raise UserError(f"pedigree changes {path} has no column {', '.join(absent)}; rerun 'ped2g pedigree'")
