@@ -33,8 +33,8 @@ import yaml
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from null_benchmark import random_pedigree, timed  # noqa: E402  (the null half's helpers)
 
-from ped2g.null.io import write_null  # noqa: E402
-from ped2g.posterior import load_fit_set, posterior_dataset  # noqa: E402
+from ped2g.contracts.breeding_value_null import write_null  # noqa: E402
+from ped2g.contracts.fit_folder import load_fit_set, posterior_dataset  # noqa: E402
 
 
 def random_spd(rng: np.random.Generator, shape: tuple[int, ...], t: int) -> np.ndarray:

@@ -182,8 +182,8 @@ def run_marginal_gibbs(data, args) -> dict:
         return {"note": prepared}
     rot, setup = prepared
     start = time.perf_counter()
-    model = marginal.build_model(data, model_config)
-    steps = marginal.extra_steps(model, data)
+    model = marginal.build_model(data, model_config, rot)
+    steps = marginal.extra_steps(model, data, rot)
     build = time.perf_counter() - start
     settings = {"chains": args.chains, "warmup": args.warmup, "draws": args.draws, "seed": args.seed,
                 "target_accept": args.target_accept}
@@ -215,7 +215,7 @@ def run_nuts(engine: str, data, args) -> dict:
         if isinstance(prepared, str):
             return {"note": prepared}
         rot, setup = prepared
-        model = marginal.build_model(data, model_config)
+        model = marginal.build_model(data, model_config, rot)
         note = f"eigendecomposition {rot.seconds:.1f} s"
     elif engine == "latent":
         model = latent.build_model(data, model_config)

@@ -30,7 +30,7 @@ import pandas as pd
 
 from ped2g.pedigree.core import Pedigree
 from ped2g.pedigree.relationships import inbreeding
-from ped2g.posterior import posterior_dataset
+from ped2g.contracts.fit_folder import posterior_dataset
 
 
 def random_pedigree(rng: np.random.Generator, n: int, prefix: str, founders: int = 100,

@@ -1,5 +1,5 @@
 """Fixtures for the compare tests: small fake fit folders and null files written through the
-project's own contracts (ped2g.posterior.posterior_dataset, ped2g.null.io.write_null)."""
+project's own contracts (ped2g.contracts.fit_folder.posterior_dataset, ped2g.contracts.breeding_value_null.write_null)."""
 
 from __future__ import annotations
 
@@ -11,7 +11,7 @@ import pandas as pd
 import pytest
 import yaml
 
-from ped2g.posterior import posterior_dataset
+from ped2g.contracts.fit_folder import posterior_dataset
 
 
 def random_spd(rng: np.random.Generator, t: int, size: tuple[int, ...] = ()) -> np.ndarray:

@@ -12,10 +12,10 @@ import pytest
 import xarray as xr
 
 from ped2g.cli import main
-from ped2g.compare.pipeline import METHOD_ORDER as METHODS
-from ped2g.compare.summarise import COLUMNS
-from ped2g.null.io import write_null
-from ped2g.posterior import load_fit_set
+from ped2g.contracts.breeding_value_null import write_null
+from ped2g.contracts.compare_tables import COLUMNS
+from ped2g.contracts.compare_tables import METHOD_ORDER as METHODS
+from ped2g.contracts.fit_folder import load_fit_set
 
 from conftest import random_spd, write_config, write_fit
 

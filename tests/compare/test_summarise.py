@@ -4,7 +4,8 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from ped2g.compare.summarise import COLUMNS, paired_comparison, summarise_statistic
+from ped2g.compare.summarise import paired_comparison, summarise_statistic
+from ped2g.contracts.compare_tables import COLUMNS
 from ped2g.intervals import equal_tailed, hpd
 
 

@@ -24,7 +24,6 @@ Run as a script for a fuller calibration than the tests (more replicates):
 from __future__ import annotations
 
 import argparse
-import copy
 
 import numpy as np
 
@@ -56,17 +55,10 @@ def design(seed: int = 11, animals: int = 260, phenotyped: int = 200):
 
 
 def with_records(data, y, center=None, scale=None):
-    """A copy of ``data`` with standardised records ``y`` (same missing pattern), sharing the
-    eigendecomposition."""
-    new = copy.copy(data)
-    new.y = np.where(data.missing, np.nan, y)
-    if center is not None:
-        new.y_center, new.y_scale = center, scale
-    rot = marginal.rotation(data)
-    new_rot = copy.copy(rot)
-    new_rot.rot_y = rot.U.T @ np.where(new.missing, 0.0, new.y)
-    object.__setattr__(new, "_marginal_rotation", new_rot)
-    return new
+    """A copy of ``data`` with standardised records ``y`` (same missing pattern)."""
+    if center is None:
+        center, scale = data.y_center, data.y_scale
+    return data.with_records(y, center, scale)
 
 
 def replicate(data, G, R, rng):
@@ -85,20 +77,20 @@ class Fitter:
     def __init__(self, data, cfg, missing_values: str):
         self.model_config = {**cfg["model"], "missing_values": missing_values}
         self.missing_values = missing_values
+        self.engine = marginal.MarginalEngine()   # one eigendecomposition for every replicate
         if missing_values == "nuts":
             import nutpie
 
-            self.model = marginal.build_model(data, self.model_config)
+            self.model = self.engine.build(data, self.model_config).model
             self.compiled = nutpie.compile_pymc_model(self.model, backend="numba")
 
     def posterior(self, rep, settings: dict, name: str):
         if self.missing_values == "nuts":
-            compiled = self.compiled.with_data(rot_y=marginal.rotation(rep).rot_y)
+            compiled = self.compiled.with_data(**self.engine.data_values(rep, self.model_config))
             run = sample.run(self.model, settings, name, progress=False, compiled=compiled)
         else:
-            model = marginal.build_model(rep, self.model_config)
-            run = sample.run(model, settings, name, progress=False,
-                             extra_steps=marginal.extra_steps(model, rep))
+            built = self.engine.build(rep, self.model_config)
+            run = sample.run(built.model, settings, name, progress=False, extra_steps=built.extra_steps)
         return run.idata.posterior
 
 

@@ -19,7 +19,7 @@ import xarray as xr
 import yaml
 
 from ped2g.cli import main
-from ped2g.posterior import load_fit
+from ped2g.contracts.fit_folder import load_fit
 from ped2g.simulate.study import StudySettings, simulate_study
 
 pytestmark = pytest.mark.slow

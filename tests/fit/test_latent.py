@@ -18,6 +18,7 @@ from ped2g.fit import latent
 from ped2g.fit.data import FitData, RandomEffect
 from ped2g.fit.prepare import prepare
 from ped2g.pedigree.core import Pedigree
+from ped2g.pedigree.recursion import down
 from ped2g.pedigree.relationships import inbreeding
 
 from mrode import assert_matches_solutions, config, pedigree, phenotypes
@@ -41,14 +42,14 @@ def test_pedigree_product_is_mrode_T():
     ped = six_animals()
     np.testing.assert_allclose(ped.mendelian, D_MRODE, atol=1e-12)  # Mrode p. 25
     # Column k of T is T applied to the unit vector e_k (leading axis = k, one trait).
-    columns = latent.pedigree_product(ped, np.eye(6)[:, :, None])[..., 0]
+    columns = down(ped, np.eye(6)[:, :, None])[..., 0]
     np.testing.assert_allclose(columns.T, T_MRODE, atol=1e-12)
 
 
 def test_pedigree_product_gives_relationships():
     # A = T D T' (Mrode 2014, p. 25); printed block for animals 1, 4, 5 on p. 32.
     ped = six_animals()
-    cols = latent.pedigree_product(ped, (np.eye(6) * np.sqrt(ped.mendelian))[:, :, None])[..., 0]
+    cols = down(ped, (np.eye(6) * np.sqrt(ped.mendelian))[:, :, None])[..., 0]
     A = cols.T @ cols  # cols[k] = column k of T D^1/2
     np.testing.assert_allclose(A[np.ix_([0, 3, 4], [0, 3, 4])],
                                [[1, 0.5, 0.5], [0.5, 1, 0.625], [0.5, 0.625, 1.125]], atol=1e-12)
@@ -79,7 +80,7 @@ def test_breeding_values_have_covariance_G_kron_A():
                    X=np.ones((n, 1)), x_names=["intercept"])
     a = latent.breeding_values(data, idata, np.random.default_rng(0))
     vec = a.transpose(0, 2, 1).reshape(n * t, n * t)  # trait-major vec of each draw
-    cols = latent.pedigree_product(ped, (np.eye(n) * np.sqrt(ped.mendelian))[:, :, None])[..., 0]
+    cols = down(ped, (np.eye(n) * np.sqrt(ped.mendelian))[:, :, None])[..., 0]
     A = cols.T @ cols  # cols[k] = column k of T D^1/2
     np.testing.assert_allclose(vec.T @ vec, np.kron(G, A), atol=1e-12)
     assert lay["order"].shape == (n,)
@@ -127,7 +128,7 @@ def test_log_density_matches_scipy_on_observed_traits():
     assert not np.allclose(C, np.eye(3))  # a non-trivial covariance
     lay = latent.generation_layout(data.pedigree)
     m = lay["sqrt_b"][:, None] * point["w_animal"] @ np.linalg.cholesky(G).T
-    a = latent.pedigree_product(data.pedigree, m[lay["rank"]])
+    a = down(data.pedigree, m[lay["rank"]])
     u = v @ np.linalg.cholesky(C).T
     mu = data.X @ point["beta"] + a[data.record_animal] + u[data.random[0].level]
     expect_records = 0.0

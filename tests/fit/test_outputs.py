@@ -50,7 +50,7 @@ def _table_for(draws_g):
     chains, draws = draws_g.shape
     G = np.zeros((chains, draws, 1, 1)); G[..., 0, 0] = draws_g
     R = np.ones_like(G)
-    from ped2g.posterior import posterior_dataset
+    from ped2g.contracts.fit_folder import posterior_dataset
     post = posterior_dataset("p", ["u"], G, R, G + R, np.zeros((chains, draws, 1)))
     return outputs.parameter_table(post, 0.9)
 

@@ -14,7 +14,9 @@ import pytensor
 import pytensor.tensor as pt
 import pytest
 
-from ped2g.fit.pedigree_op import down_pedigree, down_product, up_pedigree, up_product
+from ped2g.fit.pedigree_op import down_product, up_product
+from ped2g.pedigree.recursion import down_matrix as down_pedigree
+from ped2g.pedigree.recursion import up_matrix as up_pedigree
 
 from pedigree.pedigree_oracles import random_parents   # tests/pedigree/ (tests/ is on the path)
 from textbook import P1_A, P1_D, P1_DAM, P1_SIRE, P1_T

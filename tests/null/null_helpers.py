@@ -12,7 +12,7 @@ import numpy as np
 
 from ped2g.pedigree.core import Pedigree
 from ped2g.pedigree.relationships import inbreeding
-from ped2g.posterior import posterior_dataset
+from ped2g.contracts.fit_folder import posterior_dataset
 from textbook import tabular_relationship as tabular_a  # noqa: F401  (re-exported)
 
 

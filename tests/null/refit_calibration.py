@@ -44,8 +44,8 @@ from ped2g.compare.pipeline import compare
 from ped2g.config import validate
 from ped2g.null.refit import (DesignParameters, Refitter, design_parameters, replicate_name,
                               shared_G, simulate_records)
-from ped2g.null.refit_io import DIAGNOSTICS, RefitNull
-from ped2g.posterior import FitSet
+from ped2g.contracts.refit_null import DIAGNOSTICS, RefitNull
+from ped2g.contracts.fit_folder import FitSet
 from ped2g.rng import generator
 
 ROOT = Path(__file__).resolve().parents[2]

@@ -7,7 +7,7 @@ import pytest
 
 from null_helpers import random_covariances, random_pedigree, write_fit
 from ped2g.cli import main
-from ped2g.null.io import read_null
+from ped2g.contracts.breeding_value_null import read_null
 
 TRAITS = ["wing", "tarsus"]
 

@@ -15,8 +15,8 @@ from ped2g.compare.pipeline import compare
 from ped2g.config import validate
 from ped2g.errors import UserError
 from ped2g.null.refit_command import fit_engine
-from ped2g.null.refit_io import RefitNull
-from ped2g.posterior import FitSet
+from ped2g.contracts.refit_null import RefitNull
+from ped2g.contracts.fit_folder import FitSet
 
 
 def _diagnostics(folder, passed):

@@ -16,8 +16,9 @@ import xarray as xr
 import yaml
 from scipy import stats
 
+from ped2g.contracts.compare_tables import as_table
 from ped2g.fit.outputs import parameter_table
-from ped2g.posterior import posterior_dataset
+from ped2g.contracts.fit_folder import posterior_dataset
 
 TRAITS = ["wing", "mass", "tarsus"]
 POPULATIONS = ["north", "south", "east"]
@@ -84,7 +85,8 @@ def _interval(rng, centre, width):
 
 
 def write_compare(folder: Path, seed: int = 3) -> None:
-    """Tidy comparison tables in the documented shape (values invented)."""
+    """Tidy comparison tables in the contract's shape (values invented; the columns not given
+    here are empty)."""
     rng = np.random.default_rng(seed)
     folder.mkdir(parents=True, exist_ok=True)
     pairs = [(a, b) for i, a in enumerate(POPULATIONS) for b in POPULATIONS[i + 1:]]
@@ -93,31 +95,31 @@ def write_compare(folder: Path, seed: int = 3) -> None:
         out = []
         for key in keys:
             est, lo, hi = _interval(rng, centre, width)
-            row = {"method": method, "statistic": statistic, **key, "estimate": est,
+            row = {"method": method, "statistic": statistic, **key, "median": est,
                    "hpd_lower": lo, "hpd_upper": hi}
             if null_centre is not None:
                 n, nlo, nhi = _interval(rng, null_centre, width)
-                row.update(null_estimate=n, null_hpd_lower=nlo, null_hpd_upper=nhi,
+                row.update(null_median=n, null_hpd_lower=nlo, null_hpd_upper=nhi,
                            p_obs_gt_null=float(rng.uniform()))
             out.append(row)
         return out
 
     pair_keys = [{"population": a, "population2": b} for a, b in pairs]
     pop_keys = [{"population": p} for p in POPULATIONS]
-    idx_keys = [{"index": k} for k in (1, 2, 3)]
+    idx_keys = [{"axis": k} for k in (1, 2, 3)]
     tables = {
         "skewers": rows("skewers", "mean_vector_correlation", pair_keys, 0.85, 0.1, 0.95),
         "subspace": rows("subspace", "eigenvalue_H", idx_keys, 2.5, 0.4, 2.9),
-        "tensor": rows("tensor", "variance_along_eigentensor", [{"index": 1}, {"index": 2}], 1.0, 0.5, 0.3)
-        + rows("tensor", "loading", [{"index": 1, "trait": t} for t in TRAITS], 0.5, 0.2)
-        + rows("tensor", "coordinate", [{"index": 1, **k} for k in pop_keys], 2.0, 1.0),
+        "tensor": rows("tensor", "variance_along_eigentensor", [{"axis": 1}, {"axis": 2}], 1.0, 0.5, 0.3)
+        + rows("tensor", "loading", [{"axis": 1, "axis2": t} for t in TRAITS], 0.5, 0.2)
+        + rows("tensor", "coordinate", [{"axis": 1, **k} for k in pop_keys], 2.0, 1.0),
         "gmax": rows("gmax", "angle_to_divergence", pop_keys, 40.0, 20.0, 57.0),
         "evolvability": rows("evolvability", "mean_evolvability", pop_keys, 0.4, 0.1, 0.4)
         + rows("evolvability", "mean_autonomy", pop_keys, 0.6, 0.1, 0.6),
         "distance": rows("distance", "riemannian_distance", pair_keys, 1.2, 0.4, 0.5),
     }
     for name, data in tables.items():
-        pd.DataFrame(data).to_csv(folder / f"{name}.csv", index=False)
+        as_table(pd.DataFrame(data)).to_csv(folder / f"{name}.csv", index=False)
 
 
 def run_stages(config: Path, results: Path, null: bool = True) -> None:
@@ -138,8 +140,8 @@ def make_study(root: Path, *, null: bool = True, compare: str | None = "stages",
     """Write config, raw tables and a results folder under ``root``; return their paths.
 
     ``compare``: "stages" runs the real null and compare stages (null only if ``null``);
-    "synthetic" writes invented comparison tables with older column names (index, trait,
-    estimate) and a stand-in null; None writes no comparison.
+    "synthetic" writes invented comparison tables (only some of the contract's columns filled)
+    and a stand-in null; None writes no comparison.
     """
     root.mkdir(parents=True, exist_ok=True)
     data = root / "data"

@@ -1,4 +1,5 @@
-"""The report's input layer: where files are, column aliases, clear refusals."""
+"""The report's input layer: where files are, the report's names for the contract's columns,
+clear refusals."""
 
 from __future__ import annotations
 
@@ -7,6 +8,7 @@ import pandas as pd
 import pytest
 import xarray as xr
 
+from ped2g.contracts.compare_tables import as_table
 from ped2g.errors import UserError
 from ped2g.report import loaders
 from report_study import POPULATIONS, write_fit
@@ -60,13 +62,13 @@ def test_damaged_json_is_one_clear_line(results):
         loaders.read_pedigree_summary(results)
 
 
-def test_compare_tables_use_aliases_and_skip_auxiliary_files(results):
+def test_compare_tables_get_the_report_names_and_skip_auxiliary_files(results):
     folder = results / "compare"
     folder.mkdir()
-    pd.DataFrame({"method": ["gmax"], "statistic": ["share"], "population": ["north"],
+    as_table(pd.DataFrame({"method": ["gmax"], "statistic": ["share"], "population": ["north"],
                   "mean": [0.5], "median": [0.4], "hpd_lower": [0.3], "hpd_upper": [0.6],
                   "null_median": [0.2], "null_hpd_lower": [0.1], "null_hpd_upper": [0.3],
-                  "hpd_overlap": [True]}).to_csv(folder / "gmax.csv", index=False)
+                  "hpd_overlap": [True]})).to_csv(folder / "gmax.csv", index=False)
     pd.DataFrame({"reference": ["subspace_axis"], "value": [1.0]}).to_csv(folder / "loadings.csv", index=False)
     pd.DataFrame({"method": ["x"], "quantity": ["q"], "value": [1.0]}).to_csv(folder / "references.csv", index=False)
     tables = loaders.read_compare_tables(results)
@@ -84,8 +86,21 @@ def test_compare_method_order(results):
     folder = results / "compare"
     folder.mkdir()
     for name in ("distance", "zeta", "skewers", "tensor"):
-        pd.DataFrame({"statistic": ["s"], "median": [1.0]}).to_csv(folder / f"{name}.csv", index=False)
+        as_table(pd.DataFrame({"method": [name], "statistic": ["s"], "median": [1.0]})).to_csv(
+            folder / f"{name}.csv", index=False)
     assert list(loaders.read_compare_tables(results)) == ["skewers", "tensor", "distance", "zeta"]
+
+
+@pytest.mark.parametrize("old,new", [("median", "estimate"), ("hpd_lower", "lower"), ("population", "pop")])
+def test_a_renamed_comparison_column_is_refused(results, old, new):
+    # Names another program might use are not accepted in place of the contract's
+    # (ped2g.contracts.compare_tables.COLUMNS).
+    folder = results / "compare"
+    folder.mkdir()
+    frame = as_table(pd.DataFrame({"method": ["gmax"], "statistic": ["share"], "median": [0.4]}))
+    frame.rename(columns={old: new}).to_csv(folder / "gmax.csv", index=False)
+    with pytest.raises(UserError, match=rf"gmax\.csv has .*{new}.*rerun 'ped2g compare'"):
+        loaders.read_compare_tables(results)
 
 
 def test_phenotype_table_needs_the_trait_columns(tmp_path):

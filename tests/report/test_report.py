@@ -159,8 +159,9 @@ def test_missing_null_and_comparisons_give_notes_not_errors(tmp_path):
     assert not any(name.startswith("compare_") for name in result.figures)
 
 
-def test_older_column_names_are_read_through_the_aliases(tmp_path):
-    # Comparison tables with index/trait/estimate columns (no description, no overlap column).
+def test_sparse_comparison_tables_are_reported(tmp_path):
+    # Comparison tables with only some cells of the contract's columns filled (no description,
+    # no overlap values).
     paths = make_study(tmp_path, compare="synthetic")
     config = load_config(paths["config"])
     build_report(config, paths["results"], paths["out"], config_path=paths["config"])

@@ -7,7 +7,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from ped2g.posterior import posterior_dataset
+from ped2g.contracts.fit_folder import posterior_dataset
 from ped2g.report import tables
 from ped2g.report.loaders import FitInputs
 
@@ -95,8 +95,8 @@ def test_diagnostics_flag_a_shifted_chain():
     G_good[..., 1, 1] = 5 + rng.normal(size=(4, 500))
     G_bad = G_good.copy()
     G_bad[..., 0, 0] = 5 + bad
-    fits = _inputs(_fit(G_good, "ok", diagnostics={"divergences": 0}),
-                   _fit(G_bad, "shifted", diagnostics={"divergences": 2}))
+    fits = _inputs(_fit(G_good, "ok", diagnostics={"checks": {"divergences": 0}}),
+                   _fit(G_bad, "shifted", diagnostics={"checks": {"divergences": 2}}))
     summary, detail, sources = tables.diagnostics(fits, CHECKS)
     summary = summary.set_index("population")
     assert bool(summary.loc["ok", "passed"])

@@ -53,12 +53,7 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"ped2g {__version__}")
     sub = parser.add_subparsers(dest="command", metavar="STAGE", title="stages")
     for name, module_name in COMMANDS:
-        try:
-            module = importlib.import_module(module_name)
-        except ModuleNotFoundError as err:
-            if err.name and err.name.startswith("ped2g"):
-                continue  # a stage not built yet
-            raise
+        module = importlib.import_module(module_name)
         p = sub.add_parser(name, help=module.HELP, description=module.DESCRIPTION,
                            formatter_class=_Formatter)
         module.add_arguments(p)

@@ -43,6 +43,23 @@ def _check_file(path: Path, what: str) -> None:
         raise UserError(f"{what} {path} is empty; it needs a header line and at least one row")
 
 
+def read_stage_csv(path: str | os.PathLike, what: str) -> pd.DataFrame:
+    """A CSV table that a stage wrote (empty frame for an empty file).
+
+    Raises
+    ------
+    UserError
+        The file does not parse as CSV text.
+    """
+    try:
+        return pd.read_csv(path, keep_default_na=True)
+    except pd.errors.EmptyDataError:
+        return pd.DataFrame()
+    except (pd.errors.ParserError, UnicodeDecodeError) as err:
+        raise UserError(f"{what} {path} is not a readable CSV table ({type(err).__name__}); "
+                        "rerun the stage that wrote it") from None
+
+
 def read_table(path: str | os.PathLike, what: str = "table") -> pd.DataFrame:
     """Read a CSV, TSV or Excel table with every cell as a string.
 

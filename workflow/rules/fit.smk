@@ -10,7 +10,6 @@
 rule fit:
     input:
         pedigree=rules.pedigree.output.pedigree,
-        relationship_inverse=rules.pedigree.output.relationship_inverse,
         phenotypes=CFG["data"]["phenotypes"],
         config=ancient(EFFECTIVE_CONFIG),
         settings=settings_file("fit"),

@@ -71,7 +71,8 @@ def run(args: argparse.Namespace) -> int:
     from ..config import load_config
     from ..errors import UserError
     from ..io import get_logger
-    from ..posterior import load_fit_set
+    from ..contracts.compare_tables import check_tables
+    from ..contracts.fit_folder import load_fit_set
     from .pipeline import compare, write_outputs
 
     log = get_logger("compare")
@@ -84,20 +85,21 @@ def run(args: argparse.Namespace) -> int:
              ", ".join(fits.populations), fits.G.shape[0], ", ".join(fits.traits))
     null = None
     if args.null is not None:
-        from ..null.io import read_null
+        from ..contracts.breeding_value_null import read_null
 
         null = read_null(args.null)
-        log.info("read the null %s: %d draws (estimator %s)", args.null, null[0].shape[0],
-                 null[4].get("estimator", "unknown"))
+        log.info("read the null %s: %d draws (estimator %s)", args.null, null.G.shape[0],
+                 null.attrs.get("estimator", "unknown"))
     refits = None
     if args.refits:
-        from ..null.refit_io import read_refits
+        from ..contracts.refit_null import read_refits
 
         refits = read_refits(args.refits, fits.populations, fits.traits)
         log.info("read the refitting null: %d replicates of %d populations, %d draws each",
                  len(refits.replicates), len(refits.populations), refits.G.shape[1])
     result = compare(fits, null, config, budget_bytes=args.memory * 1e6, log=log,
                      null_path=None if args.null is None else Path(args.null), refits=refits)
+    check_tables(result.tables)
     write_outputs(result, args.out, CAUTIONS)
     log.info("wrote %s to %s in %.1f s", ", ".join(f"{m}.csv" for m in result.tables), args.out,
              time.perf_counter() - start)

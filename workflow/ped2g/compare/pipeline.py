@@ -21,17 +21,15 @@ import xarray as xr
 
 from .. import __version__
 from ..errors import UserError
-from ..null.refit_io import RefitNull
-from ..posterior import FitSet
+from ..contracts.breeding_value_null import BreedingValueNull
+from ..contracts.fit_folder import FitSet
+from ..contracts.refit_null import RefitNull
 from ..rng import generator
 from . import gmax, scale, skewers, subspace, tensor
 from .matrices import positive_definite, symmetrise
 from .statistics import DrawSet, References, build_references, draw_statistics
 from .calibrated import READING_RULE, calibrated_columns, required_replicates
 from .summarise import method_draws, summarise_method
-
-#: The methods, in the order :func:`ped2g.compare.statistics.draw_statistics` runs them (one table each).
-METHOD_ORDER = ("skewers", "subspace", "tensor", "gmax", "evolvability", "dimensions", "distance")
 
 
 @dataclass
@@ -55,7 +53,7 @@ def warnings_off():
         yield
 
 
-NullInput = tuple[np.ndarray, list[str], list[str], np.ndarray, dict[str, Any]]
+NullInput = BreedingValueNull
 
 
 def _check_finite(name: str, values: np.ndarray, populations: list[str]) -> None:
@@ -231,9 +229,9 @@ def compare(fits: FitSet, null: NullInput | None, config: dict[str, Any], budget
     Parameters
     ----------
     fits
-        From :func:`ped2g.posterior.load_fit_set`.
+        From :func:`ped2g.contracts.fit_folder.load_fit_set`.
     null
-        From :func:`ped2g.null.io.read_null`, or None.
+        From :func:`ped2g.contracts.breeding_value_null.read_null`, or None.
     config
         The validated config (keys ``compare.*`` and ``sampling.seed`` are used).
     budget_bytes

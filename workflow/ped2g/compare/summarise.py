@@ -4,7 +4,7 @@ Each table (``compare/<method>.csv``) has one row per statistic and label combin
 these columns:
 
 ================  ==========================================================================
-method            skewers, subspace, tensor, gmax, evolvability, dimensions or distance
+method            one of :data:`ped2g.contracts.compare_tables.METHOD_ORDER`
 statistic         the statistic's name within the method (e.g. ``correlation``)
 population        population of the statistic (empty for statistics of the whole set)
 population2       second population of a pairwise statistic (each unordered pair once)
@@ -38,15 +38,10 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from ..contracts.compare_tables import COLUMNS
 from ..intervals import equal_tailed, hpd
 from .statistics import AXIS_MEANING
 
-COLUMNS = ["method", "statistic", "population", "population2", "axis", "axis2", "axis_meaning",
-           "scale", "n_draws", "mean", "median", "sd", "hpd_lower", "hpd_upper", "et_lower",
-           "et_upper", "null_n_draws", "null_mean", "null_median", "null_sd", "null_hpd_lower",
-           "null_hpd_upper", "null_et_lower", "null_et_upper", "n_pairs", "diff_mean",
-           "diff_hpd_lower", "diff_hpd_upper", "p_obs_gt_null", "hpd_overlap", "interval_mass",
-           "description"]
 
 
 def _intervals(x: np.ndarray, mass: float) -> dict[str, np.ndarray]:
@@ -148,7 +143,7 @@ def summarise_statistic(obs: xr.DataArray, null: xr.DataArray | None, pair: np.n
     rows["interval_mass"] = mass
     rows["description"] = obs.attrs.get("description", "")
     rows = rows[_kept(obs)]
-    return rows.reindex(columns=COLUMNS).reset_index(drop=True)
+    return rows.reindex(columns=list(COLUMNS)).reset_index(drop=True)
 
 
 def _kept(obs: xr.DataArray) -> np.ndarray:

@@ -102,6 +102,17 @@ class FitData:
         """Boolean mask (n_records, t) of missing trait values."""
         return np.isnan(self.y)
 
+    def with_records(self, y: np.ndarray, center: np.ndarray, scale: np.ndarray) -> "FitData":
+        """A copy with other standardised records ``y`` (same animals, design and missing cells;
+        NaN kept where this one is missing), centred and scaled by ``center`` and ``scale``.
+        Used to refit simulated data sets on one population's design."""
+        import copy
+
+        new = copy.copy(self)
+        new.y = np.where(self.missing, np.nan, y)
+        new.y_center, new.y_scale = np.asarray(center, dtype=float), np.asarray(scale, dtype=float)
+        return new
+
     @property
     def repeated_records(self) -> bool:
         """Whether some animal has more than one record."""

@@ -1,58 +1,139 @@
-"""Choosing the engine: ``model.engine`` is ``marginal``, ``latent`` or ``auto``.
+"""The engine interface, the engines and the choice between them (``model.engine``).
 
-``auto`` takes the marginal engine (breeding values integrated out; far better mixing of G per
-gradient) whenever it applies -- while its dense eigendecomposition fits in the memory this
-process has (:func:`ped2g.fit.marginal.memory_needed`) -- and the pre-rotated projections that every gradient touches (extra random-effect levels, and missing
-trait values with ``model.missing_values: nuts``) stay below
-:data:`ped2g.fit.marginal.AUTO_PROJECTION_CELLS` (beyond that each gradient is memory-bound and
-the marginal engine loses its advantage); otherwise the latent engine (linear cost in the number
-of animals, no dense matrices). The choice and its reason go into diagnostics.json.
+An engine fits the animal model of one population (docs/methods.md §2). It is an object with the
+methods of :class:`Engine`; :func:`get` makes one by name (one object per population: an engine
+may keep what it computed for the population's design, as the marginal engine keeps its
+eigendecomposition). The fit stage (:mod:`ped2g.fit.pipeline`) and the refitting null
+(:mod:`ped2g.null.refit`) use engines only through this interface.
+
+Choosing: ``auto`` takes the marginal engine (breeding values integrated out; far better mixing of
+G per gradient) whenever it applies -- while its dense eigendecomposition fits in the memory this
+process has (:func:`ped2g.fit.marginal.memory_needed`) -- and prefers itself: the pre-rotated
+projections that every gradient touches (extra random-effect levels, and missing trait values
+with ``model.missing_values: nuts``) stay below :data:`ped2g.fit.marginal.AUTO_PROJECTION_CELLS`
+(beyond that each gradient is memory-bound and the marginal engine loses its advantage);
+otherwise the latent engine (linear cost in the number of animals, no dense matrices). The
+choice and its reason go into diagnostics.json.
 """
 
 from __future__ import annotations
 
-import importlib
-from types import ModuleType
+from dataclasses import dataclass, field
+from typing import Any, Protocol
+
+import numpy as np
 
 from ..errors import UserError
 from .data import FitData
 
+#: Values of ``model.engine``; ``auto`` tries the engines in the order of :data:`AUTO_ORDER`.
 ENGINES = ("auto", "marginal", "latent")
+AUTO_ORDER = ("marginal", "latent")
 
 
-def _load(name: str) -> ModuleType:
-    return importlib.import_module(f"ped2g.fit.{name}")
+@dataclass
+class BuiltModel:
+    """What an engine hands the sampler and the fit's diagnostics for one data set.
+
+    Attributes
+    ----------
+    model : pymc.Model
+        On the standardised scale, with the Deterministics ``G``, ``R`` (t, t), ``beta`` (p, t,
+        rows in the order of ``FitData.x_names``) and ``cov_<name>`` (t, t) per extra random
+        effect; covariances from :func:`ped2g.fit.priors.covariance_prior` and fixed effects from
+        :func:`ped2g.fit.priors.fixed_effects_prior`, so every engine has the same prior. Large
+        arrays enter as ``pm.Data``.
+    extra_steps : list
+        PyMC step methods for variables NUTS must not move; with any, the sampler is PyMC's own
+        (:func:`ped2g.fit.sample.run`).
+    nutpie_options : dict or None
+        Extra keyword arguments for ``nutpie.sample``.
+    numba_opt_level : int or None
+        LLVM optimisation level for numba while compiling this model (None: numba's own).
+    missing_values : str
+        How missing trait values are handled: ``none``, ``gibbs``, ``nuts`` or ``masked``
+        (recorded in diagnostics.json).
+    timings : dict
+        Seconds spent building, recorded with the sampler's figures in diagnostics.json.
+    """
+
+    model: Any
+    extra_steps: list = field(default_factory=list)
+    nutpie_options: dict | None = None
+    numba_opt_level: int | None = None
+    missing_values: str = "none"
+    timings: dict[str, float] = field(default_factory=dict)
 
 
-def choose(data: FitData, requested: str, model_config: dict | None = None) -> tuple[str, ModuleType, str]:
-    """Return (engine name, engine module, reason); ``model_config`` is ``config["model"]``.
+class Engine(Protocol):
+    """What every engine provides (``model_config`` is ``config["model"]``)."""
+
+    name: str
+
+    def applies(self, data: FitData, model_config: dict) -> tuple[bool, str]:
+        """Whether the engine can fit these data on this machine, and why (or why not)."""
+
+    def prefers(self, data: FitData, model_config: dict) -> tuple[bool, str]:
+        """Whether ``auto`` should take it when it applies; if not, why."""
+
+    def build(self, data: FitData, model_config: dict) -> BuiltModel:
+        """The model for ``data`` and what the sampler and diagnostics need with it."""
+
+    def data_values(self, data: FitData, model_config: dict) -> dict[str, np.ndarray]:
+        """The model's ``pm.Data`` values that change when only the records change (for
+        ``compiled.with_data``); empty when a model must be built per data set instead."""
+
+    def breeding_values(self, data: FitData, idata, rng: np.random.Generator, max_draws: int | None = None,
+                        conditional_mean: bool = False) -> np.ndarray:
+        """Breeding values of every animal of ``data.pedigree``, shape (S, n_animals, t),
+        standardised scale, for S = at most ``max_draws`` evenly thinned pooled draws of
+        ``idata.posterior`` (chain-major). An engine that integrates them out draws them from
+        their exact conditional distribution given each draw (with ``conditional_mean``, the
+        conditional means: BLUP with known G and R); one that samples them returns its draws."""
+
+
+def get(name: str) -> Engine:
+    """A new engine object of the given name (``marginal`` or ``latent``)."""
+    if name == "marginal":
+        from .marginal import MarginalEngine
+
+        return MarginalEngine()
+    if name == "latent":
+        from .latent import LatentEngine
+
+        return LatentEngine()
+    raise UserError(f"engine {name!r} is not one of {', '.join(AUTO_ORDER)}")
+
+
+def choose(data: FitData, requested: str, model_config: dict | None = None) -> tuple[str, Engine, str]:
+    """Return (engine name, engine, reason) for ``model.engine`` = ``requested``.
 
     Raises
     ------
     UserError
-        If ``requested`` is not one of :data:`ENGINES`, or the marginal engine is requested for
-        data it cannot fit.
+        If ``requested`` is not one of :data:`ENGINES`, or the engine requested cannot fit the data.
     """
+    model_config = model_config or {}
     if requested not in ENGINES:
         raise UserError(f"config key 'model.engine' is {requested!r}; allowed: {', '.join(ENGINES)}")
-    marginal = _load("marginal")
-    ok, why = marginal.applicable(data, model_config)
-    if requested == "marginal":
+    if requested != "auto":
+        engine = get(requested)
+        ok, why = engine.applies(data, model_config)
         if not ok:
-            raise UserError(f"config key 'model.engine' asks for 'marginal', but {why}; use 'latent' or 'auto'")
-        return "marginal", marginal, f"requested in the config; {why}"
-    if requested == "latent":
-        latent = _load("latent")
-        return "latent", latent, "requested in the config"
-    cells = marginal.projection_cells(data, model_config)
-    if ok and cells <= marginal.AUTO_PROJECTION_CELLS:
-        return "marginal", marginal, f"auto: the marginal engine applies ({why})"
-    if ok:
-        why = (f"the projections its gradients touch (extra random-effect levels, missing values "
-               f"sampled by NUTS) have {cells:.3g} cells, "
-               f"above {marginal.AUTO_PROJECTION_CELLS:.3g} where each gradient becomes memory-bound")
-    latent = _load("latent")
-    ok_l, why_l = latent.applicable(data)
-    if not ok_l:
-        raise UserError(f"population '{data.population}': no engine can fit these data ({why}; {why_l})")
-    return "latent", latent, f"auto: the marginal engine does not apply ({why})"
+            others = " or ".join(f"'{e}'" for e in (*AUTO_ORDER, "auto") if e != requested)
+            raise UserError(f"config key 'model.engine' asks for '{requested}', but {why}; use {others}")
+        return engine.name, engine, f"requested in the config; {why}"
+    passed = []
+    for name in AUTO_ORDER:
+        engine = get(name)
+        ok, why = engine.applies(data, model_config)
+        if ok:
+            preferred, why_not = engine.prefers(data, model_config)
+            if preferred:
+                if not passed:
+                    return name, engine, f"auto: the {name} engine applies ({why})"
+                return name, engine, f"auto: the {passed[0][0]} engine does not apply ({passed[0][1]})"
+            why = why_not
+        passed.append((name, why))
+    raise UserError(f"population '{data.population}': no engine can fit these data "
+                    f"({'; '.join(w for _, w in passed)})")

@@ -14,8 +14,8 @@ forming A or a factor of it: the product by T is the recursion
     a_i = m_i + (a_sire(i) + a_dam(i)) / 2,      m = D^{1/2} W L_G',
 
 done in one pass over the animals in generation order (every parent comes before its offspring)
-by one PyTensor Op with a numba kernel (:mod:`ped2g.fit.pedigree_op`; its gradient is the pass
-back up with T'), so a gradient costs O(animals x traits) plus O(records x traits^2) and the
+by one PyTensor Op (:mod:`ped2g.fit.pedigree_op`) around the pedigree's one recursion
+(:mod:`ped2g.pedigree.recursion`; its gradient is the pass back up with T'), so a gradient costs O(animals x traits) plus O(records x traits^2) and the
 compiled graph does not grow with the depth of the pedigree. Records with missing trait values
 contribute the density of their observed traits only (an exact marginal), through one more Op
 (:mod:`ped2g.fit.observed_normal_op`).
@@ -34,8 +34,7 @@ expect to need long chains; the fit stage's R-hat/ESS checks say when the chains
 ``8 x animals x traits x chains x draws`` bytes (1 GB for 8,000 animals, 4 traits, 4 x 1,000
 draws). (3) nutpie compiles the model with numba; expect tens of seconds before sampling starts.
 
-Engine interface (shared with :mod:`ped2g.fit.marginal`): :func:`applicable`,
-:func:`build_model`, :func:`breeding_values`.
+The engine's object for the interface of :mod:`ped2g.fit.engine` is :class:`LatentEngine`.
 """
 
 from __future__ import annotations
@@ -45,7 +44,7 @@ import numpy as np
 from ..pedigree.core import Pedigree
 from .data import FitData
 
-__all__ = ["applicable", "build_model", "breeding_values", "generation_layout", "pedigree_product",
+__all__ = ["LatentEngine", "applicable", "build_model", "breeding_values", "generation_layout",
            "NUTPIE_OPTIONS"]
 
 #: Extra options for ``nutpie.sample`` with this engine. The low-rank modified mass matrix adapts
@@ -93,27 +92,6 @@ def generation_layout(ped: Pedigree) -> dict[str, np.ndarray]:
         raise ValueError("Mendelian-sampling coefficients must be positive (inbreeding F < 1)")
     return {"order": order, "rank": rank, "sire": sire_g.astype(np.int64), "dam": dam_g.astype(np.int64),
             "bounds": bounds, "sqrt_b": np.sqrt(b)}
-
-
-def pedigree_product(ped: Pedigree, m: np.ndarray) -> np.ndarray:
-    """Compute ``T m`` with ``T = (I - P)^{-1}``, in pedigree order, by the parent recursion.
-
-    ``(T m)_i = m_i + ((T m)_sire + (T m)_dam) / 2`` (unknown parents contribute 0), vectorised
-    within generations. Works on any trailing shape: ``m`` is ``(..., n, t)`` and so is the result.
-
-    Check: with ``m = D^{1/2} z``, ``T D T' = A`` (Mrode 2014, p. 25), so the covariance of the
-    result is the relationship matrix.
-    """
-    m = np.asarray(m, dtype=float)
-    n = ped.n
-    out = np.zeros(m.shape[:-2] + (n + 1, m.shape[-1]))
-    sire = np.where(ped.sire >= 0, ped.sire, n)
-    dam = np.where(ped.dam >= 0, ped.dam, n)
-    for idx in ped.generations:
-        if len(idx) == 0:
-            continue
-        out[..., idx, :] = m[..., idx, :] + 0.5 * (out[..., sire[idx], :] + out[..., dam[idx], :])
-    return out[..., :n, :]
 
 
 # --------------------------------------------------------------------------------------------
@@ -209,17 +187,6 @@ def build_model(data: FitData, model_config: dict, animal_effect=None):
     return model
 
 
-def with_records(data: FitData, y: np.ndarray, center: np.ndarray, scale: np.ndarray) -> FitData:
-    """A copy of ``data`` with other standardised records ``y`` (same animals, design and missing
-    cells); used to refit simulated data sets on one population's design."""
-    import copy
-
-    new = copy.copy(data)
-    new.y = np.where(data.missing, np.nan, y)
-    new.y_center, new.y_scale = np.asarray(center, dtype=float), np.asarray(scale, dtype=float)
-    return new
-
-
 def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
     """The model's data that change when only the records change (for ``compiled.with_data``);
     empty with fixed covariances, which the model holds on the records' standardised scale."""
@@ -248,7 +215,8 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
         Standardised scale, animals in pedigree order, S = at most ``max_draws`` evenly thinned
         pooled draws (chain-major).
     """
-    from ..posterior import thin_indices
+    from ..contracts.fit_folder import thin_indices
+    from ..pedigree.recursion import down
 
     w = _pooled(idata, "w_animal")
     G = _pooled(idata, "G")
@@ -258,4 +226,29 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     chol = np.linalg.cholesky(0.5 * (G + np.swapaxes(G, -1, -2)))
     m_gen = lay["sqrt_b"][None, :, None] * np.einsum("snk,sjk->snj", w, chol)
     m = m_gen[:, lay["rank"], :]  # back to pedigree order
-    return pedigree_product(data.pedigree, m)
+    return down(data.pedigree, m)
+
+
+class LatentEngine:
+    """The latent engine behind the interface of :mod:`ped2g.fit.engine`."""
+
+    name = "latent"
+
+    def applies(self, data: FitData, model_config: dict) -> tuple[bool, str]:
+        return applicable(data)
+
+    def prefers(self, data: FitData, model_config: dict) -> tuple[bool, str]:
+        return True, ""
+
+    def build(self, data: FitData, model_config: dict):
+        from .engine import BuiltModel
+
+        return BuiltModel(model=build_model(data, model_config), extra_steps=[], nutpie_options=NUTPIE_OPTIONS,
+                          numba_opt_level=None, missing_values="masked" if data.missing.any() else "none")
+
+    def data_values(self, data: FitData, model_config: dict) -> dict[str, np.ndarray]:
+        return data_values(data, model_config)
+
+    def breeding_values(self, data: FitData, idata, rng: np.random.Generator, max_draws: int | None = None,
+                        conditional_mean: bool = False) -> np.ndarray:
+        return breeding_values(data, idata, rng, max_draws, conditional_mean)

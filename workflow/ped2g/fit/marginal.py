@@ -174,10 +174,8 @@ def record_relationships(data: FitData) -> np.ndarray:
 
 
 def rotation(data: FitData) -> Rotation:
-    """Compute (once per FitData; cached on the object) the eigendecomposition and rotated arrays."""
-    cached = getattr(data, "_marginal_rotation", None)
-    if cached is not None:
-        return cached
+    """Compute the eigendecomposition and the rotated arrays of ``data`` (O(n^3); the engine
+    object :class:`MarginalEngine` computes it once per design)."""
     import time
 
     start = time.perf_counter()
@@ -198,13 +196,20 @@ def rotation(data: FitData) -> Rotation:
         Zc = np.zeros((data.n_records, eff.n_levels))
         Zc[np.arange(data.n_records), eff.level] = 1.0
         rot_Z.append(Ut @ Zc)
-    rot = Rotation(U=U, lam=lam, rot_y=Ut @ y0, rot_X=Ut @ data.X, missing_rows=missing_rows,
-                   rot_Z=rot_Z, seconds=seconds)
-    object.__setattr__(data, "_marginal_rotation", rot)
-    return rot
+    return Rotation(U=U, lam=lam, rot_y=Ut @ y0, rot_X=Ut @ data.X, missing_rows=missing_rows,
+                    rot_Z=rot_Z, seconds=seconds)
 
 
-def build_model(data: FitData, model_config: dict):
+def with_rotated_records(rot: Rotation, data: FitData) -> Rotation:
+    """``rot`` (computed for the same design) with the rotated records ``U'y`` of ``data``."""
+    import copy
+
+    new = copy.copy(rot)
+    new.rot_y = rot.U.T @ np.where(data.missing, 0.0, data.y)
+    return new
+
+
+def build_model(data: FitData, model_config: dict, rot: Rotation | None = None):
     """The PyMC model with the breeding values integrated out (see the module docstring).
 
     Free variables: the covariance priors of G, R and each extra effect, ``beta`` (p, t),
@@ -221,7 +226,7 @@ def build_model(data: FitData, model_config: dict):
     from .batched_normal import scaled_pair_logp
     from .priors import covariance_prior, fixed_covariances, fixed_effects_prior
 
-    rot = rotation(data)
+    rot = rot if rot is not None else rotation(data)
     mode = missing_mode(data, model_config)
     t = data.n_traits
     priors = model_config.get("priors", {}) or {}
@@ -262,13 +267,13 @@ def build_model(data: FitData, model_config: dict):
     return model
 
 
-def extra_steps(model, data: FitData) -> list:
+def extra_steps(model, data: FitData, rot: Rotation | None = None) -> list:
     """Step methods that run beside NUTS: the missing-value Gibbs step when the model has one."""
     from . import augment
 
     if augment.ROTATED_NAME not in model.named_vars:
         return []
-    rot = rotation(data)
+    rot = rot if rot is not None else rotation(data)
     core = augment.MissingValueDraw(data, rot.U, rot.lam, rot.rot_X, rot.rot_Z, rot_y0=rot.rot_y)
     return [augment.make_step(model, core, data)]
 
@@ -280,7 +285,7 @@ def _posterior_draws(idata, name: str, index: np.ndarray) -> np.ndarray:
 
 
 def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: int | None = None,
-                    conditional_mean: bool = False, chunk: int = 32) -> np.ndarray:
+                    conditional_mean: bool = False, chunk: int = 32, rot: Rotation | None = None) -> np.ndarray:
     """Breeding values of every pedigree animal, (S, n_animals, t), standardised scale.
 
     Exact conditional draws (or, with ``conditional_mean=True``, conditional means) given each
@@ -288,10 +293,10 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     docstring for the formula. Draws are processed in chunks of ``chunk``.
     """
     from ..pedigree.relationships import relationship_inverse
-    from ..posterior import thin_indices
+    from ..contracts.fit_folder import thin_indices
     from ..simulate.breeding_values import simulate_breeding_values
 
-    rot = rotation(data)
+    rot = rot if rot is not None else rotation(data)
     post = idata.posterior
     n_total = post.sizes["chain"] * post.sizes["draw"]
     index = thin_indices(n_total, max_draws)
@@ -339,24 +344,7 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     return out
 
 
-def with_records(data: FitData, y: np.ndarray, center: np.ndarray, scale: np.ndarray) -> FitData:
-    """A copy of ``data`` with other standardised records ``y`` (same animals, design and missing
-    cells), sharing the eigendecomposition: only the rotated records ``U'y`` are recomputed.
-
-    Used to refit simulated data sets on one population's design (:mod:`ped2g.null.refit`).
-    """
-    import copy
-
-    new = copy.copy(data)
-    new.y = np.where(data.missing, np.nan, y)
-    new.y_center, new.y_scale = np.asarray(center, dtype=float), np.asarray(scale, dtype=float)
-    rot = copy.copy(rotation(data))
-    rot.rot_y = rot.U.T @ np.where(data.missing, 0.0, new.y)
-    object.__setattr__(new, "_marginal_rotation", rot)
-    return new
-
-
-def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
+def data_values(data: FitData, model_config: dict, rot: Rotation | None = None) -> dict[str, np.ndarray]:
     """The model's data that change when only the records change (for ``compiled.with_data``).
 
     Empty when a model built for other records cannot be reused: the Gibbs route for missing
@@ -366,4 +354,67 @@ def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
     """
     if missing_mode(data, model_config) == "gibbs" or model_config.get("fixed_covariances"):
         return {}
-    return {"rot_y": rotation(data).rot_y}
+    return {"rot_y": (rot if rot is not None else rotation(data)).rot_y}
+
+
+class MarginalEngine:
+    """The marginal engine behind the interface of :mod:`ped2g.fit.engine`.
+
+    One object per population: it computes the eigendecomposition once for the population's
+    design and reuses it for other records on the same design (the refitting null), so no
+    n x n matrix is kept on the shared :class:`FitData`.
+    """
+
+    name = "marginal"
+
+    def __init__(self, memory: float | None = None):
+        self.memory = memory
+        self._design: tuple[FitData, Rotation] | None = None
+
+    def rotation(self, data: FitData) -> Rotation:
+        """The eigendecomposition of ``data``'s design (computed once) with ``data``'s records."""
+        if self._design is not None:
+            first, rot = self._design
+            if first is data:
+                return rot
+            if _same_design(first, data):
+                return with_rotated_records(rot, data)
+        rot = rotation(data)
+        self._design = (data, rot)
+        return rot
+
+    def applies(self, data: FitData, model_config: dict) -> tuple[bool, str]:
+        return applicable(data, model_config, self.memory)
+
+    def prefers(self, data: FitData, model_config: dict) -> tuple[bool, str]:
+        """Whether ``model.engine: auto`` should take this engine when it applies, and why not."""
+        cells = projection_cells(data, model_config)
+        if cells <= AUTO_PROJECTION_CELLS:
+            return True, ""
+        return False, (f"the projections its gradients touch (extra random-effect levels, missing values "
+                       f"sampled by NUTS) have {cells:.3g} cells, "
+                       f"above {AUTO_PROJECTION_CELLS:.3g} where each gradient becomes memory-bound")
+
+    def build(self, data: FitData, model_config: dict):
+        from .engine import BuiltModel
+
+        rot = self.rotation(data)
+        model = build_model(data, model_config, rot)
+        return BuiltModel(model=model, extra_steps=extra_steps(model, data, rot), nutpie_options=None,
+                          numba_opt_level=NUMBA_OPT_LEVEL, missing_values=missing_mode(data, model_config),
+                          timings={"eigendecomposition_seconds": rot.seconds})
+
+    def data_values(self, data: FitData, model_config: dict) -> dict[str, np.ndarray]:
+        return data_values(data, model_config, self.rotation(data))
+
+    def breeding_values(self, data: FitData, idata, rng: np.random.Generator, max_draws: int | None = None,
+                        conditional_mean: bool = False) -> np.ndarray:
+        return breeding_values(data, idata, rng, max_draws, conditional_mean, rot=self.rotation(data))
+
+
+def _same_design(a: FitData, b: FitData) -> bool:
+    """Whether two data sets share animals, design and missing cells (only the records differ)."""
+    return (a.pedigree is b.pedigree and np.array_equal(a.record_animal, b.record_animal)
+            and np.array_equal(a.X, b.X) and np.array_equal(a.missing, b.missing)
+            and len(a.random) == len(b.random)
+            and all(np.array_equal(x.level, y.level) for x, y in zip(a.random, b.random)))

@@ -30,7 +30,7 @@ import numpy as np
 import xarray as xr
 
 from ..intervals import hpd
-from ..posterior import MATRIX_DIMS, posterior_dataset
+from ..contracts.fit_folder import MATRIX_DIMS, posterior_dataset
 from .data import FitData
 
 #: Stated in diagnostics.json and meant for the report: what the numbers rest on.
@@ -83,7 +83,7 @@ def original_units(data: FitData, idata) -> tuple[dict[str, np.ndarray], dict[st
 
 
 def build_posterior(data: FitData, idata) -> xr.Dataset:
-    """The ``posterior`` group of posterior.nc (see :func:`ped2g.posterior.posterior_dataset`)."""
+    """The ``posterior`` group of posterior.nc (see :func:`ped2g.contracts.fit_folder.posterior_dataset`)."""
     core, extra = original_units(data, idata)
     return posterior_dataset(data.population, data.traits, core["G"], core["R"], core["P"],
                              core["mean"], extra=extra)

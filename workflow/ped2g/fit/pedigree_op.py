@@ -1,14 +1,9 @@
 """The product by T = (I - P)^-1 down a pedigree, and by T' up it, as PyTensor Ops.
 
-With the animals in an order where every parent comes before its offspring (the generation order
-of :func:`ped2g.fit.latent.generation_layout`) and ``P`` holding 1/2 at each known parent::
-
-    (T m)_i  = m_i + ((T m)_sire(i) + (T m)_dam(i)) / 2          (i = 1, ..., n)
-    (T' g)_i = g_i + sum over offspring c of i of (T' g)_c / 2    (i = n, ..., 1)
-
-(Mrode 2014, *Linear Models for the Prediction of Animal Breeding Values*, 3rd ed., p. 25 [M],
-for ``A = T D T'``). Both are O(animals x traits) with one pass each. Each Op is the other's
-gradient: ``d<a, h>/dm = T' h`` for ``a = T m``, and the reverse.
+The products are the pedigree's one recursion (:mod:`ped2g.pedigree.recursion`: its numba
+kernels ``down_matrix`` and ``up_matrix``), here with the animals in the generation order of
+:func:`ped2g.fit.latent.generation_layout`. Each Op is the other's gradient:
+``d<a, h>/dm = T' h`` for ``a = T m``, and the reverse.
 
 Why Ops and not a graph: the recursion written as PyTensor operations is one gather and one
 ``set_subtensor`` per generation, so the graph, and with it numba's compile time, grows with the
@@ -21,51 +16,15 @@ parent. A parent that does not come before its offspring is an error (ValueError
 
 from __future__ import annotations
 
-import numba
 import numpy as np
 import pytensor.tensor as pt
 from pytensor.gradient import DisconnectedType
 from pytensor.graph.basic import Apply
 from pytensor.graph.op import Op
 
+from ..pedigree import recursion
+from ..pedigree.recursion import down_matrix, up_matrix
 from .numba_ops import register_kernel
-
-
-@numba.njit(cache=True)
-def down_pedigree(m, sire, dam):
-    """``T m``: each row is its own term plus half of each known parent's (already computed) row."""
-    n, t = m.shape
-    a = np.empty((n, t))
-    for i in range(n):
-        s, d = sire[i], dam[i]
-        if (s < n and s >= i) or (d < n and d >= i):
-            raise ValueError("pedigree order: a parent does not come before its offspring")
-        for j in range(t):
-            v = m[i, j]
-            if s < n:
-                v += 0.5 * a[s, j]
-            if d < n:
-                v += 0.5 * a[d, j]
-            a[i, j] = v
-    return a
-
-
-@numba.njit(cache=True)
-def up_pedigree(g, sire, dam):
-    """``T' g``: offspring pass half of their (already complete) row to each known parent."""
-    n, t = g.shape
-    acc = g.copy()
-    for i in range(n - 1, -1, -1):
-        s, d = sire[i], dam[i]
-        if (s < n and s >= i) or (d < n and d >= i):
-            raise ValueError("pedigree order: a parent does not come before its offspring")
-        for j in range(t):
-            h = 0.5 * acc[i, j]
-            if s < n:
-                acc[s, j] += h
-            if d < n:
-                acc[d, j] += h
-    return acc
 
 
 class PedigreeProduct(Op):
@@ -86,7 +45,7 @@ class PedigreeProduct(Op):
 
     def perform(self, node, inputs, output_storage):
         m, sire, dam = inputs
-        kernel = up_pedigree if self.transpose else down_pedigree
+        kernel = up_matrix if self.transpose else down_matrix
         output_storage[0][0] = kernel(np.asarray(m, dtype=np.float64), np.asarray(sire, dtype=np.int64),
                                       np.asarray(dam, dtype=np.int64))
 
@@ -109,11 +68,11 @@ up_product = PedigreeProduct(transpose=True)
 def _product(op):
     if op.transpose:
         def product(m, sire, dam):
-            return up_pedigree(m, sire, dam)
+            return up_matrix(m, sire, dam)
     else:
         def product(m, sire, dam):
-            return down_pedigree(m, sire, dam)
+            return down_matrix(m, sire, dam)
     return product
 
 
-register_kernel(PedigreeProduct, __file__, _product)
+register_kernel(PedigreeProduct, [__file__, recursion.__file__], _product)

@@ -13,7 +13,7 @@ import numpy as np
 
 from ..errors import UserError
 from ..pedigree.core import Pedigree
-from ..posterior import FitSet
+from ..contracts.fit_folder import FitSet
 from ..rng import generator
 from .estimators import ESTIMATORS, mendelian_estimator, sample_covariance_estimator
 from .shuffle import shuffle_permutations

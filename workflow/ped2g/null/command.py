@@ -66,11 +66,11 @@ def run(args: argparse.Namespace) -> int:
     from .. import __version__
     from ..config import load_config
     from ..errors import UserError
+    from ..contracts.breeding_value_null import NULL_FILE, SUMMARY_FILE, write_null
+    from ..contracts.fit_folder import load_fit_set
     from ..io import get_logger, output_dir, write_json
-    from ..posterior import load_fit_set
     from .estimators import (DEFAULT_ESTIMATOR, DEFAULT_REASON, ESTIMATOR_DESCRIPTION,
                              pooled_deflation, relatedness_deflation)
-    from .io import NULL_FILE, write_null
     from .simulate import check_draws
     from .build import build_null, chunk_size, pooled_members, read_pedigrees
 
@@ -156,7 +156,7 @@ def run(args: argparse.Namespace) -> int:
     }
     with output_dir(args.out) as tmp:
         write_null(tmp / NULL_FILE, G_null, fits.populations, fits.traits, fits.draw_index, attrs)
-        write_json(tmp / "summary.json", summary)
+        write_json(tmp / SUMMARY_FILE, summary)
     log.info("wrote %s and summary.json to %s in %.1f s", NULL_FILE, args.out,
              time.perf_counter() - start)
     return 0

@@ -29,7 +29,6 @@ Random streams: replicate r of population p draws its records from
 
 from __future__ import annotations
 
-import importlib
 import logging
 import time
 from dataclasses import dataclass, field
@@ -40,6 +39,7 @@ import xarray as xr
 
 from ..errors import UserError
 from ..fit.data import FitData
+from ..fit.engine import get as get_engine
 from ..fit.prepare import standardise
 
 
@@ -79,7 +79,7 @@ class DesignParameters:
 
 
 def design_parameters(data: FitData, means: dict[str, Any]) -> DesignParameters:
-    """Posterior means of a fit (:func:`ped2g.posterior.posterior_means`) on ``data``'s design.
+    """Posterior means of a fit (:func:`ped2g.contracts.fit_folder.posterior_means`) on ``data``'s design.
 
     The fit reports fixed effects in original units, ``fixed[x, j] = s_j beta[x, j] / x_scale[x]``
     and the intercept ``c_j + s_j beta[0, j]`` (:mod:`ped2g.fit.outputs`), so the fixed part of
@@ -155,21 +155,23 @@ class Refitter:
                  log: logging.Logger | None = None):
         self.log = log or logging.getLogger("ped2g.null_refit")
         self.data = data
-        self.engine = importlib.import_module(f"ped2g.fit.{engine_name}")
+        self.engine = get_engine(engine_name)
         self.model_config = config["model"]
         refit = config["compare"]["null_model"]["refit"]
         self.sampling = {"sampler": "nutpie", "chains": int(refit["chains"]), "warmup": int(refit["warmup"]),
                          "draws": int(refit["draws"]), "seed": int(config["sampling"]["seed"]),
                          "target_accept": float(config["sampling"]["target_accept"])}
         self.model = None
+        self.built = None
         self.compiled = None
         self.compile_seconds = 0.0
         if self.engine.data_values(data, self.model_config):
             from ..fit import sample
 
             start = time.perf_counter()
-            self.model = self.engine.build_model(data, self.model_config)
-            self.compiled = sample.compile_nutpie(self.model, getattr(self.engine, "NUMBA_OPT_LEVEL", None))
+            self.built = self.engine.build(data, self.model_config)
+            self.model = self.built.model
+            self.compiled = sample.compile_nutpie(self.model, self.built.numba_opt_level)
             self.compile_seconds = time.perf_counter() - start
             self.log.info("compiled the %s engine's model once for every replicate in %.1f s",
                           engine_name, self.compile_seconds)
@@ -185,18 +187,15 @@ class Refitter:
 
         start = time.perf_counter()
         y, center, scale = standardise(Y)
-        new = self.engine.with_records(self.data, y, center, scale)
-        level = getattr(self.engine, "NUMBA_OPT_LEVEL", None)
-        options = getattr(self.engine, "NUTPIE_OPTIONS", None)
+        new = self.data.with_records(y, center, scale)
         if self.compiled is not None:
             compiled = self.compiled.with_data(**self.engine.data_values(new, self.model_config))
             run = sample.run(self.model, self.sampling, name, progress=False, compiled=compiled,
-                             nutpie_options=options, numba_opt_level=level)
+                             nutpie_options=self.built.nutpie_options, numba_opt_level=self.built.numba_opt_level)
         else:
-            model = self.engine.build_model(new, self.model_config)
-            extra = self.engine.extra_steps(model, new) if hasattr(self.engine, "extra_steps") else []
-            run = sample.run(model, self.sampling, name, progress=False, nutpie_options=options,
-                             extra_steps=extra, numba_opt_level=level)
+            built = self.engine.build(new, self.model_config)
+            run = sample.run(built.model, self.sampling, name, progress=False, nutpie_options=built.nutpie_options,
+                             extra_steps=built.extra_steps, numba_opt_level=built.numba_opt_level)
         core, extra = outputs.original_units(new, run.idata)
         t = self.data.n_traits
         lower = np.tril_indices(t)

@@ -65,9 +65,9 @@ def run(args: argparse.Namespace) -> int:
     from ..fit.command import load_pedigree
     from ..fit.prepare import prepare
     from ..io import get_logger, read_table
-    from ..posterior import load_fit, posterior_means
+    from ..contracts.fit_folder import load_fit, posterior_means
     from .refit import design_parameters, run_replicates, shared_G
-    from .refit_io import write_chunk
+    from ..contracts.refit_null import write_chunk
 
     log = get_logger("null_refit")
     start = time.perf_counter()

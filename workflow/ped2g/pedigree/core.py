@@ -13,8 +13,6 @@ from functools import cached_property
 import numpy as np
 import pandas as pd
 
-PEDIGREE_COLUMNS = ["id", "sire", "dam", "generation", "inbreeding"]
-
 
 def mendelian_coefficients(sire: np.ndarray, dam: np.ndarray, inbreeding: np.ndarray) -> np.ndarray:
     """Mendelian-sampling variance coefficients ``b_i`` (the diagonal of D in A = T D T').

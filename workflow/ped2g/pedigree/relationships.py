@@ -23,6 +23,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from .core import Pedigree, mendelian_coefficients
+from .recursion import down_kernel, up_kernel
 
 __all__ = [
     "inbreeding",
@@ -256,35 +257,17 @@ def _mark_ancestors(sire, dam, mark):  # pragma: no cover - compiled
     return mark
 
 
-@numba.njit(cache=True)
-def _tdt_columns(sire, dam, b, rhs):  # pragma: no cover - compiled
-    """Overwrite ``rhs`` (n, k) with ``T D T' rhs``.
-
-    ``x = T' rhs`` solves ``(I - P)' x = rhs`` youngest first; ``y = T (b x)`` solves
-    ``(I - P) y = b x`` oldest first.
-    """
-    n, k = rhs.shape
-    for i in range(n - 1, -1, -1):
-        s = sire[i]
-        d = dam[i]
-        for c in range(k):
-            v = 0.5 * rhs[i, c]
-            if v != 0.0:
-                if s >= 0:
-                    rhs[s, c] += v
-                if d >= 0:
-                    rhs[d, c] += v
-    for i in range(n):
-        s = sire[i]
-        d = dam[i]
-        bi = b[i]
-        for c in range(k):
-            v = bi * rhs[i, c]
-            if s >= 0:
-                v += 0.5 * rhs[s, c]
-            if d >= 0:
-                v += 0.5 * rhs[d, c]
-            rhs[i, c] = v
+def _tdt_columns(sire: np.ndarray, dam: np.ndarray, b: np.ndarray, rhs: np.ndarray) -> np.ndarray:
+    """Overwrite ``rhs`` (n, k) with ``T D T' rhs``: the pedigree's recursion up (``T'``), the
+    scaling by ``b`` and the recursion down (``T``), in place (:mod:`ped2g.pedigree.recursion`).
+    Parents are positions, -1 when unknown."""
+    n = len(sire)
+    s = np.where(sire >= 0, sire, n).astype(np.int64)
+    d = np.where(dam >= 0, dam, n).astype(np.int64)
+    batch = rhs.reshape((1, *rhs.shape))
+    up_kernel(batch, s, d)
+    batch *= b[None, :, None]
+    down_kernel(batch, s, d, batch)
     return rhs
 
 

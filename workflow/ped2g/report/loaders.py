@@ -1,8 +1,9 @@
 """Reading the other stages' outputs for the report: one function per input.
 
-The report is the last consumer of every stage's files, so this module is the one place that
-knows their names and columns. Column names that may still change are looked up through the
-alias tables below: a rename in another stage is a one-line edit here.
+The fit folders and the compare folder are read through their contracts
+(:mod:`ped2g.contracts.fit_folder`, :mod:`ped2g.contracts.compare_tables`), which refuse files whose
+columns are not the ones the stages write. This module only knows where the folders are and
+gives the comparison tables the report's names for their columns (:data:`REPORT_NAMES`).
 
 Required inputs (a missing one is a :class:`~ped2g.errors.UserError`): the results folder and one
 fit folder with ``posterior.nc`` per population. Everything else is optional: a missing file gives
@@ -20,71 +21,18 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ..contracts import compare_tables, fit_folder
+from ..contracts.breeding_value_null import NULL_FILE, SUMMARY_FILE as NULL_SUMMARY_FILE
 from ..errors import UserError
+from ..io import read_stage_csv
 
-# ---------------------------------------------------------------------------------------------
-# Column aliases: canonical name -> accepted names in the stage outputs, first match wins.
-# ---------------------------------------------------------------------------------------------
-COMPARE_COLUMNS: dict[str, list[str]] = {
-    "method": ["method"],
-    "statistic": ["statistic", "measure", "quantity"],
-    "population": ["population", "population1", "pop", "pop1"],
-    "population2": ["population2", "pop2", "other_population"],
-    "axis": ["axis", "index", "k", "component"],
-    "axis2": ["axis2", "trait"],
-    "estimate": ["estimate", "median", "mean", "observed", "value"],
-    "lower": ["hpd_lower", "lower", "hpd_low", "observed_hpd_lower"],
-    "upper": ["hpd_upper", "upper", "hpd_high", "observed_hpd_upper"],
-    "null_estimate": ["null_estimate", "null_median", "null_mean"],
-    "null_lower": ["null_hpd_lower", "null_lower", "null_hpd_low"],
-    "null_upper": ["null_hpd_upper", "null_upper", "null_hpd_high"],
-    "p_obs_gt_null": ["p_obs_gt_null", "prob_obs_gt_null", "p_greater"],
-    "overlap": ["hpd_overlap", "intervals_overlap"],
-    "description": ["description"],
-}
-#: Files in compare/ that are not per-method tables, read by their own loaders.
-COMPARE_AUX_FILES = {"references": "references.csv", "loadings": "loadings.csv",
-                     "draw_checks": "draw_checks.csv"}
-PARAMETER_COLUMNS: dict[str, list[str]] = {
-    "parameter": ["parameter", "name", "variable", "param"],
-    "r_hat": ["r_hat", "rhat", "R_hat"],
-    "ess_bulk": ["ess_bulk", "bulk_ess"],
-    "ess_tail": ["ess_tail", "tail_ess"],
-}
-CHANGE_COLUMNS: dict[str, list[str]] = {
-    "row": ["row", "line"],
-    "id": ["id", "animal"],
-    "problem": ["problem", "issue"],
-    "action": ["action", "fix"],
-}
-# Keys of diagnostics.json / summary.json read by name.
-DIVERGENCE_KEYS = ["divergences", "n_divergences", "divergent", "num_divergences"]
-#: Preferred order of the comparison methods in the report (others follow alphabetically).
-COMPARE_ORDER = ["skewers", "subspace", "tensor", "gmax", "evolvability", "dimensions", "distance"]
-
-
-def _rename(frame: pd.DataFrame, aliases: dict[str, list[str]]) -> pd.DataFrame:
-    """Rename the first present alias of each canonical column to its canonical name."""
-    mapping: dict[str, str] = {}
-    present = set(frame.columns)
-    for canonical, names in aliases.items():
-        if canonical in present:
-            continue
-        for name in names:
-            if name in present and name not in mapping:
-                mapping[name] = canonical
-                break
-    return frame.rename(columns=mapping)
-
-
-def _read_csv(path: Path, what: str) -> pd.DataFrame:
-    try:
-        return pd.read_csv(path, keep_default_na=True)
-    except pd.errors.EmptyDataError:
-        return pd.DataFrame()
-    except (pd.errors.ParserError, UnicodeDecodeError) as err:
-        raise UserError(f"{what} {path} is not a readable CSV table ({type(err).__name__}); "
-                        "rerun the stage that wrote it") from None
+#: The report's names for the comparison tables' columns: the median is the point estimate and
+#: the HPD interval the interval shown, for the observed statistic and the null alike.
+REPORT_NAMES = {"median": "estimate", "hpd_lower": "lower", "hpd_upper": "upper",
+                "null_median": "null_estimate", "null_hpd_lower": "null_lower",
+                "null_hpd_upper": "null_upper", "hpd_overlap": "overlap"}
+#: Columns of the pedigree stage's changes.csv.
+CHANGE_COLUMNS = ("row", "id", "problem", "action")
 
 
 def _read_json(path: Path, what: str) -> dict[str, Any] | None:
@@ -132,16 +80,16 @@ def fit_folders(root: Path, populations: list[str]) -> dict[str, Path]:
         out = {}
         for pop in populations:
             folder = fits / pop
-            if not (folder / "posterior.nc").is_file():
+            if not (folder / fit_folder.POSTERIOR_FILE).is_file():
                 raise UserError(f"config key 'populations' lists '{pop}' but {folder / 'posterior.nc'} "
                                 f"is missing; run 'ped2g fit' for population '{pop}' first")
             out[pop] = folder
         return out
     folders = [p for p in sorted(fits.iterdir()) if p.is_dir() and not p.name.startswith(".")]
-    unfinished = [p for p in folders if not (p / "posterior.nc").is_file()]
+    unfinished = [p for p in folders if not (p / fit_folder.POSTERIOR_FILE).is_file()]
     if unfinished:
         why = ("its diagnostics.json says why (a fit that misses the checks with "
-               "checks.on_failure: stop writes no posterior)" if (unfinished[0] / "diagnostics.json").is_file()
+               "checks.on_failure: stop writes no posterior)" if (unfinished[0] / fit_folder.DIAGNOSTICS_FILE).is_file()
                else "run 'ped2g fit' for it")
         raise UserError(f"fit folder {unfinished[0]} has no posterior.nc; {why}, or remove the folder "
                         "to report on the other populations")
@@ -155,54 +103,23 @@ def fit_folders(root: Path, populations: list[str]) -> dict[str, Path]:
 # One function per input
 # ---------------------------------------------------------------------------------------------
 def read_posterior(fit_dir: Path):
-    """The fit's ArviZ InferenceData (``posterior`` and, when present, ``sample_stats``).
-
-    Raises
-    ------
-    UserError
-        The file is not an ArviZ netCDF written by ped2g's fit stage.
-    """
-    import arviz as az
-
-    path = fit_dir / "posterior.nc"
-    try:
-        idata = az.from_netcdf(path)
-    except Exception:
-        raise UserError(f"fit {path} is not an ArviZ netCDF file written by ped2g's fit stage; "
-                        "rerun 'ped2g fit'") from None
-    post = getattr(idata, "posterior", None)
-    if post is None or any(name not in post for name in ("G", "R", "P")):
-        raise UserError(f"fit {path} has no posterior G, R and P; rerun 'ped2g fit'")
-    if post.attrs.get("ped2g_kind") not in (None, "fit"):
-        raise UserError(f"fit {path} was not written by ped2g's fit stage (ped2g_kind = "
-                        f"{post.attrs.get('ped2g_kind')!r})")
-    idata.posterior = post.load()
-    return idata
+    """The fit's ArviZ InferenceData (:func:`ped2g.contracts.fit_folder.read_inference_data`)."""
+    return fit_folder.read_inference_data(fit_dir)
 
 
 def read_parameters(fit_dir: Path) -> pd.DataFrame | None:
-    """``parameters.csv`` with canonical columns (parameter, r_hat, ess_bulk, ess_tail, ...)."""
-    path = fit_dir / "parameters.csv"
-    if not path.is_file():
-        return None
-    frame = _rename(_read_csv(path, "fit parameters"), PARAMETER_COLUMNS)
-    return frame if not frame.empty else None
+    """``parameters.csv`` (:func:`ped2g.contracts.fit_folder.read_parameters`)."""
+    return fit_folder.read_parameters(fit_dir)
 
 
 def read_fit_diagnostics(fit_dir: Path) -> dict[str, Any] | None:
     """``diagnostics.json`` of a fit, or None when absent."""
-    return _read_json(fit_dir / "diagnostics.json", "fit diagnostics")
+    return fit_folder.read_diagnostics(fit_dir)
 
 
 def read_pedigree_used(fit_dir: Path) -> pd.DataFrame | None:
-    """``pedigree_used.csv``: id, sire, dam, generation, inbreeding (and ``phenotyped`` if given)."""
-    path = fit_dir / "pedigree_used.csv"
-    if not path.is_file():
-        return None
-    frame = pd.read_csv(path, dtype={"id": str, "sire": str, "dam": str}, keep_default_na=False)
-    if "id" not in frame.columns:
-        raise UserError(f"pedigree {path} has no 'id' column; rerun 'ped2g fit'")
-    return frame
+    """``pedigree_used.csv``: id, sire, dam, generation, inbreeding and ``phenotyped``."""
+    return fit_folder.read_pedigree_used(fit_dir)
 
 
 def read_pedigree_summary(root: Path) -> dict[str, Any] | None:
@@ -211,74 +128,38 @@ def read_pedigree_summary(root: Path) -> dict[str, Any] | None:
 
 
 def read_pedigree_changes(root: Path) -> pd.DataFrame | None:
-    """``pedigree/changes.csv`` with canonical columns (row, id, problem, action), or None."""
+    """``pedigree/changes.csv`` (row, id, problem, action), or None."""
     path = root / "pedigree" / "changes.csv"
     if not path.is_file():
         return None
-    return _rename(_read_csv(path, "pedigree changes"), CHANGE_COLUMNS)
+    frame = read_stage_csv(path, "pedigree changes")
+    absent = [c for c in CHANGE_COLUMNS if c not in frame.columns]
+    if absent and not frame.empty:
+        raise UserError(f"pedigree changes {path} has no column {', '.join(absent)}; rerun 'ped2g pedigree'")
+    return frame
 
 
 def read_null_summary(root: Path) -> dict[str, Any] | None:
     """``null/summary.json``, or None when the null stage has not run."""
-    return _read_json(root / "null" / "summary.json", "null summary")
+    return _read_json(root / "null" / NULL_SUMMARY_FILE, "null summary")
 
 
 def read_compare_tables(root: Path) -> dict[str, pd.DataFrame]:
-    """Every ``compare/*.csv`` with canonical columns, keyed by method (file stem).
-
-    Methods come in the order of :data:`COMPARE_ORDER`, then alphabetically.
-    """
-    folder = root / "compare"
-    if not folder.is_dir():
-        return {}
-    tables = {}
-    for path in folder.glob("*.csv"):
-        if path.name in COMPARE_AUX_FILES.values():
-            continue
-        frame = _rename(_read_csv(path, "comparison table"), COMPARE_COLUMNS)
-        if frame.empty:
-            continue
-        if "estimate" not in frame.columns:
-            have = ", ".join(map(str, frame.columns))
-            raise UserError(f"comparison table {path} has no estimate column (one of "
-                            f"{', '.join(COMPARE_COLUMNS['estimate'])}; columns are: {have}); "
-                            "rerun 'ped2g compare'")
-        if "statistic" not in frame.columns:
-            frame["statistic"] = path.stem
-        if "method" not in frame.columns:
-            frame["method"] = path.stem
-        tables[path.stem] = frame
-
-    def order(name: str) -> tuple[int, str]:
-        return (COMPARE_ORDER.index(name) if name in COMPARE_ORDER else len(COMPARE_ORDER), name)
-
-    return {name: tables[name] for name in sorted(tables, key=order)}
+    """Every method table of ``compare/`` (:func:`ped2g.contracts.compare_tables.read_tables`:
+    the methods in their order), columns renamed to the report's names (:data:`REPORT_NAMES`)."""
+    tables = compare_tables.read_tables(root / "compare")
+    return {name: frame.rename(columns=REPORT_NAMES) for name, frame in tables.items()}
 
 
 def read_compare_extras(root: Path) -> dict[str, Any]:
     """The compare stage's other outputs: ``references``, ``loadings``, ``draw_checks`` (tables)
     and ``summary`` (``compare/summary.json``); each None when absent."""
-    folder = root / "compare"
-    out: dict[str, Any] = {}
-    for key, name in COMPARE_AUX_FILES.items():
-        path = folder / name
-        out[key] = _read_csv(path, "comparison table") if path.is_file() else None
-    out["summary"] = _read_json(folder / "summary.json", "comparison summary")
-    return out
+    return compare_tables.read_extras(root / "compare")
 
 
 def read_compare_draws(root: Path):
     """``compare/draws.nc`` (every per-draw statistic, observed and ``null_``), or None."""
-    import xarray as xr
-
-    path = root / "compare" / "draws.nc"
-    if not path.is_file():
-        return None
-    try:
-        with xr.open_dataset(path, engine="h5netcdf") as ds:
-            return ds.load()
-    except Exception:
-        raise UserError(f"comparison draws {path} is not a readable netCDF file; rerun 'ped2g compare'") from None
+    return compare_tables.read_draws(root / "compare")
 
 
 def read_phenotypes(path: str | os.PathLike, population_column: str,
@@ -317,20 +198,28 @@ class FitInputs:
         return [str(t) for t in self.idata.posterior["trait"].values]
 
     def divergences(self) -> int | None:
-        """Divergent transitions: from diagnostics.json (top level, or its ``checks`` or ``sampling``
-        record), else from ``sample_stats.diverging``."""
-        records = [self.diagnostics or {}]
-        records += [v for k, v in (self.diagnostics or {}).items() if k in ("checks", "sampling")
-                    and isinstance(v, dict)]
-        for record in records:
-            for key in DIVERGENCE_KEYS:
-                value = record.get(key)
-                if isinstance(value, (int, float)) and not isinstance(value, bool):
-                    return int(value)
+        """Divergent transitions: from diagnostics.json (its ``checks`` record, else its
+        ``sampling`` record), else from ``sample_stats.diverging``."""
+        for key in ("checks", "sampling"):
+            value = (self.diagnostics or {}).get(key, {}).get("divergences")
+            if isinstance(value, (int, float)) and not isinstance(value, bool):
+                return int(value)
         stats = getattr(self.idata, "sample_stats", None)
         if stats is not None and "diverging" in stats:
             return int(np.asarray(stats["diverging"].values).sum())
         return None
+
+    @property
+    def missing_values(self) -> str | None:
+        """How the fit handled missing trait values (diagnostics.json ``missing_values``: none,
+        gibbs, nuts or masked), or None when the fit did not record it."""
+        return (self.diagnostics or {}).get("missing_values")
+
+    @property
+    def checks_passed(self) -> bool | None:
+        """The fit's own convergence verdict (diagnostics.json ``checks.passed``), or None."""
+        value = (self.diagnostics or {}).get("checks", {}).get("passed")
+        return None if value is None else bool(value)
 
 
 @dataclass
@@ -369,18 +258,18 @@ def read_results(results: str | os.PathLike, populations: list[str]) -> ResultIn
                             "population on the same traits")
     candidates = [root / "pedigree" / n for n in ("pedigree.csv", "changes.csv", "summary.json")]
     for fit in fits.values():
-        candidates += [fit.path / n for n in ("posterior.nc", "parameters.csv", "diagnostics.json",
-                                              "pedigree_used.csv")]
-    candidates += [root / "null" / n for n in ("null_G.nc", "summary.json")]
+        candidates += [fit.path / n for n in (fit_folder.POSTERIOR_FILE, fit_folder.PARAMETERS_FILE,
+                                              fit_folder.DIAGNOSTICS_FILE, fit_folder.PEDIGREE_USED_FILE)]
+    candidates += [root / "null" / n for n in (NULL_FILE, NULL_SUMMARY_FILE)]
     compare_dir = root / "compare"
     if compare_dir.is_dir():
-        candidates += sorted(compare_dir.glob("*.csv")) + [compare_dir / "draws.nc",
-                                                           compare_dir / "summary.json"]
+        candidates += sorted(compare_dir.glob("*.csv")) + [compare_dir / compare_tables.DRAWS_FILE,
+                                                           compare_dir / compare_tables.SUMMARY_FILE]
     return ResultInputs(root=root, fits=fits,
                         pedigree_summary=read_pedigree_summary(root),
                         pedigree_changes=read_pedigree_changes(root),
                         null_summary=read_null_summary(root),
-                        null_present=(root / "null" / "null_G.nc").is_file(),
+                        null_present=(root / "null" / NULL_FILE).is_file(),
                         compare=read_compare_tables(root),
                         compare_extras=read_compare_extras(root),
                         files_read=[p for p in candidates if p.is_file()])

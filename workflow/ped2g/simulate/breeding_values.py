@@ -16,10 +16,9 @@ where A is the additive relationship matrix including inbreeding (A = T D T', D 
 Mrode 2014, p. 25). Stacking trait-major, ``vec(U) = U.ravel(order="F")`` has covariance
 ``G ⊗ A`` (``numpy.kron(G, A)``); animal-major, ``U.ravel()`` has covariance ``A ⊗ G``.
 
-The recursion loops over generations only (parents of generation g are all in earlier
-generations), vectorised over the animals of a generation, the draws and the traits. Memory is
-that of the result, ``S · n · t · 8`` bytes (twice that when the Mendelian deviations are
-returned); call it on chunks of draws to bound it.
+The recursion is the pedigree's one pass down (:func:`ped2g.pedigree.recursion.down`), in place
+on the Mendelian deviations. Memory is that of the result, ``S · n · t · 8`` bytes (twice that
+when the Mendelian deviations are returned); call it on chunks of draws to bound it.
 
 Assumptions: an infinitesimal additive model (many loci of small effect, no dominance or
 epistasis), a base population of unrelated, non-inbred founders whose breeding values have
@@ -34,6 +33,7 @@ from numpy.typing import ArrayLike
 
 from ..errors import UserError
 from ..pedigree.core import Pedigree
+from ..pedigree.recursion import down
 
 __all__ = ["covariance_factor", "simulate_breeding_values"]
 
@@ -145,7 +145,7 @@ def simulate_breeding_values(
     -----
     The random numbers are drawn as one ``rng.standard_normal((S, n, t))`` block, so the same
     generator state gives the same values whatever G is; for ``G' = c G`` the result is exactly
-    ``sqrt(c)`` times the result for G. Cost: one matrix product and one gather per generation.
+    ``sqrt(c)`` times the result for G. Cost: one matrix product and one pass down the pedigree.
     """
     G = _as_covariance(G, "covariance matrix G")
     if G.ndim == 2:
@@ -169,28 +169,15 @@ def simulate_breeding_values(
     # φ = sqrt(b) · z L'  (each row z_i ~ N(0, I) becomes L z_i ~ N(0, G)).
     phi = np.matmul(z, np.swapaxes(L, -1, -2), out=z)
     phi *= np.sqrt(b)[None, :, None]
-    U = phi.copy() if return_mendelian else phi
-    sire = np.asarray(ped.sire, dtype=np.int64)
-    dam = np.asarray(ped.dam, dtype=np.int64)
     gen = np.asarray(ped.generation)
-    for parent in (sire, dam):
+    for parent in (np.asarray(ped.sire, dtype=np.int64), np.asarray(ped.dam, dtype=np.int64)):
         known = np.flatnonzero(parent >= 0)
         late = known[gen[parent[known]] >= gen[known]]
         if late.size:
             raise UserError(
                 f"pedigree generation numbers are inconsistent: animal {ped.ids[late[0]]} is not in "
                 "a later generation than its parent; rebuild the pedigree with 'ped2g pedigree'")
-    for members in ped.generations[1:]:
-        # Parents are all in earlier generations, so their values are final here. Animals with
-        # both parents known take one gather-add-scatter (a third faster than one per parent).
-        s, d = sire[members], dam[members]
-        both = (s >= 0) & (d >= 0)
-        if np.any(both):
-            U[:, members[both]] += 0.5 * (U[:, s[both]] + U[:, d[both]])
-        for parent in (s, d):
-            one = ~both & (parent >= 0)
-            if np.any(one):
-                U[:, members[one]] += 0.5 * U[:, parent[one]]
+    U = down(ped, phi, in_place=not return_mendelian)
     if return_mendelian:
         return U, phi
     return U

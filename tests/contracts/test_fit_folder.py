@@ -1,4 +1,4 @@
-"""The posterior.nc contract between the fit stage and later stages (ped2g.posterior)."""
+"""The fit-folder contract between the fit stage and later stages (ped2g.contracts.fit_folder)."""
 
 import arviz as az
 import numpy as np
@@ -6,7 +6,7 @@ import pandas as pd
 import pytest
 
 from ped2g.errors import UserError
-from ped2g.posterior import (derived_from_covariances, load_fit, load_fit_set,
+from ped2g.contracts.fit_folder import (derived_from_covariances, load_fit, load_fit_set,
                              posterior_dataset, thin_indices)
 
 

@@ -1,24 +1,26 @@
-"""Writing and reading ``null_G.nc``, the randomisation null's G draws.
+"""The breeding-value null: ``null_G.nc``, the randomisation null's G draws (``ped2g null``).
 
 The file is an xarray Dataset in netCDF-4 (engine ``h5netcdf``) with
 
 * variable ``G`` of dims ``(draw, population, trait, trait2)``, original units: draw ``s`` of
   dummy population ``j`` estimated from breeding values simulated with the observed draw ``s``;
 * variable ``draw_index`` of dim ``draw``: the pooled observed draw of every fit each null draw
-  belongs to (as :attr:`ped2g.posterior.FitSet.draw_index`);
+  belongs to (as :attr:`ped2g.contracts.fit_folder.FitSet.draw_index`);
 * coordinates ``population`` (the dummy populations carry the names and sizes of the observed
   ones), ``trait`` and ``trait2``;
 * attributes ``ped2g_kind = "null"``, ``ped2g_version``, ``estimator``, ``estimator_reason``,
   ``seed`` and the counts of observed draws that were not positive definite.
 
-Later stages read it only through :func:`read_null`, which refuses any other file.
+``ped2g null`` also writes ``summary.json`` (:data:`SUMMARY_FILE`) beside it. Later stages read
+the draws only through :func:`read_null`, which refuses any other file and returns a
+:class:`BreedingValueNull`; :func:`null_dataset` is the writer's check.
 """
 
 from __future__ import annotations
 
 import os
 from pathlib import Path
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 import xarray as xr
@@ -28,7 +30,29 @@ from ..errors import UserError
 
 NULL_KIND = "null"
 NULL_FILE = "null_G.nc"
+SUMMARY_FILE = "summary.json"
 DIMS = ("draw", "population", "trait", "trait2")
+
+
+class BreedingValueNull(NamedTuple):
+    """The breeding-value null as read from ``null_G.nc``.
+
+    Attributes
+    ----------
+    G : numpy.ndarray, shape (S, m, t, t)
+        Null G draws, original units.
+    populations, traits : list of str
+    draw_index : numpy.ndarray of int, shape (S,)
+        The pooled observed draw each null draw belongs to.
+    attrs : dict
+        The file's attributes (``estimator``, ``estimator_reason``, ``seed``, ...).
+    """
+
+    G: np.ndarray
+    populations: list[str]
+    traits: list[str]
+    draw_index: np.ndarray
+    attrs: dict[str, Any]
 
 
 def null_dataset(G: np.ndarray, populations: list[str], traits: list[str], draw_index: np.ndarray,
@@ -86,22 +110,13 @@ def write_null(path: str | os.PathLike, G: np.ndarray, populations: list[str], t
     return path
 
 
-def read_null(path: str | os.PathLike) -> tuple[np.ndarray, list[str], list[str], np.ndarray, dict[str, Any]]:
+def read_null(path: str | os.PathLike) -> BreedingValueNull:
     """Read a ``null_G.nc`` written by ``ped2g null``.
 
     Parameters
     ----------
     path
         The file, or the folder holding ``null_G.nc``.
-
-    Returns
-    -------
-    G : numpy.ndarray, shape (S, m, t, t)
-    populations : list of str
-    traits : list of str
-    draw_index : numpy.ndarray of int, shape (S,)
-    attrs : dict
-        The file's attributes (``estimator``, ``estimator_reason``, ``seed``, ...).
 
     Raises
     ------
@@ -128,4 +143,5 @@ def read_null(path: str | os.PathLike) -> tuple[np.ndarray, list[str], list[str]
     populations = [str(p) for p in ds["population"].values]
     traits = [str(t) for t in ds["trait"].values]
     draw_index = np.asarray(ds["draw_index"].values, dtype=np.int64)
-    return G, populations, traits, draw_index, dict(ds.attrs)
+    return BreedingValueNull(G=G, populations=populations, traits=traits, draw_index=draw_index,
+                             attrs=dict(ds.attrs))

@@ -1,30 +1,66 @@
-"""The contract between the fit stage and the stages after it: ``posterior.nc``.
+"""The fit folder: what ``ped2g fit`` writes for one population and every later stage reads.
 
-A fit folder holds ``posterior.nc`` (ArviZ InferenceData netCDF) and ``pedigree_used.csv``.
-Its ``posterior`` group has dimensions ``chain, draw`` first, coordinate ``trait`` (and ``trait2``
-for the second axis of a matrix) and the variables ``G``, ``R``, ``P`` (trait, trait2), ``h2``
-(trait), ``rg`` (trait, trait2) and ``mean`` (trait, the population mean in original units),
-plus fixed effects and the covariance matrix of each extra random effect. Its attributes name
-the population, the traits and the ped2g version (``ped2g_population``, ``ped2g_traits``,
-``ped2g_version``, ``ped2g_kind = "fit"``).
+Files (:data:`POSTERIOR_FILE` and the other names below):
 
-Later stages read fits only through :func:`load_fit`, which checks that a file is ped2g's.
+``posterior.nc``
+    ArviZ InferenceData netCDF. Its ``posterior`` group has dimensions ``chain, draw`` first,
+    coordinate ``trait`` (and ``trait2`` for the second axis of a matrix) and the variables
+    :data:`POSTERIOR_VARIABLES`: ``G``, ``R``, ``P``, ``rg`` (trait, trait2), ``h2`` and ``mean``
+    (trait; the population mean in original units), plus ``fixed`` (effect, trait) and
+    ``cov_<name>`` (trait, trait2) per extra random effect. Its attributes name the population,
+    the traits and the ped2g version (``ped2g_population``, ``ped2g_traits``, ``ped2g_version``,
+    ``ped2g_kind = "fit"``). A ``sample_stats`` group holds the sampler's statistics.
+``parameters.csv``
+    One row per scalar, columns :data:`PARAMETER_COLUMNS`.
+``diagnostics.json``
+    At least the keys :data:`DIAGNOSTICS_KEYS`; ``missing_values`` says how missing trait values
+    were handled (``none``, ``gibbs``, ``nuts`` or ``masked``) and ``checks.passed`` is the
+    convergence verdict.
+``pedigree_used.csv``
+    The pruned pedigree (``id``, ``sire``, ``dam``, ...) with a ``phenotyped`` 0/1 column.
+``breeding_values.csv``, ``breeding_values.nc``
+    Breeding-value summaries (every draw in the .nc, only with ``model.save_breeding_values``).
+
+A fit that misses its checks under ``checks.on_failure: stop`` leaves only ``parameters.csv``
+and ``diagnostics.json`` (:data:`STOPPED_FILES`). The writer checks a finished folder with
+:func:`check_fit_folder`; later stages read it only through the readers here.
 """
 
 from __future__ import annotations
 
+import json
 import os
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import xarray as xr
 
-from . import __version__
-from .errors import UserError
+from .. import __version__
+from ..errors import UserError
+from ..io import read_stage_csv
 
 FIT_KIND = "fit"
 MATRIX_DIMS = ("trait", "trait2")
+POSTERIOR_FILE = "posterior.nc"
+PARAMETERS_FILE = "parameters.csv"
+DIAGNOSTICS_FILE = "diagnostics.json"
+PEDIGREE_USED_FILE = "pedigree_used.csv"
+BREEDING_VALUES_FILE = "breeding_values.csv"
+BREEDING_VALUE_DRAWS_FILE = "breeding_values.nc"
+#: Files of a fit that stopped on missed checks; a finished fit adds :data:`FINISHED_FILES`.
+STOPPED_FILES = (PARAMETERS_FILE, DIAGNOSTICS_FILE)
+FINISHED_FILES = (POSTERIOR_FILE, BREEDING_VALUES_FILE, PEDIGREE_USED_FILE)
+#: Variables of the ``posterior`` group and their dimensions after ``chain, draw``.
+POSTERIOR_VARIABLES = {"G": MATRIX_DIMS, "R": MATRIX_DIMS, "P": MATRIX_DIMS, "rg": MATRIX_DIMS,
+                       "h2": ("trait",), "mean": ("trait",)}
+PARAMETER_COLUMNS = ("parameter", "quantity", "mean", "sd", "hpd_lower", "hpd_upper", "ess_bulk",
+                     "ess_tail", "r_hat", "fixed")
+DIAGNOSTICS_KEYS = ("population", "traits", "engine", "engine_reason", "missing_values", "sampling",
+                    "checks", "on_failure")
+#: How a fit handled missing trait values (``diagnostics.json``, key ``missing_values``).
+MISSING_VALUE_MODES = ("none", "gibbs", "nuts", "masked")
 
 
 def derived_from_covariances(G: np.ndarray, P: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -74,6 +110,47 @@ def posterior_dataset(population: str, traits: list[str], G: np.ndarray, R: np.n
     return ds
 
 
+def check_fit_folder(folder: str | os.PathLike, stopped: bool = False) -> None:
+    """The writer's check of a fit folder before it is published (``stopped``: the fit missed its
+    checks and keeps only :data:`STOPPED_FILES`).
+
+    Raises
+    ------
+    ValueError
+        A file missing, a variable or column missing or with other dimensions, a diagnostics key
+        missing: a fault of the writer, not of the user's data.
+    """
+    folder = Path(folder)
+    names = STOPPED_FILES if stopped else STOPPED_FILES + FINISHED_FILES
+    absent = [n for n in names if not (folder / n).is_file()]
+    if absent:
+        raise ValueError(f"fit folder {folder} lacks {', '.join(absent)}")
+    import pandas as pd
+
+    columns = list(pd.read_csv(folder / PARAMETERS_FILE, nrows=0).columns)
+    if columns != list(PARAMETER_COLUMNS):
+        raise ValueError(f"{folder / PARAMETERS_FILE} has columns {columns}, the contract {list(PARAMETER_COLUMNS)}")
+    diagnostics = json.loads((folder / DIAGNOSTICS_FILE).read_text(encoding="utf-8"))
+    lacking = [k for k in DIAGNOSTICS_KEYS if k not in diagnostics]
+    if lacking or "passed" not in diagnostics["checks"]:
+        raise ValueError(f"{folder / DIAGNOSTICS_FILE} lacks {', '.join(lacking) or 'checks.passed'}")
+    if diagnostics["missing_values"] not in MISSING_VALUE_MODES:
+        raise ValueError(f"{folder / DIAGNOSTICS_FILE}: missing_values {diagnostics['missing_values']!r} "
+                         f"is not one of {MISSING_VALUE_MODES}")
+    if stopped:
+        return
+    with xr.open_dataset(folder / POSTERIOR_FILE, group="posterior", engine="h5netcdf") as post:
+        for name, dims in POSTERIOR_VARIABLES.items():
+            if name not in post or tuple(post[name].dims) != ("chain", "draw", *dims):
+                raise ValueError(f"{folder / POSTERIOR_FILE}: variable {name} missing or not of dims "
+                                 f"{('chain', 'draw', *dims)}")
+        if post.attrs.get("ped2g_kind") != FIT_KIND:
+            raise ValueError(f"{folder / POSTERIOR_FILE} has no ped2g_kind = {FIT_KIND!r}")
+    used = pd.read_csv(folder / PEDIGREE_USED_FILE, nrows=0).columns
+    if not {"id", "sire", "dam", "phenotyped"} <= set(used):
+        raise ValueError(f"{folder / PEDIGREE_USED_FILE} lacks id, sire, dam or phenotyped")
+
+
 @dataclass
 class Fit:
     """What later stages need from one population's fit.
@@ -118,8 +195,8 @@ def load_fit(fit_dir: str | os.PathLike) -> Fit:
     import pandas as pd
 
     fit_dir = Path(fit_dir)
-    nc = fit_dir / "posterior.nc" if fit_dir.is_dir() else fit_dir
-    if nc.name == "posterior.nc":
+    nc = fit_dir / POSTERIOR_FILE if fit_dir.is_dir() else fit_dir
+    if nc.name == POSTERIOR_FILE:
         fit_dir = nc.parent
     if not nc.is_file():
         raise UserError(f"fit {fit_dir}: no posterior.nc there; run 'ped2g fit' for it first")
@@ -136,7 +213,7 @@ def load_fit(fit_dir: str | os.PathLike) -> Fit:
         arr = stacked[name]
         return np.moveaxis(arr.values, -1, 0)
 
-    ped_used = fit_dir / "pedigree_used.csv"
+    ped_used = fit_dir / PEDIGREE_USED_FILE
     if not ped_used.is_file():
         raise UserError(f"fit {fit_dir}: pedigree_used.csv is missing; rerun 'ped2g fit'")
     used = pd.read_csv(ped_used, dtype=str, keep_default_na=False)
@@ -156,7 +233,7 @@ def posterior_means(fit_dir: str | os.PathLike) -> dict[str, xr.DataArray]:
     """
     fit_dir = Path(fit_dir)
     load_fit(fit_dir)   # the checks, with their one-line errors
-    nc = fit_dir / "posterior.nc" if fit_dir.is_dir() else fit_dir
+    nc = fit_dir / POSTERIOR_FILE if fit_dir.is_dir() else fit_dir
     with xr.open_dataset(nc, group="posterior", engine="h5netcdf") as post:
         return {str(name): post[name].mean(("chain", "draw")).load() for name in post.data_vars}
 
@@ -232,3 +309,82 @@ def load_fit_set(fit_dirs: list[str | os.PathLike], max_draws: int | None = None
     return FitSet(populations=[f.population for f in fits], traits=list(first.traits),
                   G=0.5 * (G + np.swapaxes(G, -1, -2)), R=stack("R"), P=stack("P"),
                   mean=stack("mean"), draw_index=index, fits=fits)
+
+
+def read_inference_data(fit_dir: str | os.PathLike):
+    """The fit's ArviZ InferenceData (``posterior`` loaded and, when present, ``sample_stats``).
+
+    Raises
+    ------
+    UserError
+        The file is not an ArviZ netCDF written by ped2g's fit stage.
+    """
+    import arviz as az
+
+    path = Path(fit_dir) / POSTERIOR_FILE
+    try:
+        idata = az.from_netcdf(path)
+    except Exception:
+        raise UserError(f"fit {path} is not an ArviZ netCDF file written by ped2g's fit stage; "
+                        "rerun 'ped2g fit'") from None
+    post = getattr(idata, "posterior", None)
+    if post is None or any(name not in post for name in ("G", "R", "P")):
+        raise UserError(f"fit {path} has no posterior G, R and P; rerun 'ped2g fit'")
+    if post.attrs.get("ped2g_kind") not in (None, FIT_KIND):
+        raise UserError(f"fit {path} was not written by ped2g's fit stage (ped2g_kind = "
+                        f"{post.attrs.get('ped2g_kind')!r})")
+    idata.posterior = post.load()
+    return idata
+
+
+def read_diagnostics(fit_dir: str | os.PathLike) -> dict[str, Any] | None:
+    """``diagnostics.json`` of a fit, or None when absent.
+
+    Raises
+    ------
+    UserError
+        The file is not a JSON object.
+    """
+    path = Path(fit_dir) / DIAGNOSTICS_FILE
+    if not path.is_file():
+        return None
+    try:
+        data = json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as err:
+        raise UserError(f"fit diagnostics {path} is not valid JSON ({err}); rerun 'ped2g fit'") from None
+    if not isinstance(data, dict):
+        raise UserError(f"fit diagnostics {path} should hold a JSON object; rerun 'ped2g fit'")
+    return data
+
+
+def read_parameters(fit_dir: str | os.PathLike):
+    """``parameters.csv`` (columns :data:`PARAMETER_COLUMNS`), or None when absent or empty.
+
+    Raises
+    ------
+    UserError
+        The table is not readable or lacks a column of the contract.
+    """
+    path = Path(fit_dir) / PARAMETERS_FILE
+    if not path.is_file():
+        return None
+    frame = read_stage_csv(path, "fit parameters")
+    if frame.empty:
+        return None
+    absent = [c for c in PARAMETER_COLUMNS if c not in frame.columns]
+    if absent:
+        raise UserError(f"fit parameters {path} has no column {', '.join(absent)}; rerun 'ped2g fit'")
+    return frame
+
+
+def read_pedigree_used(fit_dir: str | os.PathLike):
+    """``pedigree_used.csv`` (id, sire, dam, generation, inbreeding, phenotyped), or None."""
+    import pandas as pd
+
+    path = Path(fit_dir) / PEDIGREE_USED_FILE
+    if not path.is_file():
+        return None
+    frame = pd.read_csv(path, dtype={"id": str, "sire": str, "dam": str}, keep_default_na=False)
+    if "id" not in frame.columns:
+        raise UserError(f"pedigree {path} has no 'id' column; rerun 'ped2g fit'")
+    return frame

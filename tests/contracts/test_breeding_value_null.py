@@ -5,7 +5,7 @@ import pytest
 import xarray as xr
 
 from ped2g.errors import UserError
-from ped2g.null.io import NULL_FILE, read_null, write_null
+from ped2g.contracts.breeding_value_null import NULL_FILE, read_null, write_null
 
 
 def _draws(rng, S=5, m=3, t=2):
@@ -50,7 +50,7 @@ def test_other_netcdf_is_refused(tmp_path):
 
 
 def test_wrong_shapes_are_programming_errors():
-    from ped2g.null.io import null_dataset
+    from ped2g.contracts.breeding_value_null import null_dataset
 
     with pytest.raises(ValueError, match="draw_index"):
         null_dataset(np.zeros((4, 2, 2, 2)), ["a", "b"], ["x", "y"], np.arange(3))

@@ -1,4 +1,4 @@
-"""Writing and reading the refitting null's files (one per population and chunk of replicates).
+"""The refitting null: one file per population and chunk of replicates (``ped2g null-refit``).
 
 A file (netCDF-4, engine ``h5netcdf``) holds, for one population and replicates ``r`` of one chunk:
 
@@ -36,8 +36,19 @@ DIAGNOSTICS = ("rhat_max", "ess_bulk_min", "ess_tail_min", "divergences", "secon
 
 def write_chunk(path: str | os.PathLike, population: str, traits: list[str], replicates: list[int],
                 results: list, attrs: dict[str, Any]) -> Path:
-    """Write one chunk (``results``: :class:`ped2g.null.refit.Replicate` per replicate number)."""
+    """Write one chunk (``results``: :class:`ped2g.null.refit.Replicate` per replicate number).
+
+    The writer's check: one result per replicate number, every draw array of the shape its
+    dimensions say (ValueError otherwise).
+    """
     path = Path(path)
+    t = len(traits)
+    if len(results) != len(replicates):
+        raise ValueError(f"{len(results)} refits for {len(replicates)} replicate numbers")
+    for r in results:
+        if r.G.ndim != 3 or r.G.shape[1:] != (t, t) or r.P.shape != r.G.shape or r.mean.shape != r.G.shape[:2]:
+            raise ValueError(f"refit draws of shapes G {r.G.shape}, P {r.P.shape}, mean {r.mean.shape} "
+                             f"do not fit {t} traits")
     mdims = ("replicate", "draw", "trait", "trait2")
     ds = xr.Dataset(
         {"G": (mdims, np.stack([r.G for r in results])),
