@@ -217,7 +217,7 @@ def build_report(config: dict[str, Any], results: str | Path, out: str | Path,
                           if f.diagnostics and f.diagnostics.get("engine")})
         sampling = [f.diagnostics.get("sampling") or {} for f in inputs.fits.values() if f.diagnostics]
         samplers = sorted({str(x["sampler"]) for x in sampling if x.get("sampler")})
-        missing_by_gibbs = any("MissingValueStep" in (x.get("compound_steps") or []) for x in sampling)
+        missing_by_gibbs = any(f.missing_values == "gibbs" for f in inputs.fits.values())
         n_changes = None if inputs.pedigree_changes is None else len(inputs.pedigree_changes)
         paragraph, refs = methods_paragraph(config, pops, traits, engines, n_changes,
                                             passed=len(pops) - len(failed),

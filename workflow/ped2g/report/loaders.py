@@ -276,24 +276,19 @@ def read_results(results: str | os.PathLike, populations: list[str]) -> ResultIn
 
 
 def read_compare_as_written(root: Path) -> dict[str, pd.DataFrame]:
-    """Every per-method ``compare/*.csv`` with the compare stage's own column names (no aliases),
-    in the order of :func:`read_compare_tables`; the report's tables keep these names."""
-    folder = root / "compare"
-    if not folder.is_dir():
+    """Every non-empty per-method ``compare/*.csv`` with the compare stage's own column names, in
+    the methods' order (:func:`ped2g.contracts.compare_tables.read_tables`); the report's tables
+    keep these names."""
+    if not (root / "compare").is_dir():
         return {}
-    order = list(read_compare_tables(root))
-    out = {}
-    for name in order:
-        frame = _read_csv(folder / f"{name}.csv", "comparison table")
-        if not frame.empty:
-            out[name] = frame
-    return out
+    return {name: frame for name, frame in compare_tables.read_tables(root / "compare").items()
+            if not frame.empty}
 
 
 def read_refit_null(root: Path, populations: list[str], traits: list[str]):
     """The refitting null's replicates (``null/refits/``) through
-    :func:`ped2g.null.refit_io.read_refits`, or None when that folder is absent."""
-    from ..null.refit_io import read_refits
+    :func:`ped2g.contracts.refit_null.read_refits`, or None when that folder is absent."""
+    from ..contracts.refit_null import read_refits
 
     folder = root / "null" / "refits"
     if not folder.is_dir() or not any(folder.rglob("*.nc")):

@@ -207,7 +207,7 @@ def diagnostics(inputs: ResultInputs, checks: dict[str, Any]) -> tuple[pd.DataFr
     -------
     summary
         population, chains, draws, max_r_hat, min_ess_bulk, min_ess_tail, divergences, misses,
-        passed.
+        passed (the fit's verdict from diagnostics.json when it recorded one).
     detail
         population, parameter, r_hat, ess_bulk, ess_tail, miss (which checks it misses).
     sources
@@ -240,7 +240,9 @@ def diagnostics(inputs: ResultInputs, checks: dict[str, Any]) -> tuple[pd.DataFr
             "max_r_hat": float(np.nanmax(table["r_hat"])) if len(table) else float("nan"),
             "min_ess_bulk": float(np.nanmin(table["ess_bulk"])) if len(table) else float("nan"),
             "min_ess_tail": float(np.nanmin(table["ess_tail"])) if len(table) else float("nan"),
-            "divergences": div, "misses": misses, "passed": misses == 0 and div is not None,
+            "divergences": div, "misses": misses,
+            # the fit's own verdict (diagnostics.json); worked out here only for a fit without one
+            "passed": fit.checks_passed if fit.checks_passed is not None else (misses == 0 and div is not None),
         })
     return pd.DataFrame(summaries), pd.concat(details, ignore_index=True), sources
 
