@@ -64,7 +64,7 @@ def test_compare_refuses_fewer_replicates_than_the_rule_needs():
     config = validate({"traits": traits, "compare": {"skewers": 20}})
     with pytest.raises(UserError) as err:
         compare(fits, None, config, refits=null)
-    assert "needs at least 60" in str(err.value) and "compare.null_model.replicates" in str(err.value)
+    assert "needs at least 59" in str(err.value) and "compare.null_model.replicates" in str(err.value)
     # with enough replicates every pairwise row gets a p-value
     result = compare(fits, None, config, refits=null, check_replicates=False)
     dist = result.tables["distance"]

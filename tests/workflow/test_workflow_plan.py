@@ -200,10 +200,10 @@ def _fake_finished_run(folder: Path, populations: list[str]) -> None:
     ({}, {}),
     ({"compare": {"skewers": 80}}, {"compare": 1, "report": 1, "all": 1}),
     # the breeding-value null's estimator is not read by the refitting null
-    ({"compare": {"null_model": {"estimator": "sample", "replicates": 40, "replicates_per_job": 40,
+    ({"compare": {"null_model": {"estimator": "sample", "replicates": 39, "replicates_per_job": 39,
                                  "refit": {"chains": 1, "warmup": 100, "draws": 100}}}},
      {"compare": 1, "report": 1, "all": 1}),
-    ({"compare": {"null_model": {"replicates": 40, "replicates_per_job": 40,
+    ({"compare": {"null_model": {"replicates": 39, "replicates_per_job": 39,
                                  "refit": {"chains": 1, "warmup": 100, "draws": 120}}}},
      {"null_refit": 2, "compare": 1, "report": 1, "all": 1}),
     ({"compare": {"alpha": 0.1}}, {"compare": 1, "report": 1, "all": 1}),

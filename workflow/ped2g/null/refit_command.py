@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import json
 import time
 from pathlib import Path
 
@@ -38,13 +37,13 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def fit_engine(fit_dir: Path, population: str, on_failure: str = "stop", log=None) -> str:
     """The engine the observed fit ran, after checking that the fit passed its checks (a fit kept
     under ``checks.on_failure: flag`` is used with a warning)."""
+    from ..contracts.fit_folder import DIAGNOSTICS_FILE, read_diagnostics
     from ..errors import UserError
 
-    path = Path(fit_dir) / "diagnostics.json"
-    try:
-        diag = json.loads(path.read_text(encoding="utf-8"))
-    except (OSError, ValueError):
-        raise UserError(f"fit of population '{population}': {path} is missing or unreadable; rerun 'ped2g fit'") from None
+    path = Path(fit_dir) / DIAGNOSTICS_FILE
+    diag = read_diagnostics(fit_dir)
+    if diag is None:
+        raise UserError(f"fit of population '{population}': {path} is missing or unreadable; rerun 'ped2g fit'")
     if not diag.get("checks", {}).get("passed", False):
         if on_failure == "flag":
             if log is not None:
