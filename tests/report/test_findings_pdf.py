@@ -296,3 +296,23 @@ def test_no_pdf_without_chromium_and_the_html_still_written(tmp_path, monkeypatc
     assert (paths["out"] / "report.html").is_file()
     assert result.pdf is None and not (paths["out"] / "report.pdf").exists()
     assert "no Chromium found" in result.pdf_note
+
+
+def test_rows_below_alpha_only_before_holm_are_named_as_leads_not_findings():
+    # Three pairwise distances (one family of 3): raw p 0.02 -> Holm 3 x 0.02 = 0.06 > 0.05
+    # (Holm 1979's step-down, exact arithmetic), so the row is a lead, not a supported finding;
+    # a row with p 0.01 -> Holm 0.03 is supported.
+    from ped2g.report.findings import findings
+
+    table = pd.DataFrame({
+        "method": "distance", "statistic": "riemannian", "population": ["a", "a", "b"],
+        "population2": ["b", "c", "c"], "axis": "", "axis2": "", "mean": [2.0, 1.0, 1.1],
+        "test_value": [2.0, 1.0, 1.1], "null_refit_median": 1.0, "null_refit_lower": 0.5,
+        "null_refit_upper": 1.8, "p_value": [0.02, 0.5, 0.6], "family_size": 3,
+        "p_adjusted": [0.06, 1.0, 1.0], "supported": [False, False, False]})
+    found = findings({"distance": table}, None, ["x", "y"], ["a", "b", "c"], alpha=0.05)
+    assert found.supported == [] and found.differing == []
+    assert len(found.leads) == 1 and "a and b" in found.leads[0] and "not supported" in found.leads[0]
+    table.loc[0, ["p_value", "p_adjusted", "supported"]] = [0.01, 0.03, True]
+    found = findings({"distance": table}, None, ["x", "y"], ["a", "b", "c"], alpha=0.05)
+    assert len(found.supported) == 1 and found.leads == [] and found.differing == ["a", "b"]

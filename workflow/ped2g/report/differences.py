@@ -130,6 +130,11 @@ def findings_section(sec, inputs: ResultInputs, config: dict[str, Any], saved, s
         sec.items(found.supported)
     sec.heading("Not supported")
     sec.items(found.not_supported)
+    if found.leads:
+        sec.text(f"Came close, but not supported: these differences have p at or below {alpha:g} on their "
+                 "own, but not after Holm's adjustment within their family of tests. The reading rule does "
+                 "not support them; they are leads for a larger or repeated study, not findings.")
+        sec.items(found.leads)
     path = saved.save("findings", found.table)
     shown = found.table[[c for c in FINDINGS_SHOWN if c in found.table]]
     shown = shown.loc[:, shown.notna().any(axis=0)]

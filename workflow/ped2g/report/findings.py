@@ -2,7 +2,7 @@
 
 Input is the compare stage's tables as written (``compare/<method>.csv``, their own column
 names), its ``loadings.csv`` (the fixed axes, to name trait combinations) and the reading rule.
-Each supported row (``supported`` True: Holm-adjusted p below alpha within its family, see
+Each supported row (``supported`` True: Holm-adjusted p at or below alpha within its family, see
 :mod:`ped2g.compare.calibrated`) becomes one sentence saying which populations differ, along
 which trait combination, by how much (the posterior mean beside what a shared G gives) and how
 sure (the adjusted p-value). The rows that are not supported are counted and the pairs and
@@ -52,6 +52,9 @@ class Findings:
     table: pd.DataFrame
     differing: list[str] = field(default_factory=list)
     tested: int = 0
+    #: Rows whose own p-value is at or below alpha but whose Holm-adjusted p-value is not: not
+    #: supported by the reading rule, named so that a reader sees what came close.
+    leads: list[str] = field(default_factory=list)
 
 
 def _present(value: Any) -> bool:
@@ -125,8 +128,14 @@ def _sure(row: pd.Series) -> str:
     return f"Holm-adjusted p = {fmt(row['p_adjusted'], 2)}"
 
 
-def _sentence(method: str, statistic: str, row: pd.Series, family: pd.DataFrame, words: str) -> str:
-    """One supported difference in words."""
+def _unadjusted(row: pd.Series) -> str:
+    return (f"p = {fmt(row['p_value'], 2)} on its own, Holm-adjusted p = {fmt(row['p_adjusted'], 2)} "
+            f"within its family of {_int(row.get('family_size')) or '?'} tests: not supported")
+
+
+def _sentence(method: str, statistic: str, row: pd.Series, family: pd.DataFrame, words: str,
+              sure=_sure) -> str:
+    """One difference in words (``sure`` says how sure: the adjusted p-value by default)."""
     a, b = str(row.get("population", "")), str(row.get("population2", ""))
     mean = row["mean"]
     v = _value(method, statistic, mean)
@@ -176,14 +185,14 @@ def _sentence(method: str, statistic: str, row: pd.Series, family: pd.DataFrame,
                     f"{words}: {statistic} {v}, where {_noise(method, statistic, row)}")
         else:
             text = f"{statistic} ({method}): {v}, where {_noise(method, statistic, row)}"
-    return f"{text} ({_sure(row)})."
+    return f"{text} ({sure(row)})."
 
 
 def findings(compare: dict[str, pd.DataFrame], loadings: pd.DataFrame | None, traits: list[str],
              populations: list[str], alpha: float) -> Findings:
     """Put the calibrated tests of ``compare`` (method -> table as written) in words."""
     axes = axis_vectors(loadings, traits)
-    rows_out, supported, by_pair, by_pop = [], [], set(), set()
+    rows_out, supported, leads, by_pair, by_pop = [], [], [], set(), set()
     whole_set = False
     for method, frame in compare.items():
         if "p_adjusted" not in frame or "supported" not in frame:
@@ -196,11 +205,14 @@ def findings(compare: dict[str, pd.DataFrame], loadings: pd.DataFrame | None, tr
             record = {c: row.get(c, np.nan) for c in FINDING_COLUMNS if c not in ("method", "in_words")}
             record.update(method=method, in_words=words, supported=is_supported)
             rows_out.append(record)
-            if not is_supported:
-                continue
             same = tested[(tested["statistic"] == row["statistic"])
                           & (tested["axis"].astype(str) == str(row.get("axis")))
                           & (tested["axis2"].astype(str) == str(row.get("axis2")))]
+            if not is_supported:
+                if _present(row.get("p_value")) and float(row["p_value"]) <= alpha * (1 + 1e-9):
+                    leads.append((float(row["p_value"]),
+                                  _sentence(method, statistic, row, same, words, sure=_unadjusted)))
+                continue
             supported.append((float(row["p_adjusted"]), _sentence(method, statistic, row, same, words)))
             if _present(row.get("population2")):
                 by_pair.add(frozenset((str(row["population"]), str(row["population2"]))))
@@ -239,7 +251,8 @@ def findings(compare: dict[str, pd.DataFrame], loadings: pd.DataFrame | None, tr
         if quiet:
             not_supported.append("No per-population statistic sets apart " + ", ".join(quiet) + ".")
     return Findings(headline=headline, supported=[s for _, s in sorted(supported, key=lambda x: x[0])],
-                    not_supported=not_supported, table=table, differing=differing, tested=n_tested)
+                    not_supported=not_supported, table=table, differing=differing, tested=n_tested,
+                    leads=[s for _, s in sorted(leads, key=lambda x: x[0])])
 
 
 __all__ = ["FINDING_COLUMNS", "Findings", "axis_vectors", "findings"]
