@@ -223,7 +223,7 @@ def build_model(data: FitData, model_config: dict, rot: Rotation | None = None):
     import pytensor.tensor as pt
 
     from . import augment
-    from .batched_normal import scaled_pair_logp
+    from .scaled_pair_op import scaled_pair_logp
     from .priors import covariance_prior, fixed_covariances, fixed_effects_prior
 
     rot = rot if rot is not None else rotation(data)
