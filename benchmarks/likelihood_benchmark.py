@@ -1,6 +1,6 @@
 """Benchmark of the marginal engine's likelihood: value and gradient per call (prints a table).
 
-Compares the one-Op numba kernel (ped2g.fit.scaled_pair_op, what the marginal engine uses) with
+Compares the one-Op numba kernel (ped2g.fit.marginal_likelihood_op, what the marginal engine uses) with
 the same density as an unrolled graph of elementwise operations (``unrolled_logp`` below, the
 form the engine used before the Op), both compiled by PyTensor's numba backend, on random records
 with covariances lam_i G + R.
@@ -62,7 +62,7 @@ def _function(kind: str, lam: np.ndarray, k: int):
     import pytensor
     import pytensor.tensor as pt
 
-    from ped2g.fit.scaled_pair_op import scaled_pair_logp
+    from ped2g.fit.marginal_likelihood_op import scaled_pair_logp
 
     g, r, d = pt.dmatrix("g"), pt.dmatrix("r"), pt.dmatrix("d")
     if kind == "op":

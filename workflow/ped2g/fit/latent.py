@@ -195,7 +195,7 @@ def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
     return {"y": np.where(np.isnan(data.y), 0.0, np.asarray(data.y, dtype=float))}
 
 
-def _pooled(idata, name: str) -> np.ndarray:
+def _chains_pooled(idata, name: str) -> np.ndarray:
     values = np.asarray(idata.posterior[name].values)
     return values.reshape((-1,) + values.shape[2:])
 
@@ -218,8 +218,8 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     from ..contracts.fit_folder import thin_indices
     from ..pedigree.recursion import down
 
-    w = _pooled(idata, "w_animal")
-    G = _pooled(idata, "G")
+    w = _chains_pooled(idata, "w_animal")
+    G = _chains_pooled(idata, "G")
     keep = thin_indices(w.shape[0], max_draws)
     w, G = w[keep], G[keep]
     lay = generation_layout(data.pedigree)

@@ -9,7 +9,7 @@ Integrating ``a`` out, the rows of ``Y`` are jointly normal with covariance
 animals (A_pp: the phenotyped animals; their ancestors marginalise out). With ``K = U Lambda U'``
 computed once (``numpy.linalg.eigh``, O(n^3)), the rotated records ``U'(Y - X beta - ...)`` are
 independent, row i with covariance ``lambda_i G + R``. The log-likelihood is then a sum of n small
-normal log-densities (one Op, :mod:`ped2g.fit.scaled_pair_op`), O(n k^3) per gradient after the O(n p k)
+normal log-densities (one Op, :mod:`ped2g.fit.marginal_likelihood_op`), O(n k^3) per gradient after the O(n p k)
 products by the pre-rotated designs ``U'X`` and ``U'Z_c``. This is the classic rotation used to
 make animal-model likelihoods cheap (e.g. Thompson & Shaw 1990 [M]; the same as the "spectral
 decomposition" trick of linear mixed model software, common practice).
@@ -223,7 +223,7 @@ def build_model(data: FitData, model_config: dict, rot: Rotation | None = None):
     import pytensor.tensor as pt
 
     from . import augment
-    from .scaled_pair_op import scaled_pair_logp
+    from .marginal_likelihood_op import scaled_pair_logp
     from .priors import covariance_prior, fixed_covariances, fixed_effects_prior
 
     rot = rot if rot is not None else rotation(data)

@@ -10,7 +10,7 @@ import pytensor.tensor as pt
 import pytest
 from scipy import stats
 
-from ped2g.fit.scaled_pair_op import scaled_pair_logp
+from ped2g.fit.marginal_likelihood_op import scaled_pair_logp
 
 
 def _random_covs(rng, n, k):
