@@ -42,6 +42,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..pedigree.core import Pedigree
+from ..config import with_defaults
 from .data import FitData
 
 __all__ = ["LatentEngine", "applicable", "build_model", "breeding_values", "generation_layout",
@@ -141,7 +142,7 @@ def build_model(data: FitData, model_config: dict, animal_effect=None):
     ped = data.pedigree
     t = data.n_traits
     n = ped.n
-    priors = dict(model_config.get("priors") or {})
+    priors = dict(with_defaults(model_config, "model")["priors"])
     fixed = fixed_covariances(model_config, np.asarray(data.y_scale, dtype=float), list(data.traits))
     lay = generation_layout(ped)
     y = np.asarray(data.y, dtype=float)

@@ -58,6 +58,7 @@ import numpy as np
 import scipy.linalg
 import scipy.sparse.linalg
 
+from ..config import with_defaults
 from .data import FitData
 
 #: Bytes per cell of the n x n record relationship matrix that the eigendecomposition holds at
@@ -106,7 +107,7 @@ def missing_mode(data: FitData, model_config: dict | None) -> str:
     """How missing trait values are handled: ``"none"`` (no missing cell), ``"gibbs"`` or ``"nuts"``."""
     from ..errors import UserError
 
-    requested = (model_config or {}).get("missing_values", "auto")
+    requested = with_defaults(model_config, "model")["missing_values"]
     if requested not in MISSING_MODES:
         raise UserError(f"config key 'model.missing_values' is {requested!r}; allowed: {', '.join(MISSING_MODES)}")
     if not data.missing.any():
@@ -229,7 +230,7 @@ def build_model(data: FitData, model_config: dict, rot: Rotation | None = None):
     rot = rot if rot is not None else rotation(data)
     mode = missing_mode(data, model_config)
     t = data.n_traits
-    priors = model_config.get("priors", {}) or {}
+    priors = with_defaults(model_config, "model")["priors"]
     fixed = fixed_covariances(model_config, data.y_scale, data.traits)
     coords = {"trait": data.traits, "trait2": data.traits, "x": data.x_names}
     with pm.Model(coords=coords) as model:

@@ -29,6 +29,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from ..config import with_defaults
 from ..intervals import hpd
 from ..contracts.fit_folder import MATRIX_DIMS, posterior_dataset
 from .data import FitData
@@ -145,9 +146,10 @@ def check_convergence(table, checks: dict[str, Any], divergences: int, chains: i
     computed; that is reported as a miss (run at least 4 chains).
     """
     checked = table[table["quantity"].isin(["G", "R", "h2"]) & ~table["fixed"]]
-    max_rhat = float(checks.get("max_rhat", 1.01))
-    min_ess = float(checks.get("min_ess", 400))
-    max_div = int(checks.get("max_divergences", 0))
+    checks = with_defaults(checks, "checks")
+    max_rhat = float(checks["max_rhat"])
+    min_ess = float(checks["min_ess"])
+    max_div = int(checks["max_divergences"])
     missed = []
     for _, row in checked.iterrows():
         why = []
