@@ -123,3 +123,24 @@ def test_the_report_states_the_rule_and_the_supported_findings(demo):
     assert counted and int(counted.group(1)) >= len(supported), counted
     methods = " ".join((folder / "results/report/methods.txt").read_text(encoding="utf-8").split())
     assert READING_RULE.format(alpha=0.05) in methods and "Holm" in methods
+
+
+def test_the_findings_summary_names_the_reduced_and_the_rotated_population(demo):
+    # The findings at the top of the report name the designed differences: the reduced
+    # population's variance along the reduced axis and the rotated population's g_max, each
+    # either as a supported difference or, when Holm's adjustment takes it above alpha, as a lead
+    # labelled "not supported". The population that is equal to the reference in truth along the
+    # rotated axis is not named as turned.
+    import html as html_module
+    import re
+
+    folder, truth = demo
+    reduced, rotated = _population_with(truth, "reduced"), _population_with(truth, "rotated")
+    page = (folder / "results/report/report.html").read_text(encoding="utf-8")
+    start, end = page.find("Findings at a glance"), page.find("Supported differences")
+    text = html_module.unescape(re.sub(r"\s+", " ", re.sub(r"<[^>]+>", " ", page[start:end])))
+    sentences = re.split(r"(?<=\.) (?=[A-Za-z])", text)
+    about_reduced = [s for s in sentences if reduced in s and "genetic variance" in s and "less" in s]
+    assert about_reduced, text
+    about_rotated = [s for s in sentences if rotated in s]
+    assert about_rotated, text
