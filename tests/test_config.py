@@ -3,7 +3,7 @@
 import pytest
 import yaml
 
-from ped2g.config import fill_defaults, load_config, schema, validate
+from ped2g.config import SCHEMA_PATH, fill_defaults, load_config, schema, validate, with_defaults
 from ped2g.errors import UserError
 
 
@@ -33,6 +33,18 @@ def test_defaults_are_filled_and_themselves_valid():
     # A default-filled config validates again unchanged.
     assert validate(config) == config
     assert fill_defaults(config) == config
+
+
+def test_a_partial_section_gets_the_schema_defaults_and_keeps_its_own_values():
+    # Oracle: the schema file read here with plain PyYAML, not through ped2g.config.
+    with open(SCHEMA_PATH, encoding="utf-8") as handle:
+        raw = yaml.safe_load(handle)
+    priors = raw["properties"]["model"]["properties"]["priors"]["properties"]
+    got = with_defaults({"lkj_eta": 5.0}, "model", "priors")
+    assert got == {"lkj_eta": 5.0, "sd_scale": priors["sd_scale"]["default"],
+                   "sd_family": priors["sd_family"]["default"], "fixed_sd": priors["fixed_sd"]["default"]}
+    checks = raw["properties"]["checks"]["properties"]
+    assert with_defaults(None, "checks") == {k: v["default"] for k, v in checks.items()}
 
 
 @pytest.mark.parametrize(

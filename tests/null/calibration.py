@@ -16,8 +16,8 @@ not contain (docs/methods.md §5.3), so with real data the flag rate can be high
 check on real fits (benchmarks/null_calibration_fits.py, minutes per study) measured it: there the
 HPD non-overlap criterion stayed under 5 % but the paired criterion did not.
 
-The null is built with ``ped2g.null.build.build_null`` and the statistics with the compare
-stage's own functions (genetic covariance tensor projected on the eigentensors of the observed
+The null is built with ``ped2g.null.breeding_value_null.build_null`` and the statistics with the
+compare stage's own functions (genetic covariance tensor projected on the eigentensors of the observed
 posterior-mean tensor, random-skewers mean vector correlations, Krzanowski's H). A statistic is
 flagged as in the report: its observed and null 95% HPD intervals do not overlap (Aguirre et al.
 2014); the paired criterion (95% HPD of observed - null excludes 0) is measured too.
@@ -42,7 +42,7 @@ from ped2g.compare.skewers import skewer_statistics, unit_skewers  # noqa: E402
 from ped2g.compare.subspace import common_subspace  # noqa: E402
 from ped2g.compare.tensor import covariance_tensor, eigentensors, project  # noqa: E402
 from ped2g.intervals import hpd  # noqa: E402
-from ped2g.null.build import build_null  # noqa: E402
+from ped2g.null.breeding_value_null import build_null  # noqa: E402
 from ped2g.simulate.breeding_values import simulate_breeding_values  # noqa: E402
 
 G0 = np.array([[1.0, 0.5, 0.2], [0.5, 1.5, -0.3], [0.2, -0.3, 0.8]])

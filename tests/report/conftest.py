@@ -9,7 +9,7 @@ from report_study import make_study
 def built_report(tmp_path_factory):
     """One full report built from the three-population study (shared by the test session)."""
     from ped2g.config import load_config
-    from ped2g.report.build import build_report
+    from ped2g.report.assemble import build_report
 
     paths = make_study(tmp_path_factory.mktemp("study"))
     config = load_config(paths["config"])

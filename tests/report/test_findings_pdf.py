@@ -76,7 +76,7 @@ def _make_refit_study(root):
 @pytest.fixture(scope="module")
 def refit_report(tmp_path_factory):
     from ped2g.config import load_config
-    from ped2g.report.build import build_report
+    from ped2g.report.assemble import build_report
 
     paths, table = _make_refit_study(tmp_path_factory.mktemp("refit_study"))
     config = load_config(paths["config"])
@@ -287,7 +287,7 @@ def test_pdf_has_every_section_and_table_row(refit_report, tmp_path):
 
 def test_no_pdf_without_chromium_and_the_html_still_written(tmp_path, monkeypatch):
     from ped2g.config import load_config
-    from ped2g.report.build import build_report
+    from ped2g.report.assemble import build_report
 
     monkeypatch.setenv("PED2G_CHROMIUM", str(tmp_path / "no-such-browser"))
     paths = make_study(tmp_path / "study", compare=None)

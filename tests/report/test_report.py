@@ -14,7 +14,7 @@ from PIL import Image
 from ped2g.cli import main
 from ped2g.config import load_config
 from ped2g.errors import UserError
-from ped2g.report.build import SECTION_ORDER, build_report
+from ped2g.report.assemble import SECTION_ORDER, build_report
 from report_study import POPULATIONS, make_study
 
 # Every test here builds a report on results of the real null and compare stages.

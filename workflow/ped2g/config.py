@@ -148,6 +148,20 @@ def fill_defaults(config: dict[str, Any], node: dict[str, Any] | None = None) ->
     return out
 
 
+def with_defaults(part: dict[str, Any] | None, *path: str) -> dict[str, Any]:
+    """``part``, the config section at ``path`` (e.g. ``"model", "priors"``), with the schema's
+    defaults filled in where it lacks a key.
+
+    For functions that may be handed a section of a config that did not go through
+    :func:`validate` (tests, benchmarks), so that the schema stays the one place for defaults.
+    ``part`` is not validated.
+    """
+    node = schema()
+    for key in path:
+        node = node["properties"][key]
+    return fill_defaults(part or {}, node)
+
+
 def validate(config: dict[str, Any], source: str = "config") -> dict[str, Any]:
     """Validate a config dict against the schema and return it with defaults filled in.
 

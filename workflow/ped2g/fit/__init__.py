@@ -17,8 +17,7 @@ priors          the one covariance prior used for every covariance matrix, and t
 engine          the engine interface (:class:`~ped2g.fit.engine.Engine`, :class:`~ped2g.fit.engine.BuiltModel`),
                 the engines by name and the choice between them (``model.engine``).
 marginal        engine with the breeding values integrated out exactly (:class:`MarginalEngine`).
-batched_normal  log-density of n independent k-variate normals with per-record covariances.
-scaled_pair_op  the marginal engine's likelihood (covariances lam_i G + R) as one numba-backed Op.
+marginal_likelihood_op  the marginal engine's likelihood (covariances lam_i G + R) as one numba-backed Op.
 augment         the marginal engine's Gibbs step for missing trait values (data augmentation).
 latent          engine with the breeding values as (non-centred) parameters (:class:`LatentEngine`).
 pedigree_op     the latent engine's PyTensor Ops around the pedigree recursion.

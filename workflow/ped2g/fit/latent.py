@@ -42,6 +42,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..pedigree.core import Pedigree
+from ..config import with_defaults
 from .data import FitData
 
 __all__ = ["LatentEngine", "applicable", "build_model", "breeding_values", "generation_layout",
@@ -141,7 +142,7 @@ def build_model(data: FitData, model_config: dict, animal_effect=None):
     ped = data.pedigree
     t = data.n_traits
     n = ped.n
-    priors = dict(model_config.get("priors") or {})
+    priors = dict(with_defaults(model_config, "model")["priors"])
     fixed = fixed_covariances(model_config, np.asarray(data.y_scale, dtype=float), list(data.traits))
     lay = generation_layout(ped)
     y = np.asarray(data.y, dtype=float)
@@ -195,7 +196,7 @@ def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
     return {"y": np.where(np.isnan(data.y), 0.0, np.asarray(data.y, dtype=float))}
 
 
-def _pooled(idata, name: str) -> np.ndarray:
+def _chains_pooled(idata, name: str) -> np.ndarray:
     values = np.asarray(idata.posterior[name].values)
     return values.reshape((-1,) + values.shape[2:])
 
@@ -218,8 +219,8 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     from ..contracts.fit_folder import thin_indices
     from ..pedigree.recursion import down
 
-    w = _pooled(idata, "w_animal")
-    G = _pooled(idata, "G")
+    w = _chains_pooled(idata, "w_animal")
+    G = _chains_pooled(idata, "G")
     keep = thin_indices(w.shape[0], max_draws)
     w, G = w[keep], G[keep]
     lay = generation_layout(data.pedigree)

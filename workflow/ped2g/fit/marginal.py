@@ -9,7 +9,7 @@ Integrating ``a`` out, the rows of ``Y`` are jointly normal with covariance
 animals (A_pp: the phenotyped animals; their ancestors marginalise out). With ``K = U Lambda U'``
 computed once (``numpy.linalg.eigh``, O(n^3)), the rotated records ``U'(Y - X beta - ...)`` are
 independent, row i with covariance ``lambda_i G + R``. The log-likelihood is then a sum of n small
-normal log-densities (one Op, :mod:`ped2g.fit.scaled_pair_op`), O(n k^3) per gradient after the O(n p k)
+normal log-densities (one Op, :mod:`ped2g.fit.marginal_likelihood_op`), O(n k^3) per gradient after the O(n p k)
 products by the pre-rotated designs ``U'X`` and ``U'Z_c``. This is the classic rotation used to
 make animal-model likelihoods cheap (e.g. Thompson & Shaw 1990 [M]; the same as the "spectral
 decomposition" trick of linear mixed model software, common practice).
@@ -58,6 +58,7 @@ import numpy as np
 import scipy.linalg
 import scipy.sparse.linalg
 
+from ..config import with_defaults
 from .data import FitData
 
 #: Bytes per cell of the n x n record relationship matrix that the eigendecomposition holds at
@@ -106,7 +107,7 @@ def missing_mode(data: FitData, model_config: dict | None) -> str:
     """How missing trait values are handled: ``"none"`` (no missing cell), ``"gibbs"`` or ``"nuts"``."""
     from ..errors import UserError
 
-    requested = (model_config or {}).get("missing_values", "auto")
+    requested = with_defaults(model_config, "model")["missing_values"]
     if requested not in MISSING_MODES:
         raise UserError(f"config key 'model.missing_values' is {requested!r}; allowed: {', '.join(MISSING_MODES)}")
     if not data.missing.any():
@@ -223,13 +224,13 @@ def build_model(data: FitData, model_config: dict, rot: Rotation | None = None):
     import pytensor.tensor as pt
 
     from . import augment
-    from .batched_normal import scaled_pair_logp
+    from .marginal_likelihood_op import scaled_pair_logp
     from .priors import covariance_prior, fixed_covariances, fixed_effects_prior
 
     rot = rot if rot is not None else rotation(data)
     mode = missing_mode(data, model_config)
     t = data.n_traits
-    priors = model_config.get("priors", {}) or {}
+    priors = with_defaults(model_config, "model")["priors"]
     fixed = fixed_covariances(model_config, data.y_scale, data.traits)
     coords = {"trait": data.traits, "trait2": data.traits, "x": data.x_names}
     with pm.Model(coords=coords) as model:

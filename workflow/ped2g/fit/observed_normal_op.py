@@ -18,9 +18,9 @@ Cookbook*, 2012, eqs. 57 and 61 [M])::
 with respect to every entry is the symmetric matrix above. Where an R_oo is not positive definite
 the log-likelihood is -inf (NUTS treats the step as divergent).
 
-Why an Op: the same algebra written as PyTensor operations (:func:`ped2g.fit.batched_normal.
-mvn_logp_entries`) is dozens of small graph nodes per copy, each type-inferred and compiled by
-numba; this kernel is compiled once and cached on disk.
+Why an Op: the same algebra written as PyTensor operations (a Cholesky unrolled over the traits)
+is dozens of small graph nodes per copy, each type-inferred and compiled by numba; this kernel is
+compiled once and cached on disk.
 """
 
 from __future__ import annotations

@@ -29,6 +29,7 @@ from typing import Any
 import numpy as np
 import xarray as xr
 
+from ..config import with_defaults
 from ..intervals import hpd
 from ..contracts.fit_folder import MATRIX_DIMS, posterior_dataset
 from .data import FitData
@@ -52,7 +53,8 @@ ASSUMPTIONS = [
 ]
 
 
-def _pooled(idata, name: str) -> np.ndarray:
+def _draws(idata, name: str) -> np.ndarray:
+    """Posterior draws of ``name`` as floats, keeping the (chain, draw) axes."""
     return np.asarray(idata.posterior[name].values, dtype=float)
 
 
@@ -63,15 +65,15 @@ def original_units(data: FitData, idata) -> tuple[dict[str, np.ndarray], dict[st
     """
     s = data.y_scale
     ss = np.outer(s, s)
-    G = _pooled(idata, "G") * ss
-    R = _pooled(idata, "R") * ss
+    G = _draws(idata, "G") * ss
+    R = _draws(idata, "R") * ss
     P = G + R
     extra: dict[str, xr.DataArray] = {}
     for eff in data.random:
-        C = _pooled(idata, f"cov_{eff.name}") * ss
+        C = _draws(idata, f"cov_{eff.name}") * ss
         P = P + C
         extra[f"cov_{eff.name}"] = xr.DataArray(C, dims=("chain", "draw", *MATRIX_DIMS))
-    beta = _pooled(idata, "beta")                       # (chain, draw, p, t)
+    beta = _draws(idata, "beta")                       # (chain, draw, p, t)
     x_scale = data.x_scale if data.x_scale is not None else np.ones(len(data.x_names))
     fixed = beta * s / x_scale[:, None]
     fixed[..., 0, :] = data.y_center + s * beta[..., 0, :]
@@ -144,9 +146,10 @@ def check_convergence(table, checks: dict[str, Any], divergences: int, chains: i
     computed; that is reported as a miss (run at least 4 chains).
     """
     checked = table[table["quantity"].isin(["G", "R", "h2"]) & ~table["fixed"]]
-    max_rhat = float(checks.get("max_rhat", 1.01))
-    min_ess = float(checks.get("min_ess", 400))
-    max_div = int(checks.get("max_divergences", 0))
+    checks = with_defaults(checks, "checks")
+    max_rhat = float(checks["max_rhat"])
+    min_ess = float(checks["min_ess"])
+    max_div = int(checks["max_divergences"])
     missed = []
     for _, row in checked.iterrows():
         why = []

@@ -79,7 +79,7 @@ def fit(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree, population: 
     table = outputs.parameter_table(post, float(config["compare"]["interval_mass"]))
     checks = outputs.check_convergence(table, config["checks"], info["divergences"], info["chains"])
 
-    save_all = bool(config["model"].get("save_breeding_values", False))
+    save_all = bool(config["model"]["save_breeding_values"])
     rng = generator(int(config["sampling"]["seed"]), "fit", population, "breeding_values")
     bv_start = time.perf_counter()
     bv = engine.breeding_values(data, sampled.idata, rng, max_draws=None if save_all else BREEDING_VALUE_DRAWS)

@@ -21,6 +21,7 @@ import numpy as np
 import pymc as pm
 import pytensor.tensor as pt
 
+from ..config import with_defaults
 from ..errors import UserError
 
 SD_FAMILIES = ("half_normal", "half_t")
@@ -28,8 +29,8 @@ HALF_T_NU = 3.0
 
 
 def _sd_dist(priors: dict[str, Any], n: int):
-    scale = float(priors.get("sd_scale", 1.0))
-    family = priors.get("sd_family", "half_normal")
+    scale = float(priors["sd_scale"])
+    family = priors["sd_family"]
     if family == "half_normal":
         return pm.HalfNormal.dist(sigma=scale, shape=n)
     if family == "half_t":
@@ -57,6 +58,7 @@ def covariance_prior(name: str, n_traits: int, priors: dict[str, Any],
     (cov, chol)
         The covariance matrix and a lower-triangular factor with ``chol @ chol.T == cov``.
     """
+    priors = with_defaults(priors, "model", "priors")
     if fixed is not None:
         fixed = np.asarray(fixed, dtype=float)
         chol_np = np.linalg.cholesky(fixed)
@@ -67,7 +69,7 @@ def covariance_prior(name: str, n_traits: int, priors: dict[str, Any],
         chol = sd.reshape((1, 1))
         cov = pm.Deterministic(name, chol * chol)
         return cov, chol
-    chol, _, _ = pm.LKJCholeskyCov(f"{name}_chol", n=n_traits, eta=float(priors.get("lkj_eta", 2.0)),
+    chol, _, _ = pm.LKJCholeskyCov(f"{name}_chol", n=n_traits, eta=float(priors["lkj_eta"]),
                                    sd_dist=_sd_dist(priors, n_traits), compute_corr=True,
                                    store_in_trace=False)
     cov = pm.Deterministic(name, chol @ chol.T)
@@ -75,8 +77,8 @@ def covariance_prior(name: str, n_traits: int, priors: dict[str, Any],
 
 
 def _register_sd(name: str, priors: dict[str, Any]) -> pt.TensorVariable:
-    scale = float(priors.get("sd_scale", 1.0))
-    family = priors.get("sd_family", "half_normal")
+    scale = float(priors["sd_scale"])
+    family = priors["sd_family"]
     if family == "half_normal":
         return pm.HalfNormal(f"{name}_sd", sigma=scale, shape=1)
     if family == "half_t":
@@ -86,7 +88,7 @@ def _register_sd(name: str, priors: dict[str, Any]) -> pt.TensorVariable:
 
 def fixed_effects_prior(n_x: int, n_traits: int, priors: dict[str, Any]) -> pt.TensorVariable:
     """The fixed effects ``beta`` (p, t), Normal(0, fixed_sd) on the standardised scale."""
-    sd = float(priors.get("fixed_sd", 10.0))
+    sd = float(with_defaults(priors, "model", "priors")["fixed_sd"])
     return pm.Normal("beta", mu=0.0, sigma=sd, shape=(n_x, n_traits))
 
 

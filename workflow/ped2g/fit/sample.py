@@ -20,6 +20,7 @@ from typing import Any
 
 import numpy as np
 
+from ..config import with_defaults
 from ..errors import UserError
 from ..machine import available_cpus
 from ..rng import seed_sequence
@@ -206,16 +207,17 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
         LLVM optimisation level for numba while compiling and sampling (an engine's
         ``NUMBA_OPT_LEVEL``); None keeps numba's own (3 unless ``NUMBA_OPT`` says otherwise).
     """
-    sampler = sampling.get("sampler", "nutpie")
+    sampling = with_defaults(sampling, "sampling")
+    sampler = sampling["sampler"]
     if sampler not in SAMPLERS:
         raise UserError(f"config key 'sampling.sampler' is {sampler!r}; allowed: {', '.join(SAMPLERS)}")
-    chains = int(sampling.get("chains", 4))
-    warmup = int(sampling.get("warmup", 1000))
-    draws = int(sampling.get("draws", 1000))
-    target_accept = float(sampling.get("target_accept", 0.9))
-    seed = sampler_seed(int(sampling.get("seed", 1)), population)
+    chains = int(sampling["chains"])
+    warmup = int(sampling["warmup"])
+    draws = int(sampling["draws"])
+    target_accept = float(sampling["target_accept"])
+    seed = sampler_seed(int(sampling["seed"]), population)
     cores = max(1, min(chains, available_cpus()))
-    info: dict[str, Any] = dict(sampler=sampler, seed=seed, run_seed=int(sampling.get("seed", 1)),
+    info: dict[str, Any] = dict(sampler=sampler, seed=seed, run_seed=int(sampling["seed"]),
                                 chains=chains, warmup=warmup, draws=draws, target_accept=target_accept)
     if numba_opt_level is not None:
         info["numba_opt_level"] = int(numba_opt_level)

@@ -71,8 +71,8 @@ def run(args: argparse.Namespace) -> int:
     from ..io import get_logger, output_dir, write_json
     from .estimators import (DEFAULT_ESTIMATOR, DEFAULT_REASON, ESTIMATOR_DESCRIPTION,
                              pooled_deflation, relatedness_deflation)
-    from .simulate import check_draws
-    from .build import build_null, chunk_size, pooled_members, read_pedigrees
+    from .pooled_breeding_values import check_draws
+    from .breeding_value_null import build_null, chunk_size, pooled_members, read_pedigrees
 
     log = get_logger("null")
     start = time.perf_counter()

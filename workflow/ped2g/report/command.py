@@ -30,7 +30,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     from ..config import load_config
     from ..io import get_logger
-    from .build import build_report
+    from .assemble import build_report
 
     log = get_logger("report")
     config = load_config(args.config)

@@ -108,7 +108,7 @@ def findings_section(sec, inputs: ResultInputs, config: dict[str, Any], saved, s
     """Fill the findings section; returns the findings (None without calibrated tests)."""
     from ..compare.calibrated import READING_RULE
 
-    alpha = float(config["compare"].get("alpha", 0.05))
+    alpha = float(config["compare"]["alpha"])
     refit = ((inputs.compare_extras or {}).get("summary") or {}).get("refit_null")
     raw = read_compare_as_written(inputs.root)
     tested = any("p_adjusted" in f and f["p_adjusted"].notna().any() for f in raw.values())

@@ -108,54 +108,6 @@ def covariance_unit(traits: list[str], units: dict[str, str]) -> str:
 # ---------------------------------------------------------------------------------------------
 # Estimates
 # ---------------------------------------------------------------------------------------------
-def g_heatmaps_figure(medians: dict[str, np.ndarray], lowers: dict[str, np.ndarray],
-                      uppers: dict[str, np.ndarray], traits: list[str],
-                      units: dict[str, str]) -> Figure:
-    """Heatmap of the posterior median G of each population on one shared colour scale.
-
-    Cells show the median and, for up to four traits, the HPD interval below it.
-    """
-    pops = list(medians)
-    m, t = len(pops), len(traits)
-    ncol = min(m, 3)
-    nrow = int(np.ceil(m / ncol))
-    cell = 1.25 if t <= 4 else 0.7
-    size = max(3.2, cell * t + 1.2)
-    fig, axes = plt.subplots(nrow, ncol, figsize=(size * ncol + 1.6, size * nrow + 0.6), squeeze=False,
-                             gridspec_kw={"wspace": 0.12, "hspace": 0.35})
-    stack = np.stack([medians[p] for p in pops])
-    lim = float(np.nanmax(np.abs(stack))) or 1.0
-    lowest = float(np.nanmin(stack))
-    if lowest < 0:
-        norm, cmap = TwoSlopeNorm(vmin=-lim, vcenter=0.0, vmax=lim), "RdBu_r"
-    else:
-        norm, cmap = plt.Normalize(vmin=0.0, vmax=lim), "Blues"
-    labels = [trait_label(tr, units) for tr in traits]
-    mappable = None
-    for k, ax in enumerate(axes.flat):
-        if k >= m:
-            ax.set_visible(False)
-            continue
-        pop = pops[k]
-        mappable = ax.imshow(medians[pop], cmap=cmap, norm=norm)
-        for i in range(t):
-            for j in range(t):
-                value = medians[pop][i, j]
-                text = fmt(value, 3 if t <= 4 else 2)
-                if t <= 4:
-                    text += f"\n[{fmt(lowers[pop][i, j])}, {fmt(uppers[pop][i, j])}]"
-                dark = abs(norm(value) - 0.5) > 0.3 if lowest < 0 else norm(value) > 0.6
-                ax.text(j, i, text, ha="center", va="center", fontsize=8 if t <= 4 else 7,
-                        color="white" if dark else "black")
-        ax.set_xticks(range(t), labels, rotation=40, ha="right")
-        ax.set_yticks(range(t), labels if k % ncol == 0 else [""] * t)
-        ax.set_title(f"G, {pop}")
-        ax.grid(False)
-    cbar = fig.colorbar(mappable, ax=axes.ravel().tolist(), shrink=0.8)
-    cbar.set_label(f"posterior median ({covariance_unit(traits, units)})")
-    return fig
-
-
 def heritability_figure(table: pd.DataFrame, populations: list[str], traits: list[str]) -> Figure:
     """Forest plot of h2 per trait and rg per trait pair, each population with its HPD interval.
 

@@ -197,13 +197,13 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         f"effects were {_list(['an intercept per trait', *fixed])}"
         f"{', and further random effects ' + _list(extra) + ' each had their own covariance matrix' if extra else ''}. "
         f"The model was written in PyMC {v('pymc')} {eng}.")
-    family = priors.get("sd_family", "half_normal").replace("_", "-")
+    family = priors["sd_family"].replace("_", "-")
     sentences.append(
         f"Each standard deviation had a {family} prior with scale {priors['sd_scale']} times the "
         f"trait's phenotypic standard deviation, and each correlation matrix an LKJ prior with "
         f"η = {priors['lkj_eta']} ({cite('Lewandowski et al. 2009')}), for G, R and any further "
         f"covariance matrix alike; each fixed effect had an independent normal prior with mean 0 and "
-        f"standard deviation {priors.get('fixed_sd', 10.0)} on the scale of standardised traits (each "
+        f"standard deviation {priors['fixed_sd']} on the scale of standardised traits (each "
         "trait centred and divided by its phenotypic standard deviation), that is, nearly flat.")
     names = {"nutpie": f"nutpie {v('nutpie')}", "pymc": f"PyMC {v('pymc')}"}
     sampler = _list([names.get(x, x) for x in (samplers or [s["sampler"]])])
@@ -306,7 +306,7 @@ def cautions(config: dict[str, Any], failed_fits: list[str], null_present: bool,
         "year) that is not modelled inflates G.",
         "Founders and animals with unknown parents are treated as unrelated members of one base "
         "population with the same G; immigrants from a genetically different source break this.",
-        f"The priors matter when data are few: {priors.get('sd_family', 'half_normal').replace('_', '-')} "
+        f"The priors matter when data are few: {priors['sd_family'].replace('_', '-')} "
         f"priors on the standard deviations with scale {priors['sd_scale']} x the phenotypic SD, and "
         f"LKJ(η = {priors['lkj_eta']}) priors "
         "that pull correlations towards zero. With small pedigrees the posterior of G may largely reflect "

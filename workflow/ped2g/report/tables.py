@@ -38,7 +38,7 @@ def run_settings(config: dict[str, Any], inputs: ResultInputs) -> pd.DataFrame:
         ("model engine (config)", model["engine"]),
         ("model engine (ran)", ", ".join(engines) if engines else "not recorded by the fit stage"),
         ("prior on each standard deviation",
-         f"{priors.get('sd_family', 'half_normal').replace('_', '-')} with scale {priors['sd_scale']} "
+         f"{priors['sd_family'].replace('_', '-')} with scale {priors['sd_scale']} "
          "× the trait's phenotypic SD"),
         ("prior on each correlation matrix", f"LKJ with eta = {priors['lkj_eta']}"),
         ("fixed covariances", "none (G and R estimated)" if model["fixed_covariances"] is None
@@ -59,7 +59,7 @@ def run_settings(config: dict[str, Any], inputs: ResultInputs) -> pd.DataFrame:
 
 
 def _trait_label(trait: str, config: dict[str, Any]) -> str:
-    unit = config.get("report", {}).get("units", {}).get(trait)
+    unit = config["report"]["units"].get(trait)
     return f"{trait} ({unit})" if unit else trait
 
 

@@ -15,14 +15,16 @@ together with its gradient, from the standard identities for the normal log-dens
 The function is defined on the symmetric parts of G and R ((G + G')/2), so its gradient with
 respect to every entry is the symmetric matrix above.
 
-Why an Op instead of a graph of elementwise operations (:mod:`ped2g.fit.batched_normal`): the
-unrolled k x k algebra is many small graph nodes that numba type-infers and compiles one by one,
-while this kernel is one function, compiled once and cached on disk by numba (measured, 4 traits,
-500 records, empty caches: the marginal engine's first compile fell from 38.0 s to 32.1 s; value
-and gradient take 0.45 ms at 8,000 records against 0.74 ms for the unrolled graph). It costs O(n k^3) per evaluation,
-value and gradient in one pass, and stays finite whenever every V_i is positive definite (also
-when G is proportional to R, where eigenvalue-based forms have undefined derivatives). Where a
-V_i is not positive definite the log-likelihood is -inf (NUTS treats the step as divergent).
+Why an Op instead of a graph of elementwise operations (the Cholesky unrolled over the traits,
+kept in benchmarks/likelihood_benchmark.py to measure against): the unrolled k x k algebra is
+many small graph nodes that numba type-infers and compiles one by one, while this kernel is one
+function, compiled once and cached on disk by numba (measured, 4 traits, 500 records, empty
+caches: the marginal engine's first compile fell from 38.0 s to 32.1 s; value and gradient take
+0.45 ms at 8,000 records against 0.74 ms for the unrolled graph). It costs O(n k^3) per
+evaluation, value and gradient in one pass, and stays finite whenever every V_i is positive
+definite (also when G is proportional to R, where eigenvalue-based forms have undefined
+derivatives). Where a V_i is not positive definite the log-likelihood is -inf (NUTS treats the
+step as divergent).
 """
 
 from __future__ import annotations
@@ -201,6 +203,28 @@ class ScaledPairLogp(Op):
 
 
 scaled_pair_op = ScaledPairLogp()
+
+
+def scaled_pair_logp(resid, lam, G, R) -> pt.TensorVariable:
+    """Total log-density of records with covariances ``lam_i G + R`` (the rotated animal model).
+
+    Parameters
+    ----------
+    resid
+        k tensors of shape (n,), or one (n, k) tensor.
+    lam
+        Shape (n,): the eigenvalue of each rotated record.
+    G, R
+        (k, k) tensors.
+
+    Returns
+    -------
+    pytensor.tensor.TensorVariable
+        A scalar: the sum over records (the first output of :data:`scaled_pair_op`).
+    """
+    if isinstance(resid, (list, tuple)):
+        resid = pt.stack([pt.as_tensor_variable(x) for x in resid], axis=1)
+    return scaled_pair_op(resid, lam, G, R)[0]
 
 
 def _scaled_pair(op):

@@ -1,7 +1,7 @@
-"""Checks of the batched multivariate normal log-densities (unrolled graph and the numba Op).
+"""Checks of the marginal engine's likelihood Op (records with covariances lam_i G + R).
 
 Oracle: scipy.stats.multivariate_normal (a general-purpose reference library), and exact
-identities (marginal of a normal = normal of the sub-vector; finite differences for gradients).
+identities (central finite differences for gradients).
 """
 
 import numpy as np
@@ -10,45 +10,12 @@ import pytensor.tensor as pt
 import pytest
 from scipy import stats
 
-from ped2g.fit.batched_normal import batched_mvn_logp, scaled_pair_logp
+from ped2g.fit.marginal_likelihood_op import scaled_pair_logp
 
 
 def _random_covs(rng, n, k):
     a = rng.normal(size=(n, k, k))
     return a @ np.swapaxes(a, -1, -2) + 0.5 * np.eye(k)
-
-
-@pytest.mark.parametrize("k", [1, 2, 4, 7])
-def test_matches_scipy_per_record(k):
-    rng = np.random.default_rng(11)
-    n = 9
-    cov = _random_covs(rng, n, k)
-    r = rng.normal(size=(n, k))
-    got = batched_mvn_logp(pt.as_tensor_variable(r), cov).eval()
-    want = [stats.multivariate_normal(np.zeros(k), cov[i]).logpdf(r[i]) for i in range(n)]
-    np.testing.assert_allclose(got, want, rtol=1e-12, atol=1e-12)
-
-
-def test_missing_cells_give_marginal_density_of_observed():
-    # Exact identity: the density of the observed traits is the normal with the observed
-    # sub-vector and sub-matrix (scipy oracle on each sub-vector).
-    rng = np.random.default_rng(3)
-    n, k = 12, 4
-    cov = _random_covs(rng, n, k)
-    r = rng.normal(size=(n, k))
-    obs = rng.random((n, k)) > 0.35
-    obs[0] = [True, False, False, False]
-    obs[1] = True
-    r_masked = np.where(obs, r, 123.0)  # any finite value in missing cells
-    got = batched_mvn_logp(pt.as_tensor_variable(r_masked), cov, observed=obs.astype(float)).eval()
-    want = []
-    for i in range(n):
-        o = obs[i]
-        if not o.any():
-            want.append(0.0)
-            continue
-        want.append(stats.multivariate_normal(np.zeros(o.sum()), cov[i][np.ix_(o, o)]).logpdf(r[i, o]))
-    np.testing.assert_allclose(got, want, rtol=1e-12, atol=1e-12)
 
 
 @pytest.mark.parametrize("mode", ["FAST_COMPILE", "NUMBA"])

@@ -5,7 +5,7 @@ import pytest
 
 from null_helpers import random_pedigree
 from ped2g.errors import UserError
-from ped2g.null.build import build_null, chunk_size
+from ped2g.null.breeding_value_null import build_null, chunk_size
 
 
 def _setup(S=12):

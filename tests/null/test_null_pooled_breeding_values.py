@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from null_helpers import mrode_p1, mrode_p2
-from ped2g.null.simulate import check_draws, simulate_pooled
+from ped2g.null.pooled_breeding_values import check_draws, simulate_pooled
 from ped2g.rng import generator
 from ped2g.simulate.breeding_values import simulate_breeding_values
 

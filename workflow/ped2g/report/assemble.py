@@ -70,7 +70,6 @@ METHOD_NOTES = {
                   "dominant axis, the number of traits when variance is spread evenly.",
     "distance": "Zero for equal matrices; larger values mean more different matrices.",
 }
-MAX_HTML_ROWS = 60
 MAX_FOREST_ROWS = 60
 COLLAPSE_AFTER = 12  # longer tables are folded (one click opens them)
 
@@ -557,13 +556,6 @@ def _loadings_figures(sec: Section, method: str, loadings: pd.DataFrame | None, 
                              title, f"{title} (compare/loadings.csv, reference {reference})."))
 
 
-def _supported(display: pd.DataFrame) -> pd.DataFrame:
-    """Highlight the rows the reading rule supports as differences."""
-    mask = pd.DataFrame(False, index=display.index, columns=display.columns)
-    mask["supported"] = display["supported"] == "yes"
-    return mask.reset_index(drop=True)
-
-
 def _sample_sizes(inputs: ResultInputs, pheno, traits: list[str]) -> list[dict[str, Any]]:
     """Records, complete records, missing values and pedigree animals per population."""
     counts = tables.phenotype_counts(pheno, inputs.populations, traits)
@@ -598,14 +590,6 @@ def _refit_note(sec: Section, refit: dict[str, Any]) -> None:
 
 def _share(x: Any) -> str:
     return "unknown" if x is None else f"{100 * float(x):.0f}%"
-
-
-def _no_overlap(display: pd.DataFrame) -> pd.DataFrame | None:
-    if "intervals overlap" not in display:
-        return None
-    mask = pd.DataFrame(False, index=display.index, columns=display.columns)
-    mask["intervals overlap"] = display["intervals overlap"] == "no"
-    return mask.reset_index(drop=True)
 
 
 def _provenance_section(sec: Section, config: dict[str, Any], config_path: Path | None,

@@ -17,7 +17,7 @@ from ..contracts.fit_folder import FitSet
 from ..rng import generator
 from .estimators import ESTIMATORS, mendelian_estimator, sample_covariance_estimator
 from .shuffle import shuffle_permutations
-from .simulate import simulate_pooled
+from .pooled_breeding_values import simulate_pooled
 
 #: Arrays of ``draws x animals x traits`` doubles alive at once, per animal: the simulator's
 #: breeding values and Mendelian deviations of one pedigree, and the pooled array and its
@@ -105,7 +105,7 @@ def build_null(G: np.ndarray, peds: list[Pedigree], members: list[np.ndarray], e
     ----------
     G
         Shape (S, m, t, t): the observed posterior draws (checked with
-        :func:`ped2g.null.simulate.check_draws`).
+        :func:`ped2g.null.pooled_breeding_values.check_draws`).
     peds, members, populations
         Per population: pedigree, positions of the pooled animals, name.
     estimator
