@@ -170,7 +170,7 @@ def test_sparse_comparison_tables_are_reported(tmp_path):
     written = pd.read_csv(paths["results"] / "compare" / "skewers.csv")
     assert list(skewers.columns) == [c for c in written.columns if written[c].notna().any()]
     loading = pd.read_csv(paths["out"] / "tables" / "compare_tensor.csv")
-    assert {"index", "trait"} <= set(loading.columns)  # as compare/tensor.csv names them
+    assert {"axis", "axis2"} <= set(loading.columns)  # as compare/tensor.csv names them
 
 
 def test_missing_fit_is_one_clear_line_and_leaves_no_report(tmp_path, capsys):
