@@ -276,3 +276,23 @@ def get_logger(stage: str) -> logging.Logger:
         root.setLevel(logging.INFO)
         root.propagate = False
     return logger
+
+
+def load_netcdf(path: Path, what: str, command: str):
+    """A stage's netCDF file at ``path``, loaded into memory and closed (an ``xarray.Dataset``).
+
+    Raises
+    ------
+    UserError
+        ``path`` is not a file, or not a netCDF file (``what`` names the file, ``command`` the
+        stage that writes it).
+    """
+    import xarray as xr
+
+    if not path.is_file():
+        raise UserError(f"{what} file not found: {path}; run '{command}' first")
+    try:
+        with xr.open_dataset(path, engine="h5netcdf") as handle:
+            return handle.load()
+    except Exception:
+        raise UserError(f"{what} file {path} is not a netCDF file written by '{command}'") from None

@@ -27,6 +27,7 @@ import xarray as xr
 
 from .. import __version__
 from ..errors import UserError
+from ..io import load_netcdf
 
 NULL_KIND = "null"
 NULL_FILE = "null_G.nc"
@@ -126,13 +127,7 @@ def read_null(path: str | os.PathLike) -> BreedingValueNull:
     path = Path(path)
     if path.is_dir():
         path = path / NULL_FILE
-    if not path.is_file():
-        raise UserError(f"null file not found: {path}; run 'ped2g null' first")
-    try:
-        with xr.open_dataset(path, engine="h5netcdf") as handle:
-            ds = handle.load()
-    except Exception:
-        raise UserError(f"null file {path} is not a netCDF file written by 'ped2g null'") from None
+    ds = load_netcdf(path, "null", "ped2g null")
     if ds.attrs.get("ped2g_kind") != NULL_KIND or "G" not in ds or "draw_index" not in ds:
         raise UserError(f"null file {path} was not written by 'ped2g null' "
                         "(no ped2g_kind='null' attribute or no G/draw_index); rerun 'ped2g null'")

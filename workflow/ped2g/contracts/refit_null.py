@@ -29,6 +29,7 @@ import xarray as xr
 
 from .. import __version__
 from ..errors import UserError
+from ..io import load_netcdf
 
 REFIT_KIND = "null_refit"
 DIAGNOSTICS = ("rhat_max", "ess_bulk_min", "ess_tail_min", "divergences", "seconds")
@@ -95,13 +96,7 @@ class RefitNull:
 
 
 def _open(path: Path) -> xr.Dataset:
-    if not path.is_file():
-        raise UserError(f"refitting-null file not found: {path}; run 'ped2g null-refit' first")
-    try:
-        with xr.open_dataset(path, engine="h5netcdf") as handle:
-            ds = handle.load()
-    except Exception:
-        raise UserError(f"refitting-null file {path} is not a netCDF file written by 'ped2g null-refit'") from None
+    ds = load_netcdf(path, "refitting-null", "ped2g null-refit")
     if ds.attrs.get("ped2g_kind") != REFIT_KIND or "G" not in ds:
         raise UserError(f"{path} was not written by 'ped2g null-refit'; rerun it")
     return ds
