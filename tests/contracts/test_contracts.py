@@ -120,6 +120,36 @@ def test_refit_null_round_trip(tmp_path):
         refit_null.write_chunk(tmp_path / "c.nc", "c", TRAITS, [0, 1], written["a"][:1], {})
 
 
+def test_pilot_files_are_read_for_the_correction_and_refused_when_stale(tmp_path):
+    from ped2g.null.refit import Replicate
+
+    rng = np.random.default_rng(5)
+    G_bar = np.array([[2.0, 0.3], [0.3, 1.0]])
+    attrs = {"engine": "marginal", "shared_G": G_bar.ravel().tolist(), "seed": 1, "chains": 1, "warmup": 5,
+             "draws": 5}
+    written = []
+    for pop in ("a", "b"):
+        reps = [Replicate(G=_wishart(rng, (5,)), P=np.eye(2)[None].repeat(5, 0) * 9, mean=np.zeros((5, 2)),
+                          rhat_max=1.0, ess_bulk_min=5.0, ess_tail_min=5.0, divergences=0, seconds=1.0)
+                for _ in range(3)]
+        written += [r.G.mean(axis=0) for r in reps]
+        refit_null.write_chunk(tmp_path / "pilot" / f"{pop}.nc", pop, TRAITS, [0, 1, 2], reps, attrs,
+                               kind=refit_null.PILOT_KIND)
+    means = refit_null.read_pilots([tmp_path / "pilot"], ["a", "b"], TRAITS, G_bar)
+    np.testing.assert_allclose(np.mean(means, axis=0), np.mean(written, axis=0), rtol=1e-12)
+    assert len(means) == 6
+    with pytest.raises(UserError, match="another shared G"):
+        refit_null.read_pilots([tmp_path / "pilot"], ["a", "b"], TRAITS, 1.01 * G_bar)
+    with pytest.raises(UserError, match="no pilot refits for population.* c"):
+        refit_null.read_pilots([tmp_path / "pilot"], ["a", "b", "c"], TRAITS, G_bar)
+    # a pilot file is not a replicate file, and the other way round
+    with pytest.raises(UserError, match="not written by 'ped2g null-refit'"):
+        refit_null.read_refits([tmp_path / "pilot"], ["a", "b"], TRAITS)
+    refit_null.write_chunk(tmp_path / "refits" / "a.nc", "a", TRAITS, [0], [reps[0]], attrs)
+    with pytest.raises(UserError, match="--pilot"):
+        refit_null.read_pilots([tmp_path / "refits"], ["a"], TRAITS, G_bar)
+
+
 def _tables():
     rows = {m: compare_tables.as_table(pd.DataFrame({"method": [m], "statistic": ["s"], "median": [0.5],
                                                       "mean": [0.4]}))

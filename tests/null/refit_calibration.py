@@ -42,8 +42,8 @@ import yaml
 
 from ped2g.compare.pipeline import compare
 from ped2g.config import validate
-from ped2g.null.refit import (DesignParameters, Refitter, design_parameters, replicate_name,
-                              shared_G, simulate_records)
+from ped2g.null.refit import (DesignParameters, Refitter, bias_corrected_G, design_parameters,
+                              replicate_name, shared_G, simulate_records)
 from ped2g.contracts.refit_null import DIAGNOSTICS, RefitNull
 from ped2g.contracts.fit_folder import FitSet
 from ped2g.rng import generator
@@ -105,9 +105,11 @@ def recovery_rows(rep, G_true: np.ndarray, R_true: np.ndarray, traits: list[str]
 
 
 def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int, study: int,
-            truth: dict | None = None) -> pd.DataFrame:
+            truth: dict | None = None, pilot: int = 0) -> pd.DataFrame:
     """Fit one simulated study, build its refitting null, and return every compare row (and, with
-    ``truth`` = {population: (G, R)}, the fits' recovery rows in ``analyse.recovery``)."""
+    ``truth`` = {population: (G, R)}, the fits' recovery rows in ``analyse.recovery``). With
+    ``pilot`` > 0 the shared G is bias-corrected from that many pilot refits per population, as
+    the workflow does (:func:`ped2g.null.refit.bias_corrected_G`)."""
     pops = list(data)
     observed = {p: refitters[p].refit(Y[p], f"calibration:{study}:{p}") for p in pops}
     if truth is not None:
@@ -116,6 +118,11 @@ def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int,
     G0 = shared_G([observed[p].G.mean(axis=0) for p in pops])
     params = {p: design_parameters(data[p], observed[p].means) for p in pops}
     seed = int(config["sampling"]["seed"]) + 1000 * study
+    if pilot > 0:
+        pilots = [refitters[p].refit(simulate_records(data[p], G0, params[p], generator(seed, "null_pilot", p, k)),
+                                     replicate_name(p, k, "null_pilot") + f":{study}").G.mean(axis=0)
+                  for p in pops for k in range(pilot)]
+        G0 = bias_corrected_G(G0, pilots)
     reps = {p: [refitters[p].refit(simulate_records(data[p], G0, params[p],
                                                     generator(seed, "null_refit", p, r)),
                                    replicate_name(p, r) + f":{study}") for r in range(replicates)]
@@ -146,7 +153,7 @@ def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int,
 
 
 def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicates: int,
-        seed: int = 1, progress=print, with_null: bool = True) -> pd.DataFrame:
+        seed: int = 1, progress=print, with_null: bool = True, pilot: int = 0) -> pd.DataFrame:
     """Simulate and analyse ``studies`` studies on one design; every tested row of every study
     (none with ``with_null=False``, which only fits each study).
 
@@ -162,7 +169,7 @@ def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicat
         Y = {p: simulate_records(d, Gs[p], params[p], generator(seed, "calibration", s, p))
              for p, d in data.items()}
         if with_null:
-            out.append(analyse(refitters, data, Y, config, replicates, s, truth))
+            out.append(analyse(refitters, data, Y, config, replicates, s, truth, pilot))
             recovery += analyse.recovery
         else:
             for p in data:
@@ -228,6 +235,9 @@ def main() -> None:
     parser.add_argument("--warmup", type=int, default=None, help="tuning iterations per chain")
     parser.add_argument("--draws", type=int, default=None, help="kept draws per chain")
     parser.add_argument("--lkj-eta", type=float, default=None, help="model.priors.lkj_eta of the fits")
+    parser.add_argument("--pilot", type=int, default=None,
+                        help="pilot refits per population for the shared G's bias correction "
+                             "(default: compare.null_model.pilot_replicates of the demo config; 0: none)")
     parser.add_argument("--tables", default=None, metavar="CSV",
                         help="only print the tables of a CSV written by an earlier run with --out")
     args = parser.parse_args()
@@ -260,12 +270,14 @@ def main() -> None:
         print(recovery_table(rec).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
         print(recovery_summary(rec))
         return
-    rows = run(data, cfg, Gs, params, args.studies, args.replicates, args.seed)
+    pilot = int(cfg["compare"]["null_model"]["pilot_replicates"] if args.pilot is None else args.pilot)
+    rows = run(data, cfg, Gs, params, args.studies, args.replicates, args.seed, pilot=pilot)
     if args.out:
         rows.to_csv(args.out, index=False)
         run.recovery.to_csv(str(args.out).replace(".csv", "") + "_recovery.csv", index=False)
     print(f"{args.studies} studies x {args.replicates} null replicates, "
           f"{'the demo truth (power)' if args.truth else 'one shared G (calibration)'}, "
+          f"{pilot} pilot refits per population for the shared G's bias correction, "
           f"{time.perf_counter() - start:.0f} s")
     print(share_table(rows).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
     print(overall(rows))

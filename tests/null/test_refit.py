@@ -8,7 +8,9 @@ Checks:
   Monte Carlo error;
 * the fixed part rebuilt from the fit's reported fixed effects gives back the population mean the
   fit reports (an exact identity of the back-transformation in ped2g.fit.outputs);
-* the shared G is the mean of the posterior means.
+* the shared G is the mean of the posterior means, and its bias correction G_bar M^-1 G_bar
+  undoes a scalar shrinkage exactly, equals G_bar - (M - G_bar) to first order and stays
+  positive definite (exact algebra).
 """
 
 from __future__ import annotations
@@ -20,7 +22,8 @@ import xarray as xr
 from ped2g.errors import UserError
 from ped2g.fit.data import FitData, RandomEffect
 from ped2g.fit.outputs import original_units
-from ped2g.null.refit import DesignParameters, design_parameters, shared_G, simulate_records
+from ped2g.null.refit import (DesignParameters, bias_corrected_G, design_parameters, shared_G,
+                              simulate_records)
 from ped2g.pedigree.core import Pedigree
 from textbook import P1_DAM, P1_F, P1_SIRE, tabular_relationship
 
@@ -108,3 +111,41 @@ def test_fixed_part_gives_back_the_population_mean_the_fit_reports():
 def test_shared_G_is_the_mean_of_the_posterior_means():
     a, b = np.array([[2.0, 0.5], [0.5, 1.0]]), np.array([[4.0, -0.5], [-0.5, 3.0]])
     np.testing.assert_allclose(shared_G([a, b]), [[3.0, 0.0], [0.0, 2.0]])
+
+
+def _spd(rng, t):
+    A = rng.normal(size=(t, t))
+    return A @ A.T + t * np.eye(t)
+
+
+def test_bias_correction_undoes_a_scalar_shrinkage_exactly():
+    # exact identity: if the fit returns k G_bar on average, G_bar M^-1 G_bar = G_bar / k
+    rng = np.random.default_rng(11)
+    G_bar = _spd(rng, 4)
+    for k in (0.6, 0.85, 1.3):
+        np.testing.assert_allclose(bias_corrected_G(G_bar, [k * G_bar, k * G_bar]), G_bar / k, rtol=1e-12)
+
+
+def test_bias_correction_is_minus_the_bias_to_first_order():
+    # Taylor expansion (exact algebra): G (G + eB)^-1 G = G - eB + e^2 B G^-1 B + O(e^3), so the
+    # error of G_bar - eB shrinks with e^2 and its ratio to e^2 tends to B G^-1 B.
+    rng = np.random.default_rng(12)
+    G_bar = _spd(rng, 3)
+    B = rng.normal(size=(3, 3))
+    B = B + B.T
+    second = B @ np.linalg.solve(G_bar, B)
+    for eps in (1e-2, 1e-3):
+        got = bias_corrected_G(G_bar, [G_bar + eps * B])
+        np.testing.assert_allclose((got - (G_bar - eps * B)) / eps ** 2, second, rtol=0.05, atol=0.05 * np.abs(second).max())
+
+
+def test_bias_correction_stays_positive_definite_where_the_additive_one_does_not():
+    # the pilots' mean is well above G_bar along one axis: 2 G_bar - M has a negative eigenvalue
+    G_bar = np.diag([1.0, 0.2])
+    M = np.diag([1.1, 0.5])
+    assert np.linalg.eigvalsh(2 * G_bar - M).min() < 0
+    got = bias_corrected_G(G_bar, [M])
+    assert np.linalg.eigvalsh(got).min() > 0
+    np.testing.assert_allclose(got, np.diag([1 / 1.1, 0.04 / 0.5]), rtol=1e-12)
+    # the pilots' matrices are averaged first
+    np.testing.assert_allclose(bias_corrected_G(G_bar, [np.diag([1.0, 0.4]), np.diag([1.2, 0.6])]), got, rtol=1e-12)

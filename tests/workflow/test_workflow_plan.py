@@ -26,6 +26,7 @@ STAGE_OUTPUTS = {
     "fit": ["fits/{p}/posterior.nc", "fits/{p}/parameters.csv", "fits/{p}/diagnostics.json",
             "fits/{p}/pedigree_used.csv"],
     "null": ["null/null_G.nc", "null/summary.json"],
+    "null_pilot": ["null/pilot/{p}.nc"],
     "null_refit": ["null/refits/{p}/replicates_0.nc"],
     "compare": ["compare/draws.nc"],
     "report": ["report/report.html"],
@@ -39,9 +40,11 @@ def test_dry_run_lists_one_fit_per_population(tmp_path):
     table = pd.read_csv(tmp_path / "data" / "phenotypes.csv", dtype=str)
     populations = sorted(table["site"].unique())
     assert populations == ["north", "south"]
-    # the refitting null: config/tiny.yaml asks for 39 replicates, 39 per job
-    assert planned_jobs(result) == {"pedigree": 1, "fit": 2, "null_refit": 2, "compare": 1,
+    # the refitting null: config/tiny.yaml asks for 39 replicates, 39 per job, after one pilot job
+    # per population (pilot_replicates: 4)
+    assert planned_jobs(result) == {"pedigree": 1, "fit": 2, "null_pilot": 2, "null_refit": 2, "compare": 1,
                                     "report": 1, "all": 1}
+    assert planned_wildcards(result, "null_pilot") == ["north", "south"]
     assert planned_wildcards(result, "null_refit") == ["north", "south"]
     assert planned_wildcards(result, "fit") == populations
 
@@ -201,18 +204,27 @@ def _fake_finished_run(folder: Path, populations: list[str]) -> None:
     ({"compare": {"skewers": 80}}, {"compare": 1, "report": 1, "all": 1}),
     # the breeding-value null's estimator is not read by the refitting null
     ({"compare": {"null_model": {"estimator": "sample", "replicates": 39, "replicates_per_job": 39,
-                                 "refit": {"chains": 1, "warmup": 100, "draws": 100}}}},
+                                 "pilot_replicates": 4, "refit": {"chains": 1, "warmup": 100, "draws": 100}}}},
      {"compare": 1, "report": 1, "all": 1}),
-    ({"compare": {"null_model": {"replicates": 39, "replicates_per_job": 39,
+    ({"compare": {"null_model": {"replicates": 39, "replicates_per_job": 39, "pilot_replicates": 4,
                                  "refit": {"chains": 1, "warmup": 100, "draws": 120}}}},
+     {"null_pilot": 2, "null_refit": 2, "compare": 1, "report": 1, "all": 1}),
+    # more pilots: new pilots, hence a new shared G and new replicates
+    ({"compare": {"null_model": {"replicates": 39, "replicates_per_job": 39, "pilot_replicates": 5,
+                                 "refit": {"chains": 1, "warmup": 100, "draws": 100}}}},
+     {"null_pilot": 2, "null_refit": 2, "compare": 1, "report": 1, "all": 1}),
+    # more replicates reuse the pilots
+    ({"compare": {"null_model": {"replicates": 40, "replicates_per_job": 40, "pilot_replicates": 4,
+                                 "refit": {"chains": 1, "warmup": 100, "draws": 100}}}},
      {"null_refit": 2, "compare": 1, "report": 1, "all": 1}),
     ({"compare": {"alpha": 0.1}}, {"compare": 1, "report": 1, "all": 1}),
     ({"report": {"title": "Another title"}}, {"report": 1, "all": 1}),
-    ({"sampling": {"draws": 150}}, {"fit": 2, "null_refit": 2, "compare": 1, "report": 1, "all": 1}),
+    ({"sampling": {"draws": 150}}, {"fit": 2, "null_pilot": 2, "null_refit": 2, "compare": 1, "report": 1,
+                                    "all": 1}),
     ({"data": {"missing_parent": ["0", "NA", "-"]}},
-     {"pedigree": 1, "fit": 2, "null_refit": 2, "compare": 1, "report": 1, "all": 1}),
-], ids=["nothing", "skewers", "null-estimator", "refit-draws", "alpha", "report-title", "draws",
-        "missing-codes"])
+     {"pedigree": 1, "fit": 2, "null_pilot": 2, "null_refit": 2, "compare": 1, "report": 1, "all": 1}),
+], ids=["nothing", "skewers", "null-estimator", "refit-draws", "pilots", "replicates", "alpha", "report-title",
+        "draws", "missing-codes"])
 def test_a_settings_change_reruns_only_the_stages_it_affects(tmp_path, changes, expected):
     config = make_study(tmp_path)
     first = snakemake(tmp_path, "-n", config=config)  # writes results/config/*.yaml
@@ -234,7 +246,8 @@ def test_changed_phenotype_table_reruns_the_fits(tmp_path):
     _fake_finished_run(tmp_path, ["north", "south"])
     (tmp_path / "data" / "phenotypes.csv").touch()
     result = snakemake(tmp_path, "-n", config=config)
-    assert planned_jobs(result) == {"fit": 2, "null_refit": 2, "compare": 1, "report": 1, "all": 1}
+    assert planned_jobs(result) == {"fit": 2, "null_pilot": 2, "null_refit": 2, "compare": 1, "report": 1,
+                                    "all": 1}
 
 
 # Each case: (text added to the study's config, words the one-line message must contain).

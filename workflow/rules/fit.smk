@@ -34,13 +34,7 @@ rule fit:
         runtime=fit_runtime,
     shell:
         "rm -rf {params.kept:q}; "
-        # One compile cache for all fits of the run (node-local tmpdir): the populations' models
-        # share their structure, so every fit after the first loads the compiled code instead of
-        # compiling again (demo: 39.5 s for the first fit, 17.5 s for the next). PyTensor locks its cache
-        # directory, so parallel fits can share it.
-        "cache={resources.tmpdir:q}/ped2g-compile-cache; mkdir -p \"$cache\"; "
-        "export PYTENSOR_FLAGS=\"${{PYTENSOR_FLAGS:+$PYTENSOR_FLAGS,}}base_compiledir=$cache/pytensor\"; "
-        "export NUMBA_CACHE_DIR=\"$cache/numba\"; "
+        + COMPILE_CACHE
         + stage_shell(
             "fit --config {input.config:q} --population {wildcards.population:q} "
             "--pedigree {params.pedigree_dir:q} --out {params.out:q}",

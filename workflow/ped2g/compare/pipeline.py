@@ -197,6 +197,9 @@ def _calibrate(tables: dict[str, pd.DataFrame], stats_obs: dict[str, xr.DataArra
     summary = {
         "replicates": Rn, "replicates_needed": need, "replicates_without_statistics": failed,
         "shared_G": refits.shared_G.tolist(),
+        "pilot_replicates": int(refits.attrs.get("pilot_replicates") or 0),
+        "shared_G_uncorrected": (np.asarray(refits.attrs["shared_G_uncorrected"]).tolist()
+                                 if "shared_G_uncorrected" in refits.attrs else refits.shared_G.tolist()),
         "chains": refits.attrs.get("chains"), "warmup": refits.attrs.get("warmup"),
         "draws": refits.attrs.get("draws"), "engine": refits.attrs.get("engine"),
         "mcse_over_null_sd_median": float(np.median(ratio)) if len(ratio) else None,

@@ -9,11 +9,18 @@ A file (netCDF-4, engine ``h5netcdf``) holds, for one population and replicates 
 * coordinate ``replicate`` (the replicate numbers, shared by every population: replicate r of
   every population makes one simulated study), ``trait``, ``trait2``;
 * attributes ``ped2g_kind = "null_refit"``, ``population``, ``engine``, ``shared_G`` (the G all
-  populations share, row-major, original units), ``seed``, ``chains``, ``warmup``, ``draws``,
+  populations share, row-major, original units), ``shared_G_uncorrected`` (the mean of the fits'
+  posterior-mean G before the bias correction), ``pilot_replicates`` (pilot refits per population
+  behind the correction, 0 for none), ``seed``, ``chains``, ``warmup``, ``draws``,
   ``ped2g_version``.
 
 :func:`read_refits` gathers the files of every population into one :class:`RefitNull`, checking
 that they belong together. Later stages read the refitting null only through it.
+
+Pilot files (``ped2g null-refit --pilot``, one per population) have the same layout with
+``ped2g_kind = "null_pilot"`` and ``shared_G`` the uncorrected mean they were simulated under;
+:func:`read_pilots` returns their posterior-mean G matrices for
+:func:`ped2g.null.refit.bias_corrected_G`.
 """
 
 from __future__ import annotations
@@ -32,12 +39,14 @@ from ..errors import UserError
 from ..io import load_netcdf
 
 REFIT_KIND = "null_refit"
+PILOT_KIND = "null_pilot"
 DIAGNOSTICS = ("rhat_max", "ess_bulk_min", "ess_tail_min", "divergences", "seconds")
 
 
 def write_chunk(path: str | os.PathLike, population: str, traits: list[str], replicates: list[int],
-                results: list, attrs: dict[str, Any]) -> Path:
-    """Write one chunk (``results``: :class:`ped2g.null.refit.Replicate` per replicate number).
+                results: list, attrs: dict[str, Any], kind: str = REFIT_KIND) -> Path:
+    """Write one chunk (``results``: :class:`ped2g.null.refit.Replicate` per replicate number);
+    ``kind`` is :data:`REFIT_KIND`, or :data:`PILOT_KIND` for a population's pilot refits.
 
     The writer's check: one result per replicate number, every draw array of the shape its
     dimensions say (ValueError otherwise).
@@ -59,7 +68,9 @@ def write_chunk(path: str | os.PathLike, population: str, traits: list[str], rep
         coords={"replicate": np.asarray(replicates, dtype=np.int64), "trait": list(traits),
                 "trait2": list(traits)})
     ds.attrs.update({k: v for k, v in attrs.items()})
-    ds.attrs.update(ped2g_kind=REFIT_KIND, population=str(population), ped2g_version=__version__)
+    if kind not in (REFIT_KIND, PILOT_KIND):
+        raise ValueError(f"kind must be {REFIT_KIND!r} or {PILOT_KIND!r}, got {kind!r}")
+    ds.attrs.update(ped2g_kind=kind, population=str(population), ped2g_version=__version__)
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(path.name + ".partial")
     ds.to_netcdf(tmp, engine="h5netcdf")
@@ -81,7 +92,8 @@ class RefitNull:
         One row per population and replicate: population, replicate and :data:`DIAGNOSTICS`.
     shared_G : numpy.ndarray, shape (t, t)
     attrs : dict
-        engine per population, seed, chains, warmup, draws.
+        engine per population, seed, chains, warmup, draws, pilot_replicates and (when the shared G
+        was bias-corrected) shared_G_uncorrected.
     """
 
     populations: list[str]
@@ -95,11 +107,45 @@ class RefitNull:
     attrs: dict[str, Any]
 
 
-def _open(path: Path) -> xr.Dataset:
+def _open(path: Path, kind: str = REFIT_KIND) -> xr.Dataset:
     ds = load_netcdf(path, "refitting-null", "ped2g null-refit")
-    if ds.attrs.get("ped2g_kind") != REFIT_KIND or "G" not in ds:
-        raise UserError(f"{path} was not written by 'ped2g null-refit'; rerun it")
+    if ds.attrs.get("ped2g_kind") != kind or "G" not in ds:
+        what = "'ped2g null-refit --pilot'" if kind == PILOT_KIND else "'ped2g null-refit'"
+        raise UserError(f"{path} was not written by {what}; rerun it")
     return ds
+
+
+def read_pilots(paths: list[str | os.PathLike], populations: list[str], traits: list[str],
+                shared_G: np.ndarray) -> list[np.ndarray]:
+    """The posterior-mean G of every pilot refit of every population (files or folders).
+
+    Raises
+    ------
+    UserError
+        A file that is not a pilot file, other traits, a population without pilots, or pilots
+        simulated under another G than ``shared_G`` (the fits changed since: rerun the pilots).
+    """
+    files: list[Path] = []
+    for p in map(Path, paths):
+        files += sorted(p.rglob("*.nc")) if p.is_dir() else [p]
+    means, seen = [], set()
+    t = len(traits)
+    for f in files:
+        ds = _open(f, PILOT_KIND)
+        if [str(x) for x in ds["trait"].values] != list(traits):
+            raise UserError(f"pilot file {f} has traits {[str(x) for x in ds['trait'].values]}, the fits "
+                            f"have {list(traits)}; rerun 'ped2g null-refit --pilot'")
+        under = np.asarray(ds.attrs["shared_G"], dtype=float).reshape(t, t)
+        if not np.allclose(under, shared_G, rtol=1e-12, atol=0):
+            raise UserError(f"pilot file {f} was simulated under another shared G than the present fits "
+                            "give (the fits changed since); rerun 'ped2g null-refit --pilot'")
+        seen.add(str(ds.attrs["population"]))
+        means += list(np.asarray(ds["G"].values, dtype=float).mean(axis=1))
+    missing = [p for p in populations if p not in seen]
+    if missing:
+        raise UserError(f"no pilot refits for population(s) {', '.join(missing)}; run "
+                        "'ped2g null-refit --pilot' for them, or set compare.null_model.pilot_replicates: 0")
+    return means
 
 
 def read_refits(paths: list[str | os.PathLike], populations: list[str], traits: list[str]) -> RefitNull:
@@ -149,7 +195,9 @@ def read_refits(paths: list[str | os.PathLike], populations: list[str], traits: 
                       for p in populations], ignore_index=True)
     first = merged[populations[0]].attrs
     attrs = {"engine": {p: str(merged[p].attrs.get("engine", "")) for p in populations},
-             **{k: first.get(k) for k in ("seed", "chains", "warmup", "draws")}}
+             **{k: first.get(k) for k in ("seed", "chains", "warmup", "draws", "pilot_replicates")}}
+    if "shared_G_uncorrected" in first:
+        attrs["shared_G_uncorrected"] = np.asarray(first["shared_G_uncorrected"], dtype=float).reshape(t, t)
     return RefitNull(populations=list(populations), traits=list(traits), replicates=reps[0],
                      G=stack["G"], P=stack["P"], mean=stack["mean"],
                      diagnostics=diag[["population", "replicate", *DIAGNOSTICS]],

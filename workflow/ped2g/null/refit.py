@@ -25,6 +25,8 @@ memory; see docs/methods.md §5.6):
 Random streams: replicate r of population p draws its records from
 ``rng.generator(seed, "null_refit", p, r)`` and seeds its sampler from the name
 ``null_refit:p:r``, so a replicate's numbers do not depend on how replicates are split into jobs.
+Pilot refits (the bias correction of the shared G, :func:`bias_corrected_G`) use the stream
+``"null_pilot"`` the same way, so they never share random numbers with the replicates.
 """
 
 from __future__ import annotations
@@ -46,6 +48,27 @@ from ..fit.prepare import standardise
 def shared_G(posterior_mean_G: list[np.ndarray]) -> np.ndarray:
     """The G every population shares under the null: the mean of the posterior-mean G matrices."""
     G = np.mean(np.asarray(posterior_mean_G, dtype=float), axis=0)
+    return 0.5 * (G + G.T)
+
+
+def bias_corrected_G(G_bar: np.ndarray, pilot_means: list[np.ndarray]) -> np.ndarray:
+    """The shared G with the estimator's shrinkage at ``G_bar`` taken out (docs/methods.md §5.6).
+
+    ``pilot_means`` are posterior-mean G matrices of pilot refits of data simulated under
+    ``G_bar`` (every population, a few replicates each). Their mean ``M`` estimates what the fit
+    returns on average when the truth is ``G_bar``; posterior means are pulled toward the prior
+    (smaller, rounder), and ``G_bar`` itself is a mean of such estimates. The corrected matrix is
+
+        G* = G_bar M^-1 G_bar
+
+    which equals ``G_bar - (M - G_bar)`` to first order in the bias, is exact when the fit shrinks
+    by a scalar factor (``M = k G_bar`` gives ``G_bar / k``), and is positive definite whenever
+    ``G_bar`` and ``M`` are (the additive ``2 G_bar - M`` need not be).
+    """
+    G_bar = 0.5 * (np.asarray(G_bar, dtype=float) + np.asarray(G_bar, dtype=float).T)
+    M = np.mean(np.asarray(pilot_means, dtype=float), axis=0)
+    M = 0.5 * (M + M.T)
+    G = G_bar @ np.linalg.solve(M, G_bar)
     return 0.5 * (G + G.T)
 
 
@@ -219,30 +242,41 @@ class Refitter:
                                 **{k: v.mean(("chain", "draw")) for k, v in extra.items()}})
 
 
-def replicate_name(population: str, replicate: int) -> str:
+#: The random streams of the replicates and of the pilot refits (module docstring).
+STREAMS = ("null_refit", "null_pilot")
+
+
+def replicate_name(population: str, replicate: int, stream: str = "null_refit") -> str:
     """The name a replicate's sampler seed is derived from (see the module docstring)."""
-    return f"null_refit:{population}:{int(replicate)}"
+    return f"{stream}:{population}:{int(replicate)}"
 
 
 def run_replicates(data: FitData, engine_name: str, config: dict[str, Any], G: np.ndarray,
                    params: DesignParameters, replicates: list[int],
-                   log: logging.Logger | None = None) -> list[Replicate]:
-    """Simulate and refit the given replicate numbers of one population; progress to ``log``."""
+                   log: logging.Logger | None = None, stream: str = "null_refit",
+                   refitter: Refitter | None = None) -> list[Replicate]:
+    """Simulate and refit the given replicate numbers of one population; progress to ``log``.
+
+    ``stream`` is ``"null_refit"`` for the null's replicates and ``"null_pilot"`` for the pilot
+    refits of the bias correction; ``refitter`` reuses a compiled model."""
     from ..rng import generator
 
+    if stream not in STREAMS:
+        raise ValueError(f"stream must be one of {STREAMS}, got {stream!r}")
     log = log or logging.getLogger("ped2g.null_refit")
     seed = int(config["sampling"]["seed"])
-    refitter = Refitter(data, engine_name, config, log)
+    refitter = refitter or Refitter(data, engine_name, config, log)
+    what = "pilot refits" if stream == "null_pilot" else "replicates refitted"
     out = []
     start = time.perf_counter()
     last = start
     for i, r in enumerate(replicates, 1):
-        Y = simulate_records(data, G, params, generator(seed, "null_refit", data.population, int(r)))
-        out.append(refitter.refit(Y, replicate_name(data.population, r)))
+        Y = simulate_records(data, G, params, generator(seed, stream, data.population, int(r)))
+        out.append(refitter.refit(Y, replicate_name(data.population, r, stream)))
         now = time.perf_counter()
         if now - last >= 20 or i == len(replicates):
             left = (now - start) / i * (len(replicates) - i)
-            log.info("population %s: %d of %d replicates refitted (%.1f s each, about %.0f s left)",
-                     data.population, i, len(replicates), (now - start) / i, left)
+            log.info("population %s: %d of %d %s (%.1f s each, about %.0f s left)",
+                     data.population, i, len(replicates), what, (now - start) / i, left)
             last = now
     return out

@@ -18,7 +18,12 @@ refit each with the engine, model and priors of its observed fit and the shorter
 compare.null_model.refit. Replicates --first to --first + --count - 1; replicate r of every
 population makes one simulated study, so run the same replicates for every population. Writes one
 netCDF file (--out) with the refits' G, P and mean draws and their convergence figures; the
-compare stage reads these files (--refits) to give each statistic a calibrated p-value."""
+compare stage reads these files (--refits) to give each statistic a calibrated p-value.
+
+The shared G is corrected for the fit's pull toward the prior: first run --pilot for every
+population (compare.null_model.pilot_replicates refits each under the uncorrected mean, written to
+--out), then pass those files to every replicate job with --pilots. With pilot_replicates 0 the
+uncorrected mean is used and --pilots is not needed."""
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -31,6 +36,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--count", type=int, default=None,
                         help="number of replicates (default: compare.null_model.replicates, or with null "
                              "the fewest the reading rule needs)")
+    parser.add_argument("--pilot", action="store_true",
+                        help="run this population's pilot refits for the shared G's bias correction "
+                             "(--count defaults to compare.null_model.pilot_replicates)")
+    parser.add_argument("--pilots", nargs="+", default=None, metavar="FILE",
+                        help="every population's pilot files (or their folder), from --pilot")
     parser.add_argument("--out", required=True, metavar="FILE", help="netCDF file to write")
 
 
@@ -57,6 +67,8 @@ def fit_engine(fit_dir: Path, population: str, on_failure: str = "stop", log=Non
 
 
 def run(args: argparse.Namespace) -> int:
+    import numpy as np
+
     from .. import __version__
     from ..compare.calibrated import planned_replicates
     from ..config import load_config
@@ -65,29 +77,47 @@ def run(args: argparse.Namespace) -> int:
     from ..fit.prepare import prepare
     from ..io import get_logger, read_table
     from ..contracts.fit_folder import load_fit, posterior_means
-    from .refit import design_parameters, run_replicates, shared_G
-    from ..contracts.refit_null import write_chunk
+    from .refit import bias_corrected_G, design_parameters, run_replicates, shared_G
+    from ..contracts.refit_null import PILOT_KIND, REFIT_KIND, read_pilots, write_chunk
 
     log = get_logger("null_refit")
     start = time.perf_counter()
     config = load_config(args.config)
     null_cfg = config["compare"]["null_model"]
+    pilots = int(null_cfg["pilot_replicates"])
+    if args.pilot and args.pilots:
+        raise UserError("--pilot runs the pilot refits and --pilots reads them: give one of the two")
+    if args.pilot and pilots == 0 and args.count is None:
+        raise UserError("compare.null_model.pilot_replicates is 0, so there are no pilot refits to run "
+                        "(give --count, or set pilot_replicates above 0)")
+    if not args.pilot and pilots > 0 and not args.pilots:
+        raise UserError(f"compare.null_model.pilot_replicates is {pilots}: run 'ped2g null-refit --pilot' for "
+                        "every population first and pass their files with --pilots (or set it to 0)")
     fits = {}
     for d in args.fits:
         fit = load_fit(d)
         fits[fit.population] = fit
     count = args.count
     if count is None:
-        count = planned_replicates(len(fits), len(config["traits"]), float(config["compare"]["alpha"]),
-                                   null_cfg["replicates"])
+        count = pilots if args.pilot else planned_replicates(
+            len(fits), len(config["traits"]), float(config["compare"]["alpha"]), null_cfg["replicates"])
     if args.first < 0 or count < 1:
         raise UserError(f"--first must be 0 or more and --count 1 or more, got {args.first} and {count}")
     population = str(args.population)
     if population not in fits:
         raise UserError(f"population '{population}' has no fit among --fits ({', '.join(fits)})")
     engines = {p: fit_engine(f.path, p, config["checks"]["on_failure"], log) for p, f in fits.items()}
-    G = shared_G([f.G.mean(axis=0) for f in fits.values()])
-    log.info("shared G under the null: the mean of the posterior-mean G of %s", ", ".join(fits))
+    G_bar = shared_G([f.G.mean(axis=0) for f in fits.values()])
+    G, n_pilot = G_bar, 0
+    if args.pilots:
+        means = read_pilots(args.pilots, list(fits), list(config["traits"]), G_bar)
+        G, n_pilot = bias_corrected_G(G_bar, means), len(means) // len(fits)
+        log.info("shared G under the null: the mean of the posterior-mean G of %s, corrected for the fit's "
+                 "pull toward the prior measured by %d pilot refits (trace %.4g before, %.4g after)",
+                 ", ".join(fits), len(means), np.trace(G_bar), np.trace(G))
+    else:
+        log.info("shared G under the null: the mean of the posterior-mean G of %s%s", ", ".join(fits),
+                 " (the pilots simulate under it)" if args.pilot else "")
 
     phen_path = config["data"]["phenotypes"]
     phenotypes = read_table(phen_path, "phenotype table")
@@ -95,15 +125,20 @@ def run(args: argparse.Namespace) -> int:
     data = prepare(config, phenotypes, pedigree, population, source=str(phen_path), logger=log)
     params = design_parameters(data, posterior_means(fits[population].path))
     replicates = list(range(args.first, args.first + count))
-    log.info("population %s: refitting replicates %d-%d (%d records, %d missing cells, engine %s, "
-             "%d chain(s) x (%d + %d))", population, replicates[0], replicates[-1], data.n_records,
+    log.info("population %s: refitting %s %d-%d (%d records, %d missing cells, engine %s, "
+             "%d chain(s) x (%d + %d))", population, "pilot refits" if args.pilot else "replicates",
+             replicates[0], replicates[-1], data.n_records,
              int(data.missing.sum()), engines[population], null_cfg["refit"]["chains"],
              null_cfg["refit"]["warmup"], null_cfg["refit"]["draws"])
-    results = run_replicates(data, engines[population], config, G, params, replicates, log)
+    results = run_replicates(data, engines[population], config, G, params, replicates, log,
+                             stream="null_pilot" if args.pilot else "null_refit")
     attrs = {"engine": engines[population], "shared_G": G.ravel().tolist(),
+             "shared_G_uncorrected": G_bar.ravel().tolist(),
+             "pilot_replicates": n_pilot,
              "seed": int(config["sampling"]["seed"]), "chains": int(null_cfg["refit"]["chains"]),
              "warmup": int(null_cfg["refit"]["warmup"]), "draws": int(null_cfg["refit"]["draws"]),
              "ped2g_version": __version__}
-    write_chunk(args.out, population, data.traits, replicates, results, attrs)
+    write_chunk(args.out, population, data.traits, replicates, results, attrs,
+                kind=PILOT_KIND if args.pilot else REFIT_KIND)
     log.info("wrote %s (%d replicates) in %.1f s", args.out, len(results), time.perf_counter() - start)
     return 0

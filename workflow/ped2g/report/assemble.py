@@ -30,7 +30,7 @@ from .pdf import PdfResult, write_pdf
 from .truth import find_truth, read_truth
 from .loaders import (ResultInputs, read_compare_as_written, read_compare_draws, read_phenotypes,
                       read_results)
-from .methods_text import CAUTION_REFERENCES, REFERENCES, cautions, methods_paragraph
+from .methods_text import CAUTION_REFERENCES, REFERENCES, cautions, methods_paragraph, shared_G_text
 from .provenance import checksums, package_versions, run_context, stage_records
 
 SECTION_ORDER = [
@@ -578,7 +578,7 @@ def _refit_note(sec: Section, refit: dict[str, Any]) -> None:
     """How the refitting null was made and how well its short refits estimate (the findings
     themselves are at the top of the page)."""
     sec.note(f"The refitting null: {refit['replicates']} simulated studies in which every population "
-             f"shares one G (the mean of the posterior-mean G matrices), each refitted like the data "
+             f"shares one G ({shared_G_text(refit)}), each refitted like the data "
              f"({refit['chains']} chain(s) of {refit['warmup']} + {refit['draws']} iterations). The "
              f"estimate compared is each statistic's posterior mean; its Monte Carlo error is "
              f"{_share(refit.get('mcse_over_null_sd_median'))} of the null's spread (median over "

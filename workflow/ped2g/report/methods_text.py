@@ -254,7 +254,7 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         sentences.append(
             "Whether populations differ by more than estimation noise was judged against a refitting null "
             f"({cite('Morrissey et al. 2019')}): {refit['replicates']} studies were simulated in which every "
-            "population shares one G (the mean of the populations' posterior-mean G), each on that "
+            f"population shares one G ({shared_G_text(refit)}), each on that "
             "population's own pedigree, records, missing cells, fixed effects and residual and other "
             "covariances (posterior means), and refitted with the same model, engine and priors "
             f"({refit['chains']} chain(s) of {refit['warmup']} + {refit['draws']} iterations). Each "
@@ -277,6 +277,16 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         f"Computations used Python {v('python')}, NumPy {v('numpy')}, SciPy {v('scipy')}, "
         f"PyTensor {v('pytensor')} and xarray {v('xarray')}.")
     return " ".join(sentences), cite.references()
+
+
+def shared_G_text(refit: dict[str, Any]) -> str:
+    """How the refitting null's shared G was made, from compare/summary.json's ``refit_null``."""
+    pilots = int(refit.get("pilot_replicates") or 0)
+    if pilots == 0:
+        return "the mean of the populations' posterior-mean G"
+    return ("the mean of the populations' posterior-mean G, corrected for the fit's pull toward the prior: "
+            f"with M the mean estimate of {pilots} pilot refits per population simulated under that mean "
+            "G_bar, the shared G was G_bar M^-1 G_bar")
 
 
 #: What simulation says about single G elements at a few hundred records (measured, see README).
