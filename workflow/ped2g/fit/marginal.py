@@ -193,10 +193,9 @@ def rotation(data: FitData) -> Rotation:
     missing_rows = [np.flatnonzero(miss[:, j]) for j in range(data.n_traits)]
     rot_Z = []
     for eff in data.random:
-        # U' Z_c: sum the columns of U' over the records of each level.
-        Zc = np.zeros((data.n_records, eff.n_levels))
-        Zc[np.arange(data.n_records), eff.level] = 1.0
-        rot_Z.append(Ut @ Zc)
+        # U' Z_c: sum the columns of U' over the records of each level (a record of an unknown
+        # level has a row of zeros in Z_c, so it adds to no column).
+        rot_Z.append(Ut @ eff.incidence())
     return Rotation(U=U, lam=lam, rot_y=Ut @ y0, rot_X=Ut @ data.X, missing_rows=missing_rows,
                     rot_Z=rot_Z, seconds=seconds)
 
@@ -326,7 +325,7 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
                 start += len(rows)
         ystar -= np.einsum("rp,spt->srt", data.X, beta[sl])
         for eff, u in extras:
-            ystar -= u[sl][:, eff.level, :]
+            ystar -= eff.take(u[sl])      # zero for records of an unknown level
         if conditional_mean:
             prior = np.zeros((S, n_all, t))
             d = ystar

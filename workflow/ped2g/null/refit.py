@@ -117,7 +117,7 @@ def simulate_records(data: FitData, G: np.ndarray, params: DesignParameters,
     Y = params.mu + a[data.record_animal]
     for eff, C in zip(data.random, params.covariances):
         u = rng.standard_normal((eff.n_levels, t)) @ _factor(C).T
-        Y = Y + u[eff.level]
+        Y = Y + eff.take(u)     # nothing for records of an unknown level
     Y = Y + rng.standard_normal((n, t)) @ _factor(params.R).T
     Y[data.missing] = np.nan
     return Y
