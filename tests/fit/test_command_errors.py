@@ -149,3 +149,75 @@ def test_config_file_refusals_end_in_one_line_and_write_nothing(tmp_path, capsys
     assert_one_line_error(status, err, str(cfg), *words)
     assert len(err) == 1, err
     assert sorted(p.name for p in tmp_path.iterdir()) == before  # no out/, nothing else
+
+
+def _rows_with(column, values):
+    rng = np.random.default_rng(0)
+    return [{"id": f"a{i}", "pop": "north", "mass": f"{rng.normal(10, 1):.3f}", "wing": f"{rng.normal(5, 1):.3f}",
+             column: v} for i, v in zip(range(4, 12), values)]
+
+
+@pytest.mark.parametrize("values,configured,words", [
+    (["a1", "a3"] * 4, "brood", ["no column 'brood'", "config key 'random'", "'maternal'"]),
+    (["a1", "", "a1", "NA", "a1", "a1", ".", "a1"], "dam", ["random effect 'maternal'", "config key 'random'",
+                                                     "column 'dam'", "one known level ('a1')",
+                                                     "remove the effect from config key 'random' or check the column"]),
+    (["", "NA", "", ".", "na", "", "", ""], "dam", ["random effect 'maternal'", "column 'dam'", "no known level",
+                                             "8 records", "config key 'random'"]),
+], ids=["missing column", "one level", "all unknown"])
+def test_random_effect_refusals_end_in_one_line(tmp_path, capsys, values, configured, words):
+    # the table has a 'dam' column; the config names 'configured'
+    cfg = write_study(tmp_path, phen_rows=_rows_with("dam", values),
+                      config_extra={"random": [{"name": "maternal", "column": configured}]})
+    status, err = run_fit(tmp_path, capsys, cfg)
+    assert_one_line_error(status, err, *words)
+    assert not (tmp_path / "out").exists()
+
+
+def _prepare_logged(caplog, values, random_column):
+    import logging
+
+    ped = Pedigree(ids=np.array(["s", "d", "o1", "o2", "o3"], dtype=object), sire=np.array([-1, -1, 0, 0, 0]),
+                   dam=np.array([-1, -1, 1, 1, 1]), generation=np.array([0, 0, 1, 1, 1]), inbreeding=np.zeros(5))
+    ids = ["o1", "o2", "o3"] * 4
+    frame = pd.DataFrame({"id": ids, "population": "p", "x": [str(v) for v in range(12)],
+                          "z": [str(v * v % 5) for v in range(12)], "year": values})
+    frame.index = pd.Index(range(2, 14), name="line")
+    random = [{"name": "cohort", "column": "year"}] + ([{"name": "permanent", "column": random_column}]
+                                                       if random_column else [])
+    with caplog.at_level(logging.INFO, logger="ped2g.fit"):
+        data = prepare(validate({"traits": ["x", "z"], "random": random}), frame, ped, "p")
+    return data, [r for r in caplog.records if r.name == "ped2g.fit"]
+
+
+def test_unknown_levels_are_kept_and_logged_once_per_effect(caplog):
+    values = ["2001", "", "2002", "NA", "2001", "2003", ".", "2002", "2003", "2001", "", "2002"]
+    data, records = _prepare_logged(caplog, values, "id")
+    eff = data.random[0]
+    assert eff.levels == ["2001", "2002", "2003"]
+    # records 2, 4, 7 and 11 (1-based) are unknown: level -1, the others keep their year
+    assert eff.level.tolist() == [0, -1, 1, -1, 0, 2, -1, 1, 2, 0, -1, 1]
+    lines = [r.getMessage() for r in records if "unknown level" in r.getMessage()]
+    assert lines == ["population p: random effect 'cohort' (column year): 4 records with an unknown level "
+                     "get no contribution from it"]
+    assert data.random[1].n_unknown == 0
+
+
+def test_repeated_records_warning_once_without_an_id_effect(caplog):
+    values = ["2001", "2002", "2003"] * 4
+    data, records = _prepare_logged(caplog, values, None)
+    assert data.repeated_records
+    warnings = [r for r in records if r.levelname == "WARNING"]
+    assert len(warnings) == 1, [r.getMessage() for r in warnings]
+    text = warnings[0].getMessage()
+    assert "\n" not in text
+    for words in ("3 animals have more than one record", "up to 4", "id column 'id'", "inflating G",
+                  "permanent-environment effect", "config key 'random'"):
+        assert words in text, text
+    assert any("inflating G" in note for note in data.notes)      # also kept for diagnostics.json
+
+
+def test_no_repeated_records_warning_with_an_id_effect(caplog):
+    data, records = _prepare_logged(caplog, ["2001", "2002", "2003"] * 4, "id")
+    assert data.repeated_records
+    assert not [r for r in records if r.levelname == "WARNING" or "inflating" in r.getMessage()]

@@ -93,3 +93,85 @@ def test_exact_numba_math_turns_fast_math_off_here_and_in_child_processes(monkey
     with sample.exact_numba_math():
         assert os.environ["PYTENSOR_FLAGS"] == "numba__fastmath=False"
     assert "PYTENSOR_FLAGS" not in os.environ
+
+
+class _Clock:
+    def __init__(self):
+        self.now = 0.0
+
+    def __call__(self):
+        return self.now
+
+
+def test_progress_log_writes_one_line_per_interval_with_rate_and_time_left(caplog):
+    # A fake clock and nutpie-style reports (iterations done, warm-up flag, divergences per
+    # chain). Expected values by hand from the definitions: draws/s = iterations of all chains /
+    # seconds since the first report; time left = iterations still to do / that rate.
+    import logging
+
+    clock = _Clock()
+    log = logging.getLogger("ped2g.test_progress")
+    tracker = sample.ProgressLog(log, "population north", chains=2, warmup=100, draws=100, interval=10.0,
+                                 clock=clock)
+    reports = [(0.0, "0|0,true,0;0,true,0;"),            # first report: the clock starts
+               (5.0, "20|10,true,0;10,true,0;"),         # 5 s < interval: no line
+               (10.0, "90|50,true,1;40,true,0;"),        # line 1: 90 / 10 = 9.0 draws/s, 310 left
+               (15.0, "140|70,true,1;70,true,0;"),       # no line
+               (20.0, "240|130,false,1;110,false,2;"),   # line 2: 12.0 draws/s, 160 left
+               (29.9, "330|170,false,1;160,false,2;")]   # 9.9 s after line 2: no line
+    with caplog.at_level(logging.INFO, logger="ped2g.test_progress"):
+        for t, text in reports:
+            clock.now = t
+            tracker.nutpie_callback(text)
+    lines = [r.getMessage() for r in caplog.records if r.name == "ped2g.test_progress"]
+    assert lines == [
+        "population north: warm-up, iteration 40 of 200 (slowest of 2 chains), 9.0 draws/s, 1 divergent "
+        "transitions so far (warm-up included), about 34 s left",          # 310 / 9 = 34.4 s
+        "population north: sampling, iteration 110 of 200 (slowest of 2 chains), 12.0 draws/s, 3 divergent "
+        "transitions so far (warm-up included), about 13 s left",          # 160 / 12 = 13.3 s
+    ]
+
+
+@pytest.mark.parametrize("sampler", ["nutpie", "pymc"])
+def test_progress_lines_appear_at_the_interval_when_not_on_a_terminal(sampler, caplog, monkeypatch):
+    import logging
+
+    import pymc as pm
+
+    monkeypatch.setattr(sample, "stderr_is_terminal", lambda: False)
+    with pm.Model() as model:
+        pm.Normal("x", 0.0, 1.0, shape=400)
+    # measured here: nutpie ~0.4 s for 2 x 3,000 iterations, PyMC ~1.5 s for 2 x 800
+    interval = 0.05 if sampler == "nutpie" else 0.2
+    n = 1500 if sampler == "nutpie" else 400
+    settings = {"sampler": sampler, "chains": 2, "warmup": n, "draws": n, "seed": 1}
+    log = logging.getLogger("ped2g.test_progress")
+    with caplog.at_level(logging.INFO, logger="ped2g.test_progress"):
+        run = sample.run(model, settings, "tiny", progress=True, log=log, progress_interval=interval)
+    records = [r for r in caplog.records if r.name == "ped2g.test_progress"]
+    seconds = run.info["sampling_seconds"]
+    assert seconds > 4 * interval, seconds          # long enough for several lines
+    # never more often than the interval (1 ms for the two clocks' resolution), at most one per interval
+    gaps = np.diff([r.created for r in records])
+    assert np.all(gaps >= interval - 1e-3), gaps
+    assert 2 <= len(records) <= seconds / interval + 1, (len(records), seconds)
+    text = [r.getMessage() for r in records]
+    assert all(line.startswith("population tiny: ") and "draws/s" in line and "divergent transitions so far" in line
+               and (" left" in line or "not known yet" in line) for line in text), text
+    assert "warm-up, iteration" in text[0]
+    assert run.idata.posterior["x"].shape == (2, n, 400)
+
+
+def test_no_progress_lines_under_a_visible_progress_bar(caplog, monkeypatch):
+    import logging
+
+    import pymc as pm
+
+    monkeypatch.setattr(sample, "stderr_is_terminal", lambda: True)
+    with pm.Model() as model:
+        pm.Normal("x", 0.0, 1.0, shape=400)
+    settings = {"sampler": "nutpie", "chains": 2, "warmup": 1500, "draws": 1500, "seed": 1}
+    log = logging.getLogger("ped2g.test_progress")
+    with caplog.at_level(logging.INFO, logger="ped2g.test_progress"):
+        sample.run(model, settings, "tiny", progress=True, log=log, progress_interval=0.01)
+    assert not [r for r in caplog.records if r.name == "ped2g.test_progress"]

@@ -95,7 +95,8 @@ class MissingValueDraw:
         self.rot_y0 = U.T @ y0 if rot_y0 is None else rot_y0
         self.y_rows = y0[self.rows]
         self.X_rows = data.X[self.rows]
-        self.levels_rows = [eff.level[self.rows] for eff in data.random]
+        # Index into the levels with a zero row appended: unknown levels contribute nothing.
+        self.levels_rows = [eff.padded_level[self.rows] for eff in data.random]
         self.mask_rows = miss[self.rows]
         self.patterns = _patterns(miss, self.rows)
         # Order of the flat vector of missing cells: trait by trait, record order within a trait.
@@ -135,7 +136,7 @@ class MissingValueDraw:
         g_rows = self.U_rows @ g_rot                                   # (n_m, t)
         mean = self.X_rows @ beta + g_rows
         for lev, u in zip(self.levels_rows, extras):
-            mean = mean + u[lev]
+            mean = mean + np.vstack([u, np.zeros((1, t))])[lev]
         resid = self.y_rows - mean                                     # valid at observed cells
         filled = np.zeros_like(self.y_rows)
         for where, m, o in self.patterns:

@@ -14,6 +14,9 @@ import numpy as np
 
 from ..pedigree.core import Pedigree
 
+#: ``RandomEffect.level`` of a record whose level of that effect is unknown.
+UNKNOWN_LEVEL = -1
+
 
 @dataclass
 class RandomEffect:
@@ -26,9 +29,13 @@ class RandomEffect:
     column : str
         The grouping column in the phenotype table.
     level : numpy.ndarray of int64, shape (n_records,)
-        Level of each record, 0..n_levels-1.
+        Level of each record, 0..n_levels-1, or :data:`UNKNOWN_LEVEL` (-1) where the record's
+        cell is blank or a missing-value code: such a record gets no contribution from this
+        effect (its row of the incidence matrix Z_c is all zero, docs/methods.md §2.13). Never
+        index an array of levels with ``level`` directly (``u[-1]`` would be the last level):
+        use :meth:`incidence`, :meth:`take` or :attr:`padded_level`.
     levels : list of str
-        Level labels.
+        Level labels (known levels only).
     """
 
     name: str
@@ -39,6 +46,37 @@ class RandomEffect:
     @property
     def n_levels(self) -> int:
         return len(self.levels)
+
+    @property
+    def known(self) -> np.ndarray:
+        """Boolean mask (n_records,) of the records whose level is known."""
+        return np.asarray(self.level) >= 0
+
+    @property
+    def n_unknown(self) -> int:
+        """How many records have an unknown level."""
+        return int((~self.known).sum())
+
+    @property
+    def padded_level(self) -> np.ndarray:
+        """``level`` with unknown levels pointing at an extra row ``n_levels``: index an array of
+        levels with one row of zeros appended (see :meth:`take`) to get each record's effect."""
+        return np.where(self.known, self.level, self.n_levels).astype(np.int64)
+
+    def incidence(self) -> np.ndarray:
+        """The dense incidence matrix Z_c (n_records, n_levels): one 1 per record of a known level,
+        a row of zeros for a record of an unknown level."""
+        Z = np.zeros((len(self.level), self.n_levels))
+        rows = np.flatnonzero(self.known)
+        Z[rows, np.asarray(self.level)[rows]] = 1.0
+        return Z
+
+    def take(self, u: np.ndarray) -> np.ndarray:
+        """Each record's effect from the level values ``u`` (..., n_levels, t): ``Z_c u`` along the
+        level axis (second from last), zero for records of an unknown level."""
+        u = np.asarray(u)
+        pad = np.zeros(u.shape[:-2] + (1, u.shape[-1]), dtype=u.dtype)
+        return np.concatenate([u, pad], axis=-2)[..., self.padded_level, :]
 
 
 @dataclass

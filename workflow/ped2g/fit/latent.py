@@ -180,7 +180,9 @@ def build_model(data: FitData, model_config: dict, animal_effect=None):
         # One residual matrix for every record (missing cells hold 0, which the Op ignores).
         mu = pt.dot(pm.Data("X", X), beta_raw) + a[pm.Data("record_animal", rec_animal)]
         for eff, u in effects:
-            mu = mu + u[pm.Data(f"level_{eff.name}", np.asarray(eff.level, dtype=np.int64))]
+            # A zero row after the levels: records of an unknown level index it and get nothing.
+            padded = pt.concatenate([u, pt.zeros((1, t))], axis=0)
+            mu = mu + padded[pm.Data(f"level_{eff.name}", eff.padded_level)]
         resid = pm.Data("y", np.where(np.isnan(y), 0.0, y)) - mu
         logp = observed_normal_op(resid, R, pm.Data("record_pattern", pattern),
                                   pm.Data("observed_patterns", patterns))[0]

@@ -52,6 +52,7 @@ a cluster job's memory limit); the latent engine fits those.
 
 from __future__ import annotations
 
+import logging
 from dataclasses import dataclass
 
 import numpy as np
@@ -83,6 +84,13 @@ AUTO_PROJECTION_CELLS = 1.0e7
 #: (nutpie) at n = 2,000: the hot loops are the likelihood kernel and BLAS, which level 1 compiles
 #: about as well. (The latent engine keeps level 3: its gradient was 10% slower at level 1.)
 NUMBA_OPT_LEVEL = 1
+#: Seconds the eigendecomposition took at n = 8,000 on two cores (see the module docstring); the
+#: time announced before a long one scales it by n^3.
+EIGEN_SECONDS_AT_8000 = 17.5
+#: An eigendecomposition expected to take longer than this is announced in the log before it
+#: starts, and its time logged after: the LAPACK call holds the interpreter while it runs, so no
+#: progress line can be written in between.
+EIGEN_ANNOUNCE_SECONDS = 10.0
 #: Ways to handle missing trait values (``model.missing_values``); see the module docstring.
 MISSING_MODES = ("auto", "gibbs", "nuts")
 #: ``auto`` samples missing cells jointly by NUTS up to this many projection cells (records x
@@ -174,11 +182,24 @@ def record_relationships(data: FitData) -> np.ndarray:
     return A_pp[np.ix_(inverse, inverse)]
 
 
-def rotation(data: FitData) -> Rotation:
+def eigendecomposition_seconds(n_records: int) -> float:
+    """Expected seconds of the eigendecomposition of ``n_records`` records on two cores."""
+    return EIGEN_SECONDS_AT_8000 * (n_records / 8000.0) ** 3
+
+
+def rotation(data: FitData, log: logging.Logger | None = None) -> Rotation:
     """Compute the eigendecomposition and the rotated arrays of ``data`` (O(n^3); the engine
-    object :class:`MarginalEngine` computes it once per design)."""
+    object :class:`MarginalEngine` computes it once per design). One expected to last longer
+    than :data:`EIGEN_ANNOUNCE_SECONDS` is announced in ``log`` and its time logged after."""
     import time
 
+    log = log or logging.getLogger("ped2g.fit")
+    n = data.n_records
+    expected = eigendecomposition_seconds(n)
+    announce = expected > EIGEN_ANNOUNCE_SECONDS
+    if announce:
+        log.info("population %s: eigendecomposition of the %d x %d record relationships, expected to take "
+                 "about %.0f s on two cores (no progress lines until it ends)", data.population, n, n, expected)
     start = time.perf_counter()
     K = record_relationships(data)
     # K is symmetric, so its transpose (a Fortran-ordered view) is K itself: LAPACK then works in
@@ -187,16 +208,17 @@ def rotation(data: FitData) -> Rotation:
     del K
     lam = np.clip(lam, 0.0, None)
     seconds = time.perf_counter() - start
+    if announce:
+        log.info("population %s: eigendecomposition done in %.1f s", data.population, seconds)
     Ut = np.ascontiguousarray(U.T)
     miss = data.missing
     y0 = np.where(miss, 0.0, data.y)
     missing_rows = [np.flatnonzero(miss[:, j]) for j in range(data.n_traits)]
     rot_Z = []
     for eff in data.random:
-        # U' Z_c: sum the columns of U' over the records of each level.
-        Zc = np.zeros((data.n_records, eff.n_levels))
-        Zc[np.arange(data.n_records), eff.level] = 1.0
-        rot_Z.append(Ut @ Zc)
+        # U' Z_c: sum the columns of U' over the records of each level (a record of an unknown
+        # level has a row of zeros in Z_c, so it adds to no column).
+        rot_Z.append(Ut @ eff.incidence())
     return Rotation(U=U, lam=lam, rot_y=Ut @ y0, rot_X=Ut @ data.X, missing_rows=missing_rows,
                     rot_Z=rot_Z, seconds=seconds)
 
@@ -326,7 +348,7 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
                 start += len(rows)
         ystar -= np.einsum("rp,spt->srt", data.X, beta[sl])
         for eff, u in extras:
-            ystar -= u[sl][:, eff.level, :]
+            ystar -= eff.take(u[sl])      # zero for records of an unknown level
         if conditional_mean:
             prior = np.zeros((S, n_all, t))
             d = ystar

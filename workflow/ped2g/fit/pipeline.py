@@ -65,7 +65,7 @@ def fit(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree, population: 
     built = engine.build(data, config["model"])
     sampled = sample.run(built.model, config["sampling"], population, progress=progress,
                          nutpie_options=built.nutpie_options, extra_steps=built.extra_steps,
-                         numba_opt_level=built.numba_opt_level)
+                         numba_opt_level=built.numba_opt_level, log=log)
     info = {k: v for k, v in sampled.info.items() if k != "compiled"}
     info.update(built.timings)
     if built.extra_steps:

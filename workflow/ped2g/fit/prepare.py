@@ -11,7 +11,9 @@ or config key):
    as zero, which is an assumption the user should know about;
 4. prune the pedigree to the phenotyped animals and their informative ancestors;
 5. build the fixed-effect design (an intercept, treatment-coded categorical columns, centred and
-   scaled numeric columns) and the levels of each extra random effect;
+   scaled numeric columns) and the levels of each extra random effect (a blank or missing-value
+   cell is an unknown level: no contribution from that effect); warn when animals have repeated
+   records and no random effect is on the id column;
 6. standardise each trait: ``(y - mean) / sd`` over the observed records of the population.
 """
 
@@ -26,7 +28,7 @@ import pandas as pd
 from ..errors import UserError
 from ..io import require_columns
 from ..pedigree.core import Pedigree
-from .data import FitData, RandomEffect
+from .data import UNKNOWN_LEVEL, FitData, RandomEffect
 
 MISSING_VALUES = frozenset({"", "na", "nan", ".", "n/a", "null"})
 
@@ -140,6 +142,60 @@ def standardise(Y: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return (Y - center) / scale, center, scale
 
 
+def random_effect(frame: pd.DataFrame, spec: dict[str, str], population: str,
+                  source: str) -> tuple[RandomEffect, str | None]:
+    """The levels of one extra random effect (config key ``random``) over ``frame``'s records.
+
+    A blank cell or a missing-value code is an unknown level (:data:`~ped2g.fit.data.UNKNOWN_LEVEL`):
+    that record gets no contribution from the effect (docs/methods.md §2.13). Returns the effect
+    and a note saying how many records that concerns (None when every level is known).
+
+    Raises
+    ------
+    UserError
+        When no record of the population has a known level, or only one level is known (its
+        covariance cannot then be estimated).
+    """
+    name, column = spec["name"], spec["column"]
+    text = frame[column].fillna("").astype(str).str.strip()
+    unknown = text.str.lower().isin(MISSING_VALUES).to_numpy()
+    what = f"random effect '{name}' (config key 'random', column '{column}')"
+    if unknown.all():
+        raise UserError(f"{what} has no known level in population '{population}' of {source}: every "
+                        f"one of its {len(text)} records is blank or a missing-value code; fill the "
+                        f"column in or remove the effect from config key 'random'")
+    levels, level = np.unique(text.to_numpy(dtype=str)[~unknown], return_inverse=True)
+    if len(levels) < 2:
+        raise UserError(f"{what} has one known level ({str(levels[0])!r}) in population '{population}' of "
+                        f"{source}: the covariance of a single level cannot be estimated (its one value "
+                        f"is confounded with the intercept); remove the effect from config key "
+                        f"'random' or check the column")
+    full = np.full(len(text), UNKNOWN_LEVEL, dtype=np.int64)
+    full[~unknown] = level
+    note = (f"random effect '{name}' (column {column}): {int(unknown.sum())} records with an unknown "
+            f"level get no contribution from it") if unknown.any() else None
+    return RandomEffect(name=name, column=column, level=full, levels=[str(v) for v in levels]), note
+
+
+def repeated_records_warning(ids: pd.Series, id_column: str, random: list[dict[str, str]]) -> str | None:
+    """The warning for repeated records without a permanent-environment effect, or None.
+
+    When an animal has several records and no extra random effect groups records by the id
+    column, the animal's lasting non-genetic deviations are shared by its records like a genetic
+    effect and end up in G (common practice: add a permanent-environment effect on the id
+    column; docs/methods.md §2.13).
+    """
+    counts = ids.value_counts()
+    repeated = int((counts > 1).sum())
+    if not repeated or any(r["column"] == id_column for r in random):
+        return None
+    return (f"{repeated} animals have more than one record (up to "
+            f"{int(counts.max())}) and no random effect is on the id column '{id_column}': their lasting "
+            f"non-genetic differences will be counted as additive genetic variance, inflating G and "
+            f"the heritabilities; add a permanent-environment effect to config key 'random' "
+            f"(e.g. {{name: permanent, column: {id_column}}})")
+
+
 def prepare(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree: Pedigree, population: str,
             source: str = "phenotype table", logger: logging.Logger | None = None) -> FitData:
     """Prepare one population's data for an engine.
@@ -161,7 +217,8 @@ def prepare(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree: Pedigree
     ------
     UserError
         Missing columns, non-numeric trait cells, a population without phenotyped animals, a
-        trait with no variance or too few records, confounded fixed effects.
+        trait with no variance or too few records, confounded fixed effects, an extra random
+        effect with fewer than two known levels.
     """
     log = logger or logging.getLogger("ped2g.fit")
     cols = config["data"]["columns"]
@@ -180,8 +237,9 @@ def prepare(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree: Pedigree
                             f"(columns are: {', '.join(map(str, phenotypes.columns))})")
     for r in random:
         if r["column"] not in phenotypes.columns:
-            raise UserError(f"phenotype table {source} has no column '{r['column']}' named in config key "
-                            f"'random' ({r['name']}) (columns are: {', '.join(map(str, phenotypes.columns))})")
+            raise UserError(f"phenotype table {source} has no column '{r['column']}', which config key "
+                            f"'random' names for random effect '{r['name']}'; add the column or fix "
+                            f"the entry (columns are: {', '.join(map(str, phenotypes.columns))})")
     pops = phenotypes[cols["population"]].fillna("").astype(str).str.strip()
     frame = phenotypes.loc[pops == population]
     if frame.empty:
@@ -218,16 +276,11 @@ def prepare(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree: Pedigree
     notes += x_notes
     effects = []
     for r in random:
-        text = frame[r["column"]].fillna("").astype(str).str.strip()
-        empty = text.str.lower().isin(MISSING_VALUES)
-        if empty.any():
-            i = int(np.flatnonzero(empty.to_numpy())[0])
-            raise UserError(f"{source} line {frame.index[i]}: column '{r['column']}' of random effect "
-                            f"'{r['name']}' is empty; fill it in (e.g. a unique level per record) or "
-                            f"remove the record")
-        levels, level = np.unique(text.to_numpy(dtype=str), return_inverse=True)
-        effects.append(RandomEffect(name=r["name"], column=r["column"], level=level.astype(np.int64),
-                                    levels=[str(v) for v in levels]))
+        effect, note = random_effect(frame, r, population, source)
+        effects.append(effect)
+        if note:
+            notes.append(note)
+    repeated = repeated_records_warning(ids, cols["id"], random)
 
     n_params = X.shape[1] + 2 + len(effects)
     for j, t in enumerate(traits):
@@ -242,6 +295,10 @@ def prepare(config: dict[str, Any], phenotypes: pd.DataFrame, pedigree: Pedigree
     y, center, scale = standardise(Y)
     for note in notes:
         log.info("population %s: %s", population, note)
+    if repeated:
+        # The one place the fit and the refitting null warn about it (both prepare through here).
+        log.warning("population %s: %s", population, repeated)
+        notes.append(repeated)
     return FitData(population=population, traits=traits, pedigree=ped, phenotyped=phenotyped,
                    record_animal=record_animal, y=y, y_center=center, y_scale=scale, X=X,
                    x_names=x_names, random=effects, x_scale=x_scale, notes=notes)

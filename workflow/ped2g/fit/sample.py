@@ -7,12 +7,20 @@ unconstrained scale as PyMC's default initialisation does.
 
 The sampler seed comes from the run seed through :func:`ped2g.rng.seed_sequence` with the names
 ``("fit", population, "sampler")``, so each population's chains are reproducible and independent
-of the order in which populations are fitted. Progress is shown by the sampler's own progress bar.
+of the order in which populations are fitted. On a terminal, progress is shown by the sampler's own
+progress bar. Where stderr is not a terminal (a log file, a cluster job) or the bar is turned off,
+:class:`ProgressLog` writes a line to the log every :data:`PROGRESS_INTERVAL` seconds instead:
+phase (warm-up or sampling), iteration, draws per second, divergent transitions so far and the
+time left at the rate so far. nutpie reports its chains' state to a callback several times a
+second (its template progress type, fed to the sampler through :class:`_NutpieProgress`); PyMC's
+sampler calls back after every draw.
 """
 
 from __future__ import annotations
 
+import logging
 import os
+import sys
 import time
 from contextlib import contextmanager
 from dataclasses import dataclass, field
@@ -26,6 +34,130 @@ from ..machine import available_cpus
 from ..rng import seed_sequence
 
 SAMPLERS = ("nutpie", "pymc")
+
+#: Seconds between two progress lines in the log when stderr is not a terminal.
+PROGRESS_INTERVAL = 30.0
+
+#: What nutpie's template progress renders per update: total iterations done, then per chain
+#: iterations done, whether it is still in warm-up, divergent transitions (warm-up included).
+_NUTPIE_PROGRESS_TEMPLATE = ("{{ total_finished_draws }}|{% for chain in chains %}"
+                             "{{ chain.finished_draws }},{{ chain.tuning }},{{ chain.divergences }};{% endfor %}")
+
+
+def _duration(seconds: float) -> str:
+    seconds = max(0, int(round(seconds)))
+    h, rest = divmod(seconds, 3600)
+    m, s = divmod(rest, 60)
+    if h:
+        return f"{h} h {m} min"
+    if m:
+        return f"{m} min {s} s"
+    return f"{s} s"
+
+
+class ProgressLog:
+    """One log line per ``interval`` seconds while a sampler runs.
+
+    Call :meth:`update` as often as the sampler reports (each call is cheap); a line is written
+    when ``interval`` seconds have passed since the last one (or since the start)::
+
+        population north: warm-up, iteration 350 of 2000 (slowest of 4 chains), 41.2 draws/s,
+        0 divergent transitions so far (warm-up included), about 2 min 10 s left
+
+    Draws per second count every chain's iterations (warm-up included) over the wall time since
+    the sampler's first report (so compilation is not counted); the time left is the iterations
+    still to do at that rate.
+    """
+
+    def __init__(self, log: logging.Logger, label: str, chains: int, warmup: int, draws: int,
+                 interval: float = PROGRESS_INTERVAL, clock=time.monotonic):
+        self.log = log
+        self.label = label
+        self.chains = chains
+        self.per_chain = warmup + draws
+        self.interval = float(interval)
+        self.clock = clock
+        self.start: float | None = None     # the sampler's first report
+        self.last = 0.0
+        self.lines = 0
+        self.done = np.zeros(chains, dtype=np.int64)
+        self.tuning = np.ones(chains, dtype=bool)
+        self.divergences = np.zeros(chains, dtype=np.int64)
+
+    def update(self) -> None:
+        """Write a line if ``interval`` seconds have passed since the last one."""
+        now = self.clock()
+        if self.start is None:
+            self.start = self.last = now
+            return
+        if now - self.last < self.interval:
+            return
+        self.last = now
+        elapsed = now - self.start
+        total = int(self.done.sum())
+        rate = total / elapsed if elapsed > 0 else 0.0
+        left = self.chains * self.per_chain - total
+        eta = f"about {_duration(left / rate)} left" if rate > 0 else "time left not known yet"
+        phase = "warm-up" if self.tuning.any() else "sampling"
+        self.lines += 1
+        self.log.info("%s: %s, iteration %d of %d (slowest of %d chains), %.1f draws/s, %d divergent "
+                      "transitions so far (warm-up included), %s", self.label, phase, int(self.done.min()),
+                      self.per_chain, self.chains, rate, int(self.divergences.sum()), eta)
+
+    def nutpie_callback(self, formatted: str) -> None:
+        """Read the state nutpie rendered with :data:`_NUTPIE_PROGRESS_TEMPLATE`."""
+        try:
+            chains = [c.split(",") for c in formatted.split("|", 1)[1].split(";") if c]
+            for i, (done, tuning, divergences) in enumerate(chains[:self.chains]):
+                self.done[i] = int(done)
+                self.tuning[i] = tuning.strip() == "true"
+                self.divergences[i] = int(divergences)
+        except (IndexError, ValueError):
+            return        # an unexpected rendering: keep the last state
+        self.update()
+
+    def pymc_callback(self, trace, draw) -> None:
+        """PyMC's ``callback(trace=..., draw=...)``, called after every draw of every chain."""
+        c = int(draw.chain) % self.chains
+        self.done[c] = int(draw.draw_idx) + 1
+        self.tuning[c] = bool(draw.tuning)
+        stats = draw.stats if isinstance(draw.stats, (list, tuple)) else [draw.stats]
+        self.divergences[c] += int(any(bool(st.get("diverging", False)) for st in stats if isinstance(st, dict)))
+        self.update()
+
+
+def stderr_is_terminal() -> bool:
+    """Whether the sampler's own progress bar can be seen."""
+    try:
+        return sys.stderr.isatty()
+    except (AttributeError, ValueError):
+        return False
+
+
+class _NutpieProgress:
+    """A compiled nutpie model whose sampler reports progress to ``callback``.
+
+    ``nutpie.sample`` builds its sampler through the compiled model's ``_make_sampler`` with a
+    progress type that draws a terminal bar (hidden when stderr is not a terminal); this wrapper
+    passes nutpie's template progress type instead, which renders
+    :data:`_NUTPIE_PROGRESS_TEMPLATE` every ``rate_ms`` milliseconds and hands the text to
+    ``callback``. Everything else is the compiled model's own (nutpie >= 0.16, < 0.17).
+    """
+
+    def __init__(self, compiled, callback, rate_ms: int):
+        self._compiled = compiled
+        self._callback = callback
+        self._rate_ms = rate_ms
+
+    def __getattr__(self, name):
+        return getattr(self._compiled, name)
+
+    def _make_sampler(self, settings, init_mean, cores, progress_type, store):
+        from nutpie import _lib
+
+        progress = _lib.ProgressType.template_callback(self._rate_ms, _NUTPIE_PROGRESS_TEMPLATE, cores,
+                                                       self._callback)
+        return self._compiled._make_sampler(settings, init_mean, cores, progress, store)
 
 
 @dataclass
@@ -141,7 +273,7 @@ def _warm_up_jit(nuts, point: dict) -> None:
 
 
 def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int, cores: int, seed: int,
-                  target_accept: float, progress: bool):
+                  target_accept: float, progress: bool, callback=None):
     """PyMC's sampler with the engine's steps first, then NUTS on every other free variable."""
     import pymc as pm
     import pytensor
@@ -165,7 +297,7 @@ def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int
         idata = pm.sample(draws=draws, tune=warmup, chains=chains, cores=cores, random_seed=seed,
                           step=[*extra_steps, nuts], initvals=starts, var_names=keep,
                           progressbar=progress, discard_tuned_samples=False,
-                          compute_convergence_checks=False)
+                          compute_convergence_checks=False, callback=callback)
     return idata, compile_seconds, time.perf_counter() - start
 
 
@@ -183,7 +315,9 @@ def compile_nutpie(model, numba_opt_level: int | None = None):
 
 def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
         compiled=None, nutpie_options: dict[str, Any] | None = None,
-        extra_steps: list | None = None, numba_opt_level: int | None = None) -> SamplingRun:
+        extra_steps: list | None = None, numba_opt_level: int | None = None,
+        log: logging.Logger | None = None, progress_interval: float = PROGRESS_INTERVAL,
+        progress_label: str | None = None) -> SamplingRun:
     """Sample ``model`` with the settings of ``config["sampling"]``.
 
     Parameters
@@ -206,6 +340,10 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
     numba_opt_level
         LLVM optimisation level for numba while compiling and sampling (an engine's
         ``NUMBA_OPT_LEVEL``); None keeps numba's own (3 unless ``NUMBA_OPT`` says otherwise).
+    log, progress_interval, progress_label
+        Where and how often (seconds) to write progress lines (:class:`ProgressLog`) when the
+        progress bar cannot be seen: stderr is not a terminal, or ``progress`` is False. No lines
+        without ``log``. Lines start with ``progress_label`` (default ``population <population>``).
     """
     sampling = with_defaults(sampling, "sampling")
     sampler = sampling["sampler"]
@@ -221,9 +359,13 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
                                 chains=chains, warmup=warmup, draws=draws, target_accept=target_accept)
     if numba_opt_level is not None:
         info["numba_opt_level"] = int(numba_opt_level)
+    bar = progress and stderr_is_terminal()
+    label = progress_label or f"population {population}"
+    tracker = (ProgressLog(log, label, chains, warmup, draws, progress_interval)
+               if log is not None and not bar else None)
     with numba_optimisation(numba_opt_level), exact_numba_math():
-        idata = _sample(model, info, chains, warmup, draws, cores, seed, target_accept, progress,
-                        compiled, nutpie_options, extra_steps)
+        idata = _sample(model, info, chains, warmup, draws, cores, seed, target_accept, bar,
+                        compiled, nutpie_options, extra_steps, tracker)
     grads = (_count(idata, "sample_stats", "n_steps")
              + _count(idata, "warmup_sample_stats", "n_steps"))
     info["gradient_evaluations"] = grads
@@ -235,15 +377,18 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
 
 
 def _sample(model, info: dict, chains: int, warmup: int, draws: int, cores: int, seed: int,
-            target_accept: float, progress: bool, compiled, nutpie_options, extra_steps):
-    """Run the sampler ``info["sampler"]`` names; fills the timing entries of ``info``."""
+            target_accept: float, progress: bool, compiled, nutpie_options, extra_steps,
+            tracker: ProgressLog | None = None):
+    """Run the sampler ``info["sampler"]`` names; fills the timing entries of ``info``. With a
+    ``tracker``, the sampler reports its progress to it."""
+    callback = tracker.pymc_callback if tracker is not None else None
     sampler = info["sampler"]
     if extra_steps:
         info["sampler"] = "pymc"
         info["requested_sampler"] = sampler
         info["compound_steps"] = [type(step).__name__ for step in extra_steps] + ["NUTS"]
         idata, info["compile_seconds"], info["sampling_seconds"] = _run_compound(
-            model, extra_steps, chains, warmup, draws, cores, seed, target_accept, progress)
+            model, extra_steps, chains, warmup, draws, cores, seed, target_accept, progress, callback)
     elif sampler == "nutpie":
         import nutpie
 
@@ -252,9 +397,15 @@ def _sample(model, info: dict, chains: int, warmup: int, draws: int, cores: int,
             compiled = nutpie.compile_pymc_model(model, backend="numba")
         info["compile_seconds"] = time.perf_counter() - start
         start = time.perf_counter()
-        idata = nutpie.sample(compiled, draws=draws, tune=warmup, chains=chains, cores=cores, seed=seed,
-                              target_accept=target_accept, progress_bar=progress, save_warmup=True,
-                              **(nutpie_options or {}))
+        if tracker is not None:
+            # nutpie renders its state about 10 times per interval (at least once a second)
+            rate_ms = int(min(1000.0, max(20.0, 100.0 * tracker.interval)))
+            sampled = _NutpieProgress(compiled, tracker.nutpie_callback, rate_ms)
+        else:
+            sampled = compiled
+        idata = nutpie.sample(sampled, draws=draws, tune=warmup, chains=chains, cores=cores, seed=seed,
+                              target_accept=target_accept, progress_bar=progress,
+                              save_warmup=True, **(nutpie_options or {}))
         info["nutpie_options"] = dict(nutpie_options or {})
         info["sampling_seconds"] = time.perf_counter() - start
         info["compiled"] = compiled
@@ -265,7 +416,8 @@ def _sample(model, info: dict, chains: int, warmup: int, draws: int, cores: int,
         with model:
             idata = pm.sample(draws=draws, tune=warmup, chains=chains, cores=cores, random_seed=seed,
                               target_accept=target_accept, progressbar=progress,
-                              discard_tuned_samples=False, compute_convergence_checks=False)
+                              discard_tuned_samples=False, compute_convergence_checks=False,
+                              callback=callback)
         info["compile_seconds"] = None
         info["sampling_seconds"] = time.perf_counter() - start
     return idata

@@ -140,7 +140,7 @@ def simulate_records(data: FitData, G: np.ndarray, params: DesignParameters,
     Y = params.mu + a[data.record_animal]
     for eff, C in zip(data.random, params.covariances):
         u = rng.standard_normal((eff.n_levels, t)) @ _factor(C).T
-        Y = Y + u[eff.level]
+        Y = Y + eff.take(u)     # nothing for records of an unknown level
     Y = Y + rng.standard_normal((n, t)) @ _factor(params.R).T
     Y[data.missing] = np.nan
     return Y
@@ -209,16 +209,19 @@ class Refitter:
         from ..fit import outputs, sample
 
         start = time.perf_counter()
+        # progress lines of a long refit (every sample.PROGRESS_INTERVAL seconds) name the replicate
+        progress = dict(log=self.log, progress_label=f"population {self.data.population}, replicate {name.rsplit(':', 1)[-1]}")
         y, center, scale = standardise(Y)
         new = self.data.with_records(y, center, scale)
         if self.compiled is not None:
             compiled = self.compiled.with_data(**self.engine.data_values(new, self.model_config))
             run = sample.run(self.model, self.sampling, name, progress=False, compiled=compiled,
-                             nutpie_options=self.built.nutpie_options, numba_opt_level=self.built.numba_opt_level)
+                             nutpie_options=self.built.nutpie_options, numba_opt_level=self.built.numba_opt_level,
+                             **progress)
         else:
             built = self.engine.build(new, self.model_config)
             run = sample.run(built.model, self.sampling, name, progress=False, nutpie_options=built.nutpie_options,
-                             extra_steps=built.extra_steps, numba_opt_level=built.numba_opt_level)
+                             extra_steps=built.extra_steps, numba_opt_level=built.numba_opt_level, **progress)
         core, extra = outputs.original_units(new, run.idata)
         t = self.data.n_traits
         lower = np.tril_indices(t)
