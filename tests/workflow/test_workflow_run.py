@@ -9,10 +9,12 @@ wiring.
 
 from __future__ import annotations
 
+import json
 import shutil
 import subprocess
 import time
 
+import numpy as np
 import pandas as pd
 import psutil
 import pytest
@@ -43,7 +45,7 @@ def finished(tiny_local_run):
 
 def test_every_stage_ran_and_the_report_was_written(finished):
     folder, _config, result = finished
-    assert planned_jobs(result) == {"pedigree": 1, "fit": 2, "null_refit": 2, "compare": 1,
+    assert planned_jobs(result) == {"pedigree": 1, "fit": 2, "null_pilot": 2, "null_refit": 2, "compare": 1,
                                     "report": 1, "all": 1}
     html = (folder / "results/report/report.html").read_text(encoding="utf-8")
     assert all(p in html for p in POPULATIONS)
@@ -55,6 +57,12 @@ def test_every_stage_ran_and_the_report_was_written(finished):
         assert (folder / f"logs/{stage}/{stage}.log").stat().st_size > 0
     for p in POPULATIONS:
         assert (folder / f"logs/null/refit_{p}_0.log").stat().st_size > 0
+        assert (folder / f"logs/null/pilot_{p}.log").stat().st_size > 0
+    # the replicates were simulated under the bias-corrected shared G of config/tiny.yaml's 4 pilots
+    summary = json.loads((folder / "results/compare/summary.json").read_text())["refit_null"]
+    assert summary["pilot_replicates"] == 4
+    assert not np.allclose(summary["shared_G"], summary["shared_G_uncorrected"])
+    assert np.linalg.eigvalsh(np.array(summary["shared_G"])).min() > 0
     # every comparison row that compares populations has its calibrated p-value
     distance = pd.read_csv(folder / "results/compare/distance.csv")
     assert distance["p_value"].between(1 / 41, 1).all() and distance["p_adjusted"].notna().all()
@@ -190,7 +198,7 @@ def test_a_fit_that_outlived_its_killed_snakemake_reruns_with_rerun_incomplete(f
 def test_a_comparison_setting_reruns_only_compare_and_report(finished):
     folder, config, _ = finished
     kept = {p: p.stat().st_mtime_ns for p in
-            [*(folder / "results/fits").rglob("*.nc"), *(folder / "results/null/refits").rglob("*.nc"),
+            [*(folder / "results/fits").rglob("*.nc"), *(folder / "results/null").rglob("*.nc"),
              folder / "results/pedigree/pedigree.csv"]}
     result = snakemake(folder, "--cores", "2", "--config", "compare={skewers: 60}",
                        config=config)

@@ -9,12 +9,12 @@ PED2G_SLURM_ACCOUNT and PED2G_SLURM_PARTITION name the account and partition (de
 `.ci/slurm-up` makes; its default partition allows one hour, too little for a fit's request).
 
 Checked against SLURM's own accounting record (`sacct`): every fit and every job of the
-refitting null, and nothing else, ran as a SLURM job that completed, with the memory, time limit
+refitting null (its pilot refits and its replicates), and nothing else, ran as a SLURM job that completed, with the memory, time limit
 and CPUs its rule asks for (the resources Snakemake resolves for the rule in a dry run:
 fit_mem_mb and fit_runtime in workflow/rules/common.smk, threads = chains of a fit or of a
 refit), on the profile's account and partition. Checked against the same config and seed run on
 this machine (the session's local run, conftest.py): every table of every fit, every posterior
-draw and every draw of the refitting null are identical.
+draw and every draw of the refitting null and of its pilots are identical.
 """
 
 from __future__ import annotations
@@ -81,12 +81,12 @@ def _profile(folder) -> str:
 
 
 def _fit_resources(dry_run: subprocess.CompletedProcess, threads: dict[str, int]) -> dict[str, dict[str, int]]:
-    """{'<rule>_<population>': {'mem_mb', 'runtime', 'threads'}} of the fit and null_refit jobs a
+    """{'<rule>_<population>': {'mem_mb', 'runtime', 'threads'}} of the fit and null jobs a
     dry run plans (one chain per thread, ``threads`` per rule; a dry run for a cluster does not
     print the threads)."""
     found = {}
     for block in re.split(r"\n(?=\[)", dry_run.stdout + dry_run.stderr):
-        rule = re.search(r"\brule (fit|null_refit):", block)
+        rule = re.search(r"\brule (fit|null_pilot|null_refit):", block)
         if rule:
             population = re.search(r"wildcards: population=(\w+)", block).group(1)
             resources = re.search(r"resources: (.*)", block).group(1)
@@ -146,21 +146,23 @@ def slurm_run(request, tmp_path_factory):
     assert result.returncode == 0, (result.stdout + result.stderr)[-5000:] + logs
     settings = yaml.safe_load(config.read_text())
     threads = {"fit": settings["sampling"]["chains"],
+               "null_pilot": settings["compare"]["null_model"]["refit"]["chains"],
                "null_refit": settings["compare"]["null_model"]["refit"]["chains"]}
     return folder, local[0], _fit_resources(dry, threads), _jobs_of(folder, since)
 
 
 def test_every_fit_ran_as_a_slurm_job_with_the_resources_its_rule_asks_for(slurm_run):
     _folder, _local, asked, jobs = slurm_run
-    expected = sorted(f"{rule}_{p}" for rule in ("fit", "null_refit") for p in POPULATIONS)
+    expected = sorted(f"{rule}_{p}" for rule in ("fit", "null_pilot", "null_refit") for p in POPULATIONS)
     assert sorted(asked) == expected
     # only the fits and the refitting null's jobs go to SLURM; the light steps run where
-    # Snakemake runs (the tiny study has one null_refit job per population)
-    ran = sorted(re.match(r"rule_(fit|null_refit)_wildcards_(\w+?)(?:_\d+)?$", c).expand(r"\1_\2")
+    # Snakemake runs (the tiny study has one pilot and one null_refit job per population)
+    ran = sorted(re.match(r"rule_(fit|null_pilot|null_refit)_wildcards_(\w+?)(?:_\d+)?$", c).expand(r"\1_\2")
                  for c in jobs["Comment"])
     assert ran == expected, jobs.to_string()
     for _, job in jobs.iterrows():
-        want = asked[re.match(r"rule_(fit|null_refit)_wildcards_(\w+?)(?:_\d+)?$", job["Comment"]).expand(r"\1_\2")]
+        want = asked[re.match(r"rule_(fit|null_pilot|null_refit)_wildcards_(\w+?)(?:_\d+)?$",
+                              job["Comment"]).expand(r"\1_\2")]
         assert job["State"] == "COMPLETED" and job["ExitCode"] == "0:0", job.to_string()
         assert job["ReqMem"] == f"{want['mem_mb']}M", job.to_string()
         assert int(job["TimelimitRaw"]) == want["runtime"], job.to_string()
@@ -186,9 +188,9 @@ def test_the_cluster_run_gives_the_numbers_of_the_local_run(slurm_run):
             xr.testing.assert_equal(a.load(), b.load())
     # the refitting null's draws (the local run's comparison tables may be remade in place with
     # other settings by tests/workflow/test_workflow_run.py, its null files are not)
-    refits = sorted(p.relative_to(local).as_posix() for p in (local / "results/null/refits").rglob("*.nc"))
-    assert refits and refits == sorted(p.relative_to(folder).as_posix()
-                                       for p in (folder / "results/null/refits").rglob("*.nc"))
+    refits = sorted(p.relative_to(local).as_posix() for p in (local / "results/null").rglob("*.nc"))
+    assert any("/pilot/" in name for name in refits) and any("/refits/" in name for name in refits)
+    assert refits == sorted(p.relative_to(folder).as_posix() for p in (folder / "results/null").rglob("*.nc"))
     for name in refits:
         with xr.open_dataset(local / name, engine="h5netcdf") as a, \
                 xr.open_dataset(folder / name, engine="h5netcdf") as b:
