@@ -84,7 +84,7 @@ class Design:
         """The structural arrays in the order the kernels take them (after resid, G, R, covs)."""
         return (self.term_pos, self.term_midx, self.term_coef, self.Cp, self.Ci, self.Cj, self.parent, self.Lp,
                 self.Li, self.c_to_l, self.rec_pattern, self.rec_index, self.patterns, self.n_levels,
-                np.asarray(self.const))
+                np.array([self.const]))
 
 
 #: Names of the structural inputs (``pm.Data`` names in the sparse engine's model).
@@ -361,7 +361,7 @@ def mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci,
     for r in range(n_rec):
         count[rec_pattern[r]] += 1.0
         ld_r += pat_ld[rec_pattern[r]]
-    value = const - 0.5 * (ld_c + ld_gamma + ld_r + quad)
+    value = const[0] - 0.5 * (ld_c + ld_gamma + ld_r + quad)
 
     # gradient: T_m = d(log|C| + Q) / d M_m (upper entries counted for both triangles)
     nnzL = len(Li)
