@@ -78,7 +78,7 @@ def test_sparse_and_marginal_engines_agree_within_monte_carlo_error():
 
     from test_latent_vs_marginal import small_study as study
 
-    data = study()
+    data = study(n=150)      # 120 records, 2 traits, 10% of cells missing
     cfg = {"priors": {"sd_scale": 1.0, "lkj_eta": 2.0, "fixed_sd": 10.0}, "fixed_covariances": None,
            "missing_values": "nuts"}
     posts = []
