@@ -61,7 +61,8 @@ def fill_reducing_order(pattern: sp.spmatrix) -> np.ndarray:
 
     lu = spla.splu(P, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
                    options={"SymmetricMode": True})
-    return np.asarray(lu.perm_c, dtype=np.int64)
+    # SuperLU's perm_c gives the new position of each original column; invert it.
+    return np.argsort(np.asarray(lu.perm_c)).astype(np.int64)
 
 
 def upper_csc(M: sp.spmatrix) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
