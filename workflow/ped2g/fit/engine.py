@@ -13,7 +13,8 @@ projections that every gradient touches (extra random-effect levels, and missing
 with ``model.missing_values: nuts``) stay below :data:`ped2g.fit.marginal.AUTO_PROJECTION_CELLS`
 (beyond that each gradient is memory-bound and the marginal engine loses its advantage);
 otherwise the latent engine (linear cost in the number of animals, no dense matrices). The
-choice and its reason go into diagnostics.json.
+choice and its reason go into diagnostics.json. The sparse engine (every random effect integrated
+out through the sparse mixed-model equations) runs only when asked for by name.
 """
 
 from __future__ import annotations
@@ -27,8 +28,9 @@ from ..errors import UserError
 from .data import FitData
 
 #: Values of ``model.engine``; ``auto`` tries the engines in the order of :data:`AUTO_ORDER`.
-ENGINES = ("auto", "marginal", "latent")
-AUTO_ORDER = ("marginal", "latent")
+#: The sparse engine is listed last and does not prefer itself yet, so ``auto`` never takes it.
+ENGINES = ("auto", "marginal", "latent", "sparse")
+AUTO_ORDER = ("marginal", "latent", "sparse")
 
 
 @dataclass
@@ -93,7 +95,7 @@ class Engine(Protocol):
 
 
 def get(name: str) -> Engine:
-    """A new engine object of the given name (``marginal`` or ``latent``)."""
+    """A new engine object of the given name (``marginal``, ``latent`` or ``sparse``)."""
     if name == "marginal":
         from .marginal import MarginalEngine
 
@@ -102,6 +104,10 @@ def get(name: str) -> Engine:
         from .latent import LatentEngine
 
         return LatentEngine()
+    if name == "sparse":
+        from .sparse import SparseEngine
+
+        return SparseEngine()
     raise UserError(f"engine {name!r} is not one of {', '.join(AUTO_ORDER)}")
 
 

@@ -187,7 +187,9 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
     extra = [f"{r['name']} (grouped by {r['column']})" for r in config["random"]]
     fixed = [f"{k} ({v_})" for k, v_ in config["fixed"].items()]
     engine_text = {"marginal": "with the breeding values integrated out analytically",
-                   "latent": "with the breeding values sampled as latent variables"}
+                   "latent": "with the breeding values sampled as latent variables",
+                   "sparse": "with the breeding values and other random effects integrated out through "
+                             "the sparse mixed-model equations"}
     eng = _list([engine_text.get(e, e) for e in engines]) if engines else \
         "(the fits did not record how breeding values were handled)"
     sentences.append(

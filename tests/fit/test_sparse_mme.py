@@ -1,0 +1,279 @@
+"""Checks of the sparse factorisation (ped2g.fit.sparse_factor) and of the sparse mixed-model-equation
+likelihood (ped2g.fit.sparse_mme), docs/methods.md §2.14.
+
+Oracles: numpy's dense ``slogdet``, ``solve`` and ``inv`` [C]; scipy.stats.multivariate_normal on
+the observed cells with the covariance V built densely from the model's definition (§2.1) [C];
+central finite differences (exact identity up to O(h^2)) [C]; Mrode (2014) p. 74 solutions of the
+calf example [V: Mrode, via tests/fit/mrode.py and docs/methods.md §2.10].
+"""
+
+import numpy as np
+import pytest
+import scipy.sparse as sp
+from scipy import stats
+
+from ped2g.fit import sparse_factor as sf
+from ped2g.fit import sparse_mme as sm
+from ped2g.pedigree.core import Pedigree
+from ped2g.pedigree.relationships import inbreeding, relationship_matrix
+
+
+def random_spd(n, density, seed):
+    M = sp.random(n, n, density=density, random_state=seed)
+    M = M + M.T
+    return (M + sp.diags(np.abs(M).sum(axis=1).A1 + 0.1)).tocsc()
+
+
+def check_factor(M, atol=1e-10):
+    """Factor the (already permuted) symmetric ``M``; compare with dense numpy [C]."""
+    Cp, Ci, Cx = sf.upper_csc(M)
+    f = sf.Factor(Cp, Ci)
+    assert f.factor(Cx)
+    dense = M.toarray()
+    sign, want = np.linalg.slogdet(dense)
+    assert sign == 1.0
+    assert f.log_det() == pytest.approx(want, rel=1e-12, abs=1e-10)
+    b = np.random.default_rng(0).normal(size=M.shape[0])
+    np.testing.assert_allclose(f.solve(b), np.linalg.solve(dense, b), rtol=0, atol=atol * np.abs(b).max() * 1e2)
+    Zx, Zd = f.selected_inverse()
+    inv = np.linalg.inv(dense)
+    Z = f.lower_matrix(Zx, Zd).tocoo()
+    np.testing.assert_allclose(Z.data, inv[Z.row, Z.col], rtol=0, atol=atol * np.abs(inv).max())
+    # the selected inverse covers every entry of the matrix's own pattern
+    lower = sp.tril(M).tocoo()
+    on_l = set(zip(Z.row.tolist(), Z.col.tolist()))
+    assert all((i, j) in on_l for i, j in zip(lower.row.tolist(), lower.col.tolist()))
+    return f
+
+
+@pytest.mark.parametrize("n,density,seed", [(1, 1.0, 0), (40, 0.08, 1), (120, 0.02, 2), (200, 0.01, 3)])
+def test_factor_solve_and_selected_inverse_equal_dense(n, density, seed):
+    M = random_spd(n, density, seed)
+    perm = sf.fill_reducing_order(M)
+    assert sorted(perm.tolist()) == list(range(n))
+    check_factor(M.tocsr()[perm][:, perm])
+
+
+def test_ordering_reduces_fill_on_an_arrow_matrix():
+    # An arrow matrix (dense first row and column) fills L completely in the natural order and not
+    # at all once the dense node is eliminated last [C: elementary].
+    n = 50
+    M = sp.lil_matrix((n, n))
+    M[0, :] = 1.0
+    M[:, 0] = 1.0
+    M.setdiag(n + 1.0)
+    M = M.tocsc()
+    natural = sf.Factor(*sf.upper_csc(M)[:2])
+    perm = sf.fill_reducing_order(M)
+    ordered = sf.Factor(*sf.upper_csc(M.tocsr()[perm][:, perm])[:2])
+    assert natural.nnz == n * (n + 1) // 2
+    assert ordered.nnz == 2 * n - 1
+
+
+def test_ordering_matches_superlu_fill_on_a_random_pattern():
+    # The fill of our factor in the returned order equals the non-zeros of SuperLU's own L for the
+    # same ordering, with no pivoting (scipy as reference) [C], and is below the natural order's.
+    import scipy.sparse.linalg as spla
+
+    M = random_spd(300, 0.01, 5)
+    perm = sf.fill_reducing_order(M)
+    ordered = sf.Factor(*sf.upper_csc(M.tocsr()[perm][:, perm])[:2])
+    natural = sf.Factor(*sf.upper_csc(M)[:2])
+    lu = spla.splu(M, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0, options={"SymmetricMode": True})
+    assert ordered.nnz == lu.L.nnz
+    assert ordered.nnz < natural.nnz
+
+
+def test_not_positive_definite_is_reported():
+    M = sp.csc_matrix(np.array([[1.0, 2.0], [2.0, 1.0]]))
+    Cp, Ci, Cx = sf.upper_csc(M)
+    assert not sf.Factor(Cp, Ci).factor(Cx)
+
+
+# ------------------------------------------------------------------------------------------------
+# a small study: maternal effect on the dam column, permanent environment on the id column,
+# repeated records, missing cells, founders' records without a known dam (level -1)
+# ------------------------------------------------------------------------------------------------
+
+def small_pedigree(n=30, seed=4):
+    rng = np.random.default_rng(seed)
+    sire = -np.ones(n, np.int64)
+    dam = -np.ones(n, np.int64)
+    for i in range(8, n):
+        sire[i] = rng.integers(0, i // 2)
+        dam[i] = rng.integers(i // 2, i)
+    gen = np.zeros(n, np.int64)
+    for i in range(n):
+        if sire[i] >= 0:
+            gen[i] = 1 + max(gen[sire[i]], gen[dam[i]])
+    return Pedigree(ids=np.array([str(i) for i in range(n)], dtype=object), sire=sire, dam=dam, generation=gen,
+                    inbreeding=inbreeding(sire, dam))
+
+
+def random_cov(rng, t, scale=1.0):
+    a = rng.normal(size=(t, t))
+    return scale * (a @ a.T + 0.5 * np.eye(t))
+
+
+def small_study(t, seed=4):
+    rng = np.random.default_rng(seed)
+    ped = small_pedigree(seed=seed)
+    n = ped.n
+    rec = np.concatenate([np.arange(4, n), rng.integers(4, n, 10)])   # 10 repeated records
+    nr = len(rec)
+    obs = rng.random((nr, t)) > 0.25
+    obs[~obs.any(axis=1), 0] = True
+    dams = np.unique(ped.dam[ped.dam >= 0])
+    dam_level = np.where(ped.dam[rec] >= 0, np.searchsorted(dams, ped.dam[rec]), -1)
+    animals, pe_level = np.unique(rec, return_inverse=True)
+    assert np.any(dam_level == -1) and not obs.all()
+    design = sm.build_design(ped, rec, obs, [(dam_level, len(dams)), (pe_level, len(animals))])
+    covs = [random_cov(rng, t, 0.3), random_cov(rng, t, 0.5)]
+    G, R = random_cov(rng, t), random_cov(rng, t)
+    resid = np.where(obs, rng.normal(size=(nr, t)), 0.0)
+    return dict(ped=ped, rec=rec, obs=obs, dam_level=dam_level, n_dams=len(dams), pe_level=pe_level,
+                n_pe=len(animals), design=design, G=G, R=R, covs=covs, resid=resid)
+
+
+def dense_covariance(s, G, R, covs):
+    """V over every cell (record-major) from the model's definition (§2.1), and the incidence
+    matrices of the animals, dams and permanent-environment levels [C]."""
+    nr = len(s["rec"])
+    Z = np.zeros((nr, s["ped"].n))
+    Z[np.arange(nr), s["rec"]] = 1.0
+    Zm = np.zeros((nr, s["n_dams"]))
+    ok = s["dam_level"] >= 0
+    Zm[np.flatnonzero(ok), s["dam_level"][ok]] = 1.0
+    Zp = np.zeros((nr, s["n_pe"]))
+    Zp[np.arange(nr), s["pe_level"]] = 1.0
+    A = relationship_matrix(s["ped"])
+    V = (np.kron(Z @ A @ Z.T, G) + np.kron(Zm @ Zm.T, covs[0]) + np.kron(Zp @ Zp.T, covs[1])
+         + np.kron(np.eye(nr), R))
+    return V, A, Z, Zm, Zp
+
+
+def dense_logpdf(s, resid, G, R, covs):
+    """log N(resid_obs; 0, V) on the observed cells (scipy.stats.multivariate_normal) [C]."""
+    V = dense_covariance(s, G, R, covs)[0]
+    o = s["obs"].ravel()
+    return stats.multivariate_normal(np.zeros(o.sum()), V[np.ix_(o, o)]).logpdf(resid.ravel()[o])
+
+
+@pytest.mark.parametrize("t", [2, 3])
+def test_sparse_log_likelihood_equals_dense_multivariate_normal(t):
+    s = small_study(t)
+    value = sm.logp_and_grad(s["design"], s["resid"], s["G"], s["R"], s["covs"])[0]
+    want = dense_logpdf(s, s["resid"], s["G"], s["R"], s["covs"])
+    assert abs(value - want) < 1e-8
+
+
+def test_mme_factor_equals_dense_on_a_real_coefficient_matrix():
+    s = small_study(3)
+    C = sm.coefficient_matrix(s["design"], s["G"], s["R"], s["covs"])
+    f = check_factor(C)
+    assert f.nnz == s["design"].factor_nnz
+
+
+@pytest.mark.parametrize("t", [2, 3])
+def test_gradient_matches_central_finite_differences(t):
+    s = small_study(t, seed=7)
+    d = s["design"]
+    args = [s["resid"], s["G"], s["R"], s["covs"]]
+    value, d_resid, dG, dR, dcovs = sm.logp_and_grad(d, *args)
+    f = lambda *a: sm.logp_and_grad(d, *a)[0]  # noqa: E731
+    h = 1e-6
+
+    def numeric(which, c=None):
+        out = np.zeros((t, t))
+        for j in range(t):
+            for l in range(t):
+                e = np.zeros((t, t))
+                e[j, l] = h
+                up, dn = list(args), list(args)
+                if c is None:
+                    up[which], dn[which] = args[which] + e, args[which] - e
+                else:
+                    up[3] = [m + e if i == c else m for i, m in enumerate(args[3])]
+                    dn[3] = [m - e if i == c else m for i, m in enumerate(args[3])]
+                out[j, l] = (f(*up) - f(*dn)) / (2 * h)
+        return out
+
+    np.testing.assert_allclose(dG, numeric(1), rtol=1e-5, atol=1e-6)
+    np.testing.assert_allclose(dR, numeric(2), rtol=1e-5, atol=1e-6)
+    for c in range(2):
+        np.testing.assert_allclose(dcovs[c], numeric(3, c), rtol=1e-5, atol=1e-6)
+    rows, cols = np.nonzero(s["obs"])
+    for i, j in zip(rows[::7], cols[::7]):
+        e = np.zeros_like(s["resid"])
+        e[i, j] = h
+        num = (f(s["resid"] + e, *args[1:]) - f(s["resid"] - e, *args[1:])) / (2 * h)
+        assert d_resid[i, j] == pytest.approx(num, rel=1e-5, abs=1e-7)
+    assert np.all(d_resid[~s["obs"]] == 0.0)
+
+
+def test_not_positive_definite_covariance_gives_minus_infinity():
+    s = small_study(2)
+    bad = np.array([[1.0, 2.0], [2.0, 1.0]])
+    for args in ((bad, s["R"], s["covs"]), (s["G"], bad, s["covs"]), (s["G"], s["R"], [bad, s["covs"][1]])):
+        value, d_resid, dG, dR, dcovs = sm.logp_and_grad(s["design"], s["resid"], *args)
+        assert value == -np.inf and not d_resid.any() and not dG.any()
+
+
+def test_conditional_draw_noise_has_covariance_c_inverse():
+    # With noise = the unit vectors, the draws' offsets x_s = L'^-1 D^-1/2 e_s satisfy
+    # sum_s x_s x_s' = C^-1 exactly [C]; checked against numpy's dense inverse.
+    s = small_study(2)
+    d = s["design"]
+    n_u = d.n_unknowns
+    S = n_u
+    zero = np.zeros((S,) + s["resid"].shape)
+    rep = lambda m: np.broadcast_to(m, (S,) + np.shape(m))  # noqa: E731
+    out, ok = sm.effects(d, zero, rep(s["G"]), rep(s["R"]), rep(np.stack(s["covs"])), noise=np.eye(n_u))
+    assert ok.all()
+    x = out.reshape(S, n_u)
+    C = sm.coefficient_matrix(d, s["G"], s["R"], s["covs"]).toarray()
+    inv = np.empty_like(C)
+    inv[np.ix_(d.perm, d.perm)] = np.linalg.inv(C)     # back to the original order
+    np.testing.assert_allclose(x.T @ x, inv, rtol=0, atol=1e-10 * np.abs(inv).max())
+
+
+def test_conditional_means_equal_dense_blup():
+    # Henderson (1975): the BLUP of a random effect u is cov(u, y) V^-1 (y - X b) [C with dense V]:
+    # animals A Z' (x) G, dams Z_m' (x) C_m, permanent environment Z_p' (x) C_p, on the observed cells.
+    s = small_study(3, seed=11)
+    d = s["design"]
+    t = d.t
+    V, A, Z, Zm, Zp = dense_covariance(s, s["G"], s["R"], s["covs"])
+    o = s["obs"].ravel()
+    w = np.zeros(o.size)
+    w[o] = np.linalg.solve(V[np.ix_(o, o)], s["resid"].ravel()[o])
+    w = w.reshape(-1, t)                                      # V^-1 e per record, 0 where missing
+    np.testing.assert_allclose(sm.apply_v_inverse(d, s["resid"], s["G"], s["R"], s["covs"]), w,
+                               rtol=0, atol=1e-10 * np.abs(w).max())
+    mean, ok = sm.effects(d, s["resid"][None], s["G"][None], s["R"][None], np.stack(s["covs"])[None])
+    assert ok.all()
+    n_a, n_m = s["ped"].n, s["n_dams"]
+    want = np.concatenate([A @ Z.T @ w @ s["G"], Zm.T @ w @ s["covs"][0], Zp.T @ w @ s["covs"][1]])
+    np.testing.assert_allclose(mean[0], want, rtol=0, atol=1e-10 * np.abs(want).max())
+    assert mean.shape[1] == n_a + n_m + s["n_pe"]
+
+
+@pytest.mark.parametrize("example", ["E3", "E1", "E2"])
+def test_mrode_solutions(example):
+    # Mrode (2014) p. 74 [V]: fixed effects by generalised least squares on the sparse marginal
+    # likelihood, breeding values as the conditional means C^-1 r at those fixed effects
+    # (Henderson 1975: the BLUP). Tolerance 1e-3 (the book prints three decimals).
+    from mrode import assert_matches_solutions, config, pedigree, phenotypes
+
+    from ped2g.fit.prepare import prepare
+    from ped2g.fit.priors import fixed_covariances
+
+    cfg = config(example)
+    data = prepare(cfg, phenotypes(), pedigree(), "demo")
+    fixed = fixed_covariances(cfg["model"], data.y_scale, data.traits)
+    design = sm.design_for(data)
+    beta = sm.generalised_least_squares(design, data.y, data.X, fixed["G"], fixed["R"])
+    resid = np.where(data.missing, 0.0, data.y - data.X @ beta)
+    blocks, ok = sm.effects(design, resid[None], fixed["G"][None], fixed["R"][None])
+    assert ok.all()
+    assert_matches_solutions(data, beta, blocks[0, :data.pedigree.n], example)

@@ -1,0 +1,544 @@
+"""The exact marginal log-likelihood of the animal model from Henderson's mixed-model equations,
+with its gradient, by sparse factorisation (docs/methods.md §2.14).
+
+Model (standardised scale; records r, traits k; docs/methods.md §2.1)::
+
+    y = X b + Z a + sum_c Z_c u_c + e,   a ~ N(0, A (x) G),  u_c ~ N(0, I (x) C_c),  e_r ~ N(0, R)
+
+All random effects (the breeding values and every extra effect) are integrated out; the fixed
+effects ``b`` stay outside (the caller passes the residuals ``y - X b``, missing cells 0). With
+``W`` the random-effect design over the observed cells, ``Gamma`` the prior covariance of all
+random effects and ``R~`` the block-diagonal residual covariance (block of record r: ``R_oo`` of its
+observed traits)::
+
+    C = W' R~^-1 W + Gamma^-1                      (sparse, symmetric positive definite)
+    log|V| = log|C| + log|Gamma| + log|R~|
+    e' V^-1 e = e' R~^-1 e - r' C^-1 r,  r = W' R~^-1 e
+
+and the gradient needs only the entries of ``C^-1`` on the pattern of ``C`` (its selected inverse,
+:mod:`ped2g.fit.sparse_factor`) and the solution ``c^ = C^-1 r``.
+
+Layout. Random effects are grouped in *blocks* of ``t`` unknowns (one block per animal, then one
+per level of each extra effect, in the order of ``FitData.random``); unknown ``(block, k)`` is
+scalar ``block * t + k`` before the fill-reducing permutation. Every entry of ``C`` is a sum of
+*terms* ``coef x M_m[k, l]`` where the small matrices ``M_m`` are ``G^-1``, each ``C_c^-1`` and, per
+pattern of observed traits ``p``, ``(R_oo)^-1`` padded with zeros. :func:`build_design` lists these
+terms once per design (position in the upper triangle of the permuted ``C``, which entry of which
+small matrix, coefficient), so each evaluation only fills values; the same list gives
+``d log|C| / d M_m = sum coef x (C^-1 at the term's position)``.
+
+A record whose level of an extra effect is ``-1`` (unknown) gets no contribution from that effect.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numba
+import numpy as np
+import scipy.sparse as sp
+
+from . import sparse_factor as sf
+from .sparse_factor import ldl_numeric, ldl_solve, selected_inverse
+
+LOG_2PI = math.log(2.0 * math.pi)
+
+
+@dataclass
+class Design:
+    """What :func:`build_design` computes once for a design (pattern, ordering, index maps)."""
+
+    t: int
+    n_animals: int
+    n_levels: np.ndarray        # (1 + n_effects,): animals, then levels of each extra effect
+    block_offsets: np.ndarray   # first block of the animals and of each extra effect
+    patterns: np.ndarray        # (n_patterns, t) int8: observed traits of each pattern
+    rec_pattern: np.ndarray     # (n_records,)
+    rec_index: np.ndarray       # (n_records, 1 + n_effects, t): permuted unknown, -1 if none
+    term_pos: np.ndarray
+    term_midx: np.ndarray
+    term_coef: np.ndarray
+    Cp: np.ndarray
+    Ci: np.ndarray
+    Cj: np.ndarray
+    parent: np.ndarray
+    Lp: np.ndarray
+    Li: np.ndarray
+    c_to_l: np.ndarray
+    perm: np.ndarray            # perm[j]: original scalar unknown at permuted position j
+    const: float                # -1/2 (n_obs log 2 pi + t log|A|)
+    n_obs: int
+    log_det_A: float
+
+    @property
+    def n_unknowns(self) -> int:
+        return len(self.Cp) - 1
+
+    @property
+    def factor_nnz(self) -> int:
+        """Non-zeros of the factor L (unit diagonal included)."""
+        return int(len(self.Li) + self.n_unknowns)
+
+    def inputs(self) -> tuple:
+        """The structural arrays in the order the kernels take them (after resid, G, R, covs)."""
+        return (self.term_pos, self.term_midx, self.term_coef, self.Cp, self.Ci, self.Cj, self.parent, self.Lp,
+                self.Li, self.c_to_l, self.rec_pattern, self.rec_index, self.patterns, self.n_levels,
+                np.array([self.const]))
+
+
+#: Names of the structural inputs (``pm.Data`` names in the sparse engine's model).
+INPUT_NAMES = ("term_pos", "term_midx", "term_coef", "Cp", "Ci", "Cj", "parent", "Lp", "Li", "c_to_l",
+               "rec_pattern", "rec_index", "patterns", "n_levels", "const")
+
+
+def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
+                 effects: list[tuple[np.ndarray, int]] = ()) -> Design:
+    """Pattern, ordering, symbolic factorisation and index maps of the mixed-model equations.
+
+    Parameters
+    ----------
+    ped : ped2g.pedigree.core.Pedigree
+    record_animal : (n_records,) pedigree position of each record's animal
+    observed : (n_records, t) bool, observed trait cells (every record has at least one)
+    effects : list of (level, n_levels) per extra random effect; ``level`` (n_records,) int, ``-1``
+        for a record that gets no contribution from the effect
+    """
+    from ..pedigree.relationships import log_det_relationship, relationship_inverse
+
+    observed = np.asarray(observed, dtype=bool)
+    n_rec, t = observed.shape
+    if np.any(~observed.any(axis=1)):
+        raise ValueError("every record needs at least one observed trait")
+    tt = t * t
+    n_a = ped.n
+    sizes = [n_a] + [int(n) for _, n in effects]
+    offsets = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
+    n_b = int(offsets[-1])
+    n_u = n_b * t
+    n_gamma = 1 + len(effects)
+
+    # blocks of each record: animal, then one level per extra effect (-1 = none)
+    rb = np.full((n_rec, n_gamma), -1, dtype=np.int64)
+    rb[:, 0] = np.asarray(record_animal, dtype=np.int64)
+    for c, (level, n) in enumerate(effects):
+        level = np.asarray(level, dtype=np.int64)
+        if np.any(level >= n) or np.any(level < -1):
+            raise ValueError(f"extra effect {c}: levels must lie in -1..{n - 1}")
+        rb[:, 1 + c] = np.where(level >= 0, offsets[1 + c] + level, -1)
+    patterns, rec_pattern = np.unique(observed, axis=0, return_inverse=True)
+    rec_pattern = rec_pattern.ravel().astype(np.int64)
+    n_pat = len(patterns)
+
+    # pairs of blocks that share a record, per pattern, with counts
+    us, vs, ps = [], [], []
+    for f1 in range(n_gamma):
+        for f2 in range(n_gamma):
+            ok = (rb[:, f1] >= 0) & (rb[:, f2] >= 0)
+            us.append(rb[ok, f1]); vs.append(rb[ok, f2]); ps.append(rec_pattern[ok])
+    u = np.concatenate(us); v = np.concatenate(vs); p = np.concatenate(ps)
+    key, count = np.unique((u * n_b + v) * n_pat + p, return_counts=True)
+    p_pair = key % n_pat
+    uv = key // n_pat
+    u_pair, v_pair = uv // n_b, uv % n_b
+
+    Ainv = relationship_inverse(ped).tocoo()
+    level_blocks = np.arange(n_a, n_b, dtype=np.int64)
+    block_pattern = sp.coo_matrix(
+        (np.ones(Ainv.nnz + len(level_blocks) + len(u_pair)),
+         (np.concatenate([Ainv.row, level_blocks, u_pair]), np.concatenate([Ainv.col, level_blocks, v_pair]))),
+        shape=(n_b, n_b)).tocsc()
+    perm_b = sf.fill_reducing_order(block_pattern)
+    perm = (perm_b[:, None] * t + np.arange(t)[None, :]).ravel()
+    iperm = np.empty(n_u, dtype=np.int64)
+    iperm[perm] = np.arange(n_u)
+
+    kk, ll = np.divmod(np.arange(tt), t)
+    rows, cols, midx, coef = [], [], [], []
+    # G^-1 (x) A^-1
+    ai, aj = Ainv.row.astype(np.int64), Ainv.col.astype(np.int64)
+    rows.append((ai[:, None] * t + kk).ravel()); cols.append((aj[:, None] * t + ll).ravel())
+    midx.append(np.broadcast_to(np.arange(tt), (len(ai), tt)).ravel())
+    coef.append(np.repeat(Ainv.data, tt))
+    # C_c^-1 (x) I
+    for c in range(len(effects)):
+        b = np.arange(offsets[1 + c], offsets[2 + c], dtype=np.int64)
+        rows.append((b[:, None] * t + kk).ravel()); cols.append((b[:, None] * t + ll).ravel())
+        midx.append(np.broadcast_to((1 + c) * tt + np.arange(tt), (len(b), tt)).ravel())
+        coef.append(np.ones(len(b) * tt))
+    # records: (R_oo)^-1 padded, for each pair of blocks sharing a record
+    for q in range(n_pat):
+        obs = np.flatnonzero(patterns[q])
+        ko, lo = np.repeat(obs, len(obs)), np.tile(obs, len(obs))
+        sel = p_pair == q
+        uq, vq, cq = u_pair[sel], v_pair[sel], count[sel]
+        rows.append((uq[:, None] * t + ko).ravel()); cols.append((vq[:, None] * t + lo).ravel())
+        midx.append(np.broadcast_to((n_gamma + q) * tt + ko * t + lo, (len(uq), len(ko))).ravel())
+        coef.append(np.repeat(cq.astype(float), len(ko)))
+    prow = iperm[np.concatenate(rows)]
+    pcol = iperm[np.concatenate(cols)]
+    midx = np.concatenate(midx).astype(np.int64)
+    coef = np.concatenate(coef)
+    upper = prow <= pcol
+    prow, pcol, midx, coef = prow[upper], pcol[upper], midx[upper], coef[upper]
+    ckey = pcol * n_u + prow
+    ukeys = np.unique(ckey)
+    pos = np.searchsorted(ukeys, ckey)
+    Cj = ukeys // n_u
+    Ci = ukeys % n_u
+    Cp = np.searchsorted(Cj, np.arange(n_u + 1)).astype(np.int64)
+    n_mats = n_gamma + n_pat
+    tkey, tinv = np.unique(pos * (n_mats * tt) + midx, return_inverse=True)
+    term_coef = np.bincount(tinv.ravel(), weights=coef, minlength=len(tkey))
+    term_pos = (tkey // (n_mats * tt)).astype(np.int64)
+    term_midx = (tkey % (n_mats * tt)).astype(np.int64)
+
+    parent, Lp, Li = sf.symbolic(Cp, Ci)
+    nnzL = len(Li)
+    lkeys = np.repeat(np.arange(n_u, dtype=np.int64), np.diff(Lp)) * n_u + Li
+    off = Ci != Cj
+    c_to_l = nnzL + Cj.copy()
+    c_to_l[off] = np.searchsorted(lkeys, Ci[off] * n_u + Cj[off])
+    if np.any(lkeys[c_to_l[off]] != Ci[off] * n_u + Cj[off]):
+        raise AssertionError("pattern of C not contained in the pattern of L")
+
+    rec_index = np.full((n_rec, n_gamma, t), -1, dtype=np.int64)
+    for f in range(n_gamma):
+        ok = rb[:, f] >= 0
+        idx = iperm[rb[:, f, None] * t + np.arange(t)[None, :]]
+        rec_index[:, f, :] = np.where(ok[:, None] & observed, idx, -1)
+    n_obs = int(observed.sum())
+    log_det_A = float(log_det_relationship(ped))
+    return Design(t=t, n_animals=n_a, n_levels=np.asarray(sizes, dtype=np.int64), block_offsets=offsets,
+                  patterns=patterns.astype(np.int8), rec_pattern=rec_pattern, rec_index=rec_index,
+                  term_pos=term_pos, term_midx=term_midx, term_coef=term_coef, Cp=Cp, Ci=Ci, Cj=Cj,
+                  parent=parent, Lp=Lp, Li=Li, c_to_l=c_to_l.astype(np.int64), perm=perm,
+                  const=-0.5 * (n_obs * LOG_2PI + t * log_det_A), n_obs=n_obs, log_det_A=log_det_A)
+
+
+def design_for(data) -> Design:
+    """:func:`build_design` for a :class:`ped2g.fit.data.FitData`."""
+    return build_design(data.pedigree, data.record_animal, ~data.missing,
+                        [(eff.level, eff.n_levels) for eff in data.random])
+
+
+# ------------------------------------------------------------------------------------------------
+# kernels
+# ------------------------------------------------------------------------------------------------
+
+@numba.njit(cache=True)
+def _chol_inv_logdet(M, idx):
+    """Inverse and log-determinant of ``M[idx][:, idx]`` (symmetrised) by Cholesky; ok False if
+    that block is not positive definite."""
+    m = len(idx)
+    L = np.zeros((m, m))
+    ld = 0.0
+    for j in range(m):
+        for i in range(j, m):
+            s = 0.5 * (M[idx[i], idx[j]] + M[idx[j], idx[i]])
+            for q in range(j):
+                s -= L[i, q] * L[j, q]
+            if i == j:
+                if not s > 0.0:
+                    return False, np.zeros((m, m)), 0.0
+                L[j, j] = math.sqrt(s)
+                ld += 2.0 * math.log(L[j, j])
+            else:
+                L[i, j] = s / L[j, j]
+    # inverse of L (lower), then M^-1 = L^-T L^-1
+    Li = np.zeros((m, m))
+    for c in range(m):
+        Li[c, c] = 1.0 / L[c, c]
+        for i in range(c + 1, m):
+            s = 0.0
+            for q in range(c, i):
+                s -= L[i, q] * Li[q, c]
+            Li[i, c] = s / L[i, i]
+    inv = np.zeros((m, m))
+    for i in range(m):
+        for j in range(m):
+            s = 0.0
+            for q in range(max(i, j), m):
+                s += Li[q, i] * Li[q, j]
+            inv[i, j] = s
+    return True, inv, ld
+
+
+@numba.njit(cache=True)
+def _small_matrices(G, R, covs, patterns, n_levels):
+    """(ok, mats, log|Gamma| without t log|A|, log|R_oo| per pattern)."""
+    t = G.shape[0]
+    n_c = covs.shape[0]
+    n_gamma = 1 + n_c
+    n_pat = patterns.shape[0]
+    mats = np.zeros((n_gamma + n_pat, t, t))
+    pat_ld = np.zeros(n_pat)
+    every = np.arange(t)
+    ok, inv, ld = _chol_inv_logdet(G, every)
+    if not ok:
+        return False, mats, 0.0, pat_ld
+    mats[0] = inv
+    ld_gamma = n_levels[0] * ld
+    for c in range(n_c):
+        ok, inv, ld = _chol_inv_logdet(covs[c], every)
+        if not ok:
+            return False, mats, 0.0, pat_ld
+        mats[1 + c] = inv
+        ld_gamma += n_levels[1 + c] * ld
+    for p in range(n_pat):
+        idx = np.flatnonzero(patterns[p])
+        ok, inv, ld = _chol_inv_logdet(R, idx)
+        if not ok:
+            return False, mats, 0.0, pat_ld
+        for a in range(len(idx)):
+            for b in range(len(idx)):
+                mats[n_gamma + p, idx[a], idx[b]] = inv[a, b]
+        pat_ld[p] = ld
+    return True, mats, ld_gamma, pat_ld
+
+
+@numba.njit(cache=True)
+def _assemble(mats, term_pos, term_midx, term_coef, n_c_entries):
+    flat = mats.ravel()
+    Cx = np.zeros(n_c_entries)
+    for q in range(len(term_pos)):
+        Cx[term_pos[q]] += term_coef[q] * flat[term_midx[q]]
+    return Cx
+
+
+@numba.njit(cache=True)
+def _right_hand_side(resid, mats, n_gamma, rec_pattern, rec_index, n_u):
+    """(r = W' R~^-1 e, e' R~^-1 e)."""
+    n_rec, t = resid.shape
+    n_f = rec_index.shape[1]
+    rhs = np.zeros(n_u)
+    quad = 0.0
+    Pe = np.zeros(t)
+    for r in range(n_rec):
+        P = mats[n_gamma + rec_pattern[r]]
+        for k in range(t):
+            s = 0.0
+            for l in range(t):
+                s += P[k, l] * resid[r, l]
+            Pe[k] = s
+            quad += resid[r, k] * s
+        for f in range(n_f):
+            for k in range(t):
+                q = rec_index[r, f, k]
+                if q >= 0:
+                    rhs[q] += Pe[k]
+    return rhs, quad
+
+
+@numba.njit(cache=True)
+def mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci, Cj, parent, Lp, Li, c_to_l,
+                      rec_pattern, rec_index, patterns, n_levels, const):
+    """(log L, d/d resid, d/dG, d/dR, d/dcovs); -inf and zeros where a matrix is not positive definite."""
+    n_rec, t = resid.shape
+    n_c = covs.shape[0]
+    n_gamma = 1 + n_c
+    n_pat = patterns.shape[0]
+    tt = t * t
+    n_u = len(Cp) - 1
+    fail = (-np.inf, np.zeros((n_rec, t)), np.zeros((t, t)), np.zeros((t, t)), np.zeros((n_c, t, t)))
+    ok, mats, ld_gamma, pat_ld = _small_matrices(G, R, covs, patterns, n_levels)
+    if not ok:
+        return fail
+    Cx = _assemble(mats, term_pos, term_midx, term_coef, len(Ci))
+    Lx = np.empty(len(Li))
+    D = np.empty(n_u)
+    if ldl_numeric(Cp, Ci, Cx, parent, Lp, Li, Lx, D) != n_u:
+        return fail
+    rhs, quad = _right_hand_side(resid, mats, n_gamma, rec_pattern, rec_index, n_u)
+    chat = ldl_solve(Lp, Li, Lx, D, rhs.copy())
+    for q in range(n_u):
+        quad -= rhs[q] * chat[q]
+    ld_c = 0.0
+    for q in range(n_u):
+        ld_c += math.log(D[q])
+    count = np.zeros(n_pat)
+    ld_r = 0.0
+    for r in range(n_rec):
+        count[rec_pattern[r]] += 1.0
+        ld_r += pat_ld[rec_pattern[r]]
+    value = const[0] - 0.5 * (ld_c + ld_gamma + ld_r + quad)
+
+    # gradient: T_m = d(log|C| + Q) / d M_m (upper entries counted for both triangles)
+    nnzL = len(Li)
+    Zx = np.empty(nnzL)
+    Zd = np.empty(n_u)
+    selected_inverse(Lp, Li, Lx, D, Zx, Zd)
+    T = np.zeros((n_gamma + n_pat) * tt)
+    for q in range(len(term_pos)):
+        pos = term_pos[q]
+        i, j = Ci[pos], Cj[pos]
+        cl = c_to_l[pos]
+        z = Zx[cl] if cl < nnzL else Zd[cl - nnzL]
+        m = term_midx[q]
+        if m < n_gamma * tt:
+            z += chat[i] * chat[j]
+        w = 1.0 if i == j else 2.0
+        T[m] += w * term_coef[q] * z
+    d_resid = np.zeros((n_rec, t))
+    et = np.zeros(t)
+    n_f = rec_index.shape[1]
+    for r in range(n_rec):
+        p = rec_pattern[r]
+        for k in range(t):
+            if patterns[p, k]:
+                s = resid[r, k]
+                for f in range(n_f):
+                    qi = rec_index[r, f, k]
+                    if qi >= 0:
+                        s -= chat[qi]
+                et[k] = s
+            else:
+                et[k] = 0.0
+        P = mats[n_gamma + p]
+        base = (n_gamma + p) * tt
+        for k in range(t):
+            s = 0.0
+            for l in range(t):
+                s += P[k, l] * et[l]
+                T[base + k * t + l] += et[k] * et[l]
+            d_resid[r, k] = -s
+    T3 = T.reshape((n_gamma + n_pat, t, t))
+    dG = np.zeros((t, t))
+    dcovs = np.zeros((n_c, t, t))
+    for g in range(n_gamma):
+        H = mats[g]
+        Ts = 0.5 * (T3[g] + T3[g].T)
+        out = 0.5 * (H @ Ts @ H - n_levels[g] * H)
+        if g == 0:
+            dG[:, :] = out
+        else:
+            dcovs[g - 1] = out
+    dR = np.zeros((t, t))
+    for p in range(n_pat):
+        idx = np.flatnonzero(patterns[p])
+        m = len(idx)
+        P = np.empty((m, m))
+        Tp = np.empty((m, m))
+        for a in range(m):
+            for b in range(m):
+                P[a, b] = mats[n_gamma + p, idx[a], idx[b]]
+                Tp[a, b] = 0.5 * (T3[n_gamma + p, idx[a], idx[b]] + T3[n_gamma + p, idx[b], idx[a]])
+        out = 0.5 * (P @ Tp @ P - count[p] * P)
+        for a in range(m):
+            for b in range(m):
+                dR[idx[a], idx[b]] += out[a, b]
+    return value, d_resid, dG, dR, dcovs
+
+
+@numba.njit(cache=True)
+def mme_effects(resid, G, R, covs, noise, term_pos, term_midx, term_coef, Cp, Ci, Cj, parent, Lp, Li, c_to_l,
+                rec_pattern, rec_index, patterns, n_levels, const):
+    """Random effects given each draw s (permuted order), ``c^_s + L'^-1 D^-1/2 noise_s``.
+
+    ``resid`` (S, n_records, t), ``G``/``R`` (S, t, t), ``covs`` (S, n_c, t, t), ``noise`` (S, n_u):
+    standard normal draws for a draw from the conditional distribution N(C^-1 r, C^-1), zeros for
+    its mean. Returns (S, n_u) and ok (S,) (False where a matrix was not positive definite).
+    """
+    S = resid.shape[0]
+    n_u = len(Cp) - 1
+    t = G.shape[1]
+    n_gamma = 1 + covs.shape[1]
+    out = np.zeros((S, n_u))
+    good = np.zeros(S, dtype=np.bool_)
+    Lx = np.empty(len(Li))
+    D = np.empty(n_u)
+    for s in range(S):
+        ok, mats, _, _ = _small_matrices(G[s], R[s], covs[s], patterns, n_levels)
+        if not ok:
+            continue
+        Cx = _assemble(mats, term_pos, term_midx, term_coef, len(Ci))
+        if ldl_numeric(Cp, Ci, Cx, parent, Lp, Li, Lx, D) != n_u:
+            continue
+        rhs, _ = _right_hand_side(resid[s], mats, n_gamma, rec_pattern, rec_index, n_u)
+        chat = ldl_solve(Lp, Li, Lx, D, rhs)
+        x = np.empty(n_u)
+        for q in range(n_u):
+            x[q] = noise[s, q] / math.sqrt(D[q])
+        for j in range(n_u - 1, -1, -1):    # L' x = D^-1/2 noise, backward
+            v = x[j]
+            for p in range(Lp[j], Lp[j + 1]):
+                v -= Lx[p] * x[Li[p]]
+            x[j] = v
+        for q in range(n_u):
+            out[s, q] = chat[q] + x[q]
+        good[s] = True
+    return out, good
+
+
+# ------------------------------------------------------------------------------------------------
+# NumPy-level helpers
+# ------------------------------------------------------------------------------------------------
+
+def _covs_array(covs, t: int) -> np.ndarray:
+    if covs is None or len(covs) == 0:
+        return np.zeros((0, t, t))
+    return np.ascontiguousarray(np.asarray(covs, dtype=np.float64).reshape(-1, t, t))
+
+
+def logp_and_grad(design: Design, resid, G, R, covs=()) -> tuple:
+    """(log L, d/d resid, d/dG, d/dR, d/dcovs) at residuals ``resid = y - X b`` (missing cells 0)."""
+    t = design.t
+    return mme_logp_and_grad(np.ascontiguousarray(resid, dtype=np.float64), np.asarray(G, dtype=np.float64),
+                             np.asarray(R, dtype=np.float64), _covs_array(covs, t), *design.inputs())
+
+
+def effects(design: Design, resid, G, R, covs=None, noise=None) -> tuple[np.ndarray, np.ndarray]:
+    """Random effects per draw in the original block order: ((S, n_blocks, t), ok (S,)).
+
+    Batched over a leading draw axis (``resid`` (S, n, t), ``G``/``R`` (S, t, t), ``covs``
+    (S, n_c, t, t)); ``noise`` (S, n_unknowns) standard normal for draws from the conditional
+    distribution, None for the conditional means (BLUP with known covariances).
+    """
+    resid = np.ascontiguousarray(resid, dtype=np.float64)
+    S = resid.shape[0]
+    t = design.t
+    n_c = len(design.n_levels) - 1
+    covs = np.zeros((S, 0, t, t)) if covs is None or n_c == 0 else np.ascontiguousarray(covs, dtype=np.float64)
+    noise = np.zeros((S, design.n_unknowns)) if noise is None else np.ascontiguousarray(noise, dtype=np.float64)
+    out, ok = mme_effects(resid, np.ascontiguousarray(G, dtype=np.float64), np.ascontiguousarray(R, dtype=np.float64),
+                          covs, noise, *design.inputs())
+    orig = np.empty_like(out)
+    orig[:, design.perm] = out
+    return orig.reshape(S, -1, t), ok
+
+
+def apply_v_inverse(design: Design, resid, G, R, covs=()) -> np.ndarray:
+    """``V^-1 e`` on the observed cells (0 elsewhere): ``R~^-1 (e - W c^)``, minus the residual gradient."""
+    return -logp_and_grad(design, resid, G, R, covs)[1]
+
+
+def generalised_least_squares(design: Design, y0: np.ndarray, X: np.ndarray, G, R, covs=()) -> np.ndarray:
+    """The fixed effects ``b`` (p, t) maximising the likelihood with the covariances held:
+    ``X~' V^-1 X~ b = X~' V^-1 y`` with ``X~`` the trait-expanded design over observed cells. Costs
+    p t + 1 evaluations (for checks, not for sampling)."""
+    p = X.shape[1]
+    t = design.t
+    observed = design.patterns[design.rec_pattern].astype(bool)
+    M = np.empty((p * t, p * t))
+    for x in range(p):
+        for k in range(t):
+            col = np.zeros(y0.shape)
+            col[:, k] = X[:, x]
+            col[~observed] = 0.0
+            M[:, x * t + k] = (X.T @ apply_v_inverse(design, col, G, R, covs)).ravel()
+    rhs = (X.T @ apply_v_inverse(design, np.where(observed, y0, 0.0), G, R, covs)).ravel()
+    return np.linalg.solve(M, rhs).reshape(p, t)
+
+
+def coefficient_matrix(design: Design, G, R, covs=()) -> sp.csc_matrix:
+    """The permuted coefficient matrix ``C`` (full, symmetric) for these covariances, as scipy sparse
+    (for checks and benchmarks)."""
+    t = design.t
+    ok, mats, _, _ = _small_matrices(np.asarray(G, dtype=np.float64), np.asarray(R, dtype=np.float64),
+                                     _covs_array(covs, t), design.patterns, design.n_levels)
+    if not ok:
+        raise ValueError("a covariance matrix is not positive definite")
+    Cx = _assemble(mats, design.term_pos, design.term_midx, design.term_coef, len(design.Ci))
+    n = design.n_unknowns
+    U = sp.csc_matrix((Cx, design.Ci, design.Cp), shape=(n, n))
+    return (U + sp.triu(U, 1).T).tocsc()
