@@ -231,3 +231,20 @@ def test_shuffling_rows_changes_only_row_order(n, seed):
     a2 = relationship_inverse(ped2).toarray()[np.ix_(p, p)]
     np.testing.assert_allclose(a1, a2, atol=1e-12)
     assert sorted(ch1["problem"]) == sorted(ch2["problem"])
+
+
+def test_white_space_around_a_parent_names_the_parent_and_the_offspring():
+    # Mrode (2014) Table 2.1 pedigree (docs/methods.md §1.7, P1) with the sire cell of animal 5
+    # written as " 4 " and the dam cell of animal 6 as "2 ": the repaired ids are the parents
+    # 4 and 2, found on the rows of offspring 5 and 6 (lines 6 and 7, header = line 1).
+    rows = [("1", "", ""), ("2", "", ""), ("3", "1", "2"), ("4", "1", ""), ("5", " 4 ", "3"),
+            ("6", "5", "2 ")]
+    ped, changes = clean_pedigree(frame(rows))
+    got = [(r.row, r.id, r.problem, r.action) for r in changes.itertuples()]
+    assert got == [(6, "4", "white space around the sire", "stripped (the sire of '5' on this line)"),
+                   (7, "2", "white space around the dam", "stripped (the dam of '6' on this line)")]
+    # the repair links the right parents: F5 = F6 = 0.125 (Mrode 2014 p. 25)
+    table = by_id(ped)
+    assert table.loc["5", "sire"] == "4" and table.loc["6", "dam"] == "2"
+    assert table.loc["5", "inbreeding"] == pytest.approx(0.125, abs=1e-12)
+    assert table.loc["6", "inbreeding"] == pytest.approx(0.125, abs=1e-12)

@@ -1,6 +1,7 @@
 """Number formatting and HTML tables of the report."""
 
 import math
+import re
 
 import numpy as np
 import pandas as pd
@@ -51,9 +52,30 @@ def test_table_escapes_text_and_limits_rows():
     assert out.count("<tr>") == 3  # header + 2 rows
 
 
-def test_key_values_shows_nested_values_compactly():
-    out = str(key_values({"estimator": "mendelian", "sizes": [3, 4], "c": {"north": 0.5520833333}}))
-    assert "mendelian" in out and "[3, 4]" in out and "{north: 0.552}" in out
+def test_key_values_shows_nested_values_in_words():
+    out = str(key_values({"estimator": "mendelian", "sizes": [3, 4], "c": {"north": 0.5520833333},
+                          "codes": ["0", "NA", ""], "warnings": [], "dims": None, "ok": True,
+                          "tiny": 6.93e-07}))
+    cells = re.findall(r"<td>(.*?)</td>", out)
+    assert cells == ["mendelian", "3, 4", "north: 0.552", "0, NA, blank", "none", "none", "yes",
+                     "0.000000693"]
+    assert not re.search(r"[{}\[\]']", "".join(cells))  # no Python dict or list syntax
+
+
+def test_table_never_prints_an_exponent_and_whole_numbers_stay_whole():
+    # 6.93e-07 beside 0.5 in one column: the column keeps at most 4 decimals (3 significant figures
+    # of its largest value plus one, html.column_decimals), so the tiny
+    # value rounds to 0; component numbers stored as float (empty cells) print as 1, 2; text
+    # cells, such as an id written with a leading zero, are kept exactly as written.
+    frame = pd.DataFrame({"axis": [1.0, 2.0, np.nan], "value": [6.93e-07, 0.5, 0.25],
+                          "mixed": ["0042", 6.93e-07, 2.5e8], "p": [1e-5, 2e-6, 3e-5]})
+    out = str(table(frame))
+    cells = re.findall(r"<td>(.*?)</td>", out)
+    assert cells[0::4] == ["1", "2", ""]
+    assert cells[1::4] == ["0", "0.500", "0.250"]
+    assert cells[2::4] == ["0042", "0", "250000000"]
+    assert cells[3::4] == ["0.0000100", "0.00000200", "0.0000300"]
+    assert not re.search(r"\de[-+]\d", out)
 
 
 def test_figure_names_are_file_safe_and_unique(tmp_path):

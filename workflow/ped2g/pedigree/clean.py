@@ -2,7 +2,8 @@
 
 What a field or breeding pedigree brings, and what happens to it:
 
-* surrounding white space in an id, sire or dam cell -- stripped, and logged;
+* surrounding white space in an id, sire or dam cell -- stripped, and logged under the id that
+  was repaired (for a sire or dam cell, that parent's id, with the offspring of the row);
 * a parent cell holding an unknown-parent code (default ``0``, ``NA``, ``.``, or blank) -- the
   parent is unknown;
 * exact duplicate rows -- one is kept, the others are logged as dropped;
@@ -123,9 +124,15 @@ def clean_pedigree(frame: pd.DataFrame, id_col: str = "id", sire_col: str = "sir
         clean = raw.str.strip()
         touched = (clean != raw).to_numpy(dtype=bool)
         if touched.any():
-            who = stripped["id"] if role != "id" else clean
-            changes.append(_changes(lines[touched], who[touched].to_numpy(dtype=object),
-                                    f"white space around the {role}", "stripped"))
+            # the record names the value repaired (for a parent cell, the sire's or dam's id)
+            # and, for a parent, the offspring on whose row it was found
+            fixed = clean[touched].to_numpy(dtype=object)
+            if role == "id":
+                action: object = "stripped"
+            else:
+                offspring = stripped["id"][touched]
+                action = (f"stripped (the {role} of '" + offspring + "' on this line)").to_numpy(dtype=object)
+            changes.append(_changes(lines[touched], fixed, f"white space around the {role}", action))
         stripped[role] = clean
 
     # 2. one integer code per distinct string; unknown-parent codes become -1

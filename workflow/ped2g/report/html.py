@@ -99,8 +99,8 @@ def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int
     if caption:
         parts.append(f"<caption>{html.escape(caption)}</caption>")
     head = ([_header(frame.index.name or "")] if index else []) + [_header(c) for c in frame.columns]
-    caps = {c: (column_decimals(frame[c], digits.get(c, 3)) if frame[c].dtype.kind == "f" else None)
-            for c in frame.columns}
+    caps = {c: _column_cap(frame[c], digits.get(c, 3)) for c in frame.columns}
+    whole = {c: _whole_numbers(frame[c]) for c in frame.columns}
     parts.append("<thead><tr>" + "".join(f"<th>{h}</th>" for h in head) + "</tr></thead><tbody>")
     for pos, (label, row) in enumerate(shown.iterrows()):
         row_miss = misses is not None and bool(misses.iloc[pos].any())
@@ -108,8 +108,7 @@ def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int
         for col in frame.columns:
             miss = misses is not None and col in misses.columns and bool(misses.iloc[pos][col])
             cls = ' class="miss"' if miss else ""
-            text = (plain(row[col], digits.get(col, 3), caps[col]) if caps[col] is not None
-                    else fmt(row[col], digits.get(col, 3)))
+            text = _cell(row[col], digits.get(col, 3), caps[col], whole[col])
             cells.append(f"<td{cls}>{html.escape(text)}</td>")
         tr_cls = ' class="miss-row"' if row_miss else ""
         parts.append(f"<tr{tr_cls}>" + "".join(cells) + "</tr>")
@@ -122,23 +121,80 @@ def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int
     return Markup("".join(parts))
 
 
+def _is_number(value: Any) -> bool:
+    if isinstance(value, (bool, np.bool_)) or value is None:
+        return False
+    return isinstance(value, (int, float, np.integer, np.floating))
+
+
+def _numbers(values: pd.Series) -> np.ndarray:
+    """The finite numeric cells of a column (text cells that read as numbers included)."""
+    if values.dtype == bool:
+        return np.zeros(0)
+    x = pd.to_numeric(values, errors="coerce").to_numpy(dtype=float)
+    return x[np.isfinite(x)]
+
+
+def _column_cap(values: pd.Series, digits: int) -> int | None:
+    """The decimals cap of a column holding numbers (see :func:`column_decimals`); None for a
+    column of text only."""
+    if values.dtype.kind not in "fO" or not len(_numbers(values)):
+        return None
+    return column_decimals(values, digits)
+
+
+def _whole_numbers(values: pd.Series) -> bool:
+    """Whether every number in the column is a whole number (a count or a component number
+    stored as float because of empty cells): printed without decimals."""
+    x = _numbers(values)
+    return values.dtype.kind in "fO" and len(x) > 0 and bool(np.all(x == np.round(x))) and \
+        bool(np.all(np.abs(x) < 1e15))
+
+
+def _cell(value: Any, digits: int, cap: int | None, whole: bool) -> str:
+    """One table cell: numbers never in scientific notation (``cap`` decimals at most)."""
+    if isinstance(value, str):
+        return value  # text as written (an id such as 0042 is not a number)
+    if not _is_number(value):
+        return fmt(value, digits)
+    if not math.isfinite(float(value)):
+        return fmt(value, digits)
+    if whole:
+        return str(int(round(float(value))))
+    return plain(value, digits, cap)
+
+
+def plain_value(value: Any) -> str:
+    """A setting's value in words: numbers to 3 significant figures without exponent, yes/no,
+    lists joined with commas (a blank item as "blank"), None and empty lists as "none", nested
+    mappings as ``key: value`` pairs separated by semicolons."""
+    if value is None:
+        return "none"
+    if isinstance(value, (bool, np.bool_)):
+        return "yes" if value else "no"
+    if isinstance(value, dict):
+        return "; ".join(f"{k}: {plain_value(v)}" for k, v in value.items()) or "none"
+    if isinstance(value, (list, tuple)):
+        if not value:
+            return "none"
+        if all(isinstance(v, (list, tuple)) for v in value):  # a matrix: rows separated by semicolons
+            return "; ".join(", ".join(plain_value(x) for x in row) for row in value)
+        sep = "; " if any(isinstance(v, dict) for v in value) else ", "
+        return sep.join("blank" if v == "" else plain_value(v) for v in value)
+    if _is_number(value):
+        x = float(value)
+        if math.isfinite(x) and x == round(x) and abs(x) < 1e15 and isinstance(value, (int, np.integer)):
+            return str(int(value))
+        return plain(value)
+    return str(value)
+
+
 def key_values(pairs: dict[str, Any] | list[tuple[str, Any]]) -> Markup:
-    """A two-column table of keys and values (nested values shown as compact text)."""
+    """A two-column table of keys and values, each value in words (:func:`plain_value`)."""
     items = pairs.items() if isinstance(pairs, dict) else pairs
     rows = []
     for key, value in items:
-        if isinstance(value, (dict, list)):
-            value = _compact(value)
         rows.append(f"<tr><th scope=\"row\">{html.escape(str(key))}</th>"
-                    f"<td>{html.escape(fmt(value))}</td></tr>")
+                    f"<td>{html.escape(plain_value(value))}</td></tr>")
     return Markup('<div class="table-wrap"><table class="kv"><tbody>' + "".join(rows) +
                   "</tbody></table></div>")
-
-
-def _compact(value: Any) -> str:
-    """Nested lists and dicts as short text, numbers to 3 significant figures."""
-    if isinstance(value, dict):
-        return "{" + ", ".join(f"{k}: {_compact(v)}" for k, v in value.items()) + "}"
-    if isinstance(value, (list, tuple)):
-        return "[" + ", ".join(_compact(v) for v in value) + "]"
-    return fmt(value)
