@@ -6,7 +6,7 @@ import re
 import numpy as np
 import pandas as pd
 
-from ped2g.report.html import fmt, key_values, table
+from ped2g.report.html import fmt, interval_text, key_values, table
 
 
 def test_fmt_rounds_to_significant_figures():
@@ -90,3 +90,25 @@ def test_figure_names_are_file_safe_and_unique(tmp_path):
     assert (a.name, b.name) == ("rank_pop_1", "rank_pop_1_2")
     assert sorted(p.name for p in tmp_path.iterdir()) == [
         "rank_pop_1.pdf", "rank_pop_1.png", "rank_pop_1_2.pdf", "rank_pop_1_2.png"]
+
+
+def test_table_leaves_out_columns_with_no_value():
+    frame = pd.DataFrame({"population": ["a", "b"], "in_words": ["", " "], "axis": [np.nan, None],
+                          "p": [0.5, np.nan]})
+    out = str(table(frame))
+    heads = re.findall(r"<th>(.*?)</th>", out)
+    assert heads == ["population", "p"]
+    assert re.findall(r"<td>(.*?)</td>", out) == ["a", "0.500", "b", ""]
+
+
+def test_interval_text_rounds_to_what_the_interval_supports():
+    # width 1.24 -> 2 significant figures of the width need 1 decimal; -0.0 is written 0.0
+    assert interval_text(6.93e-07, -0.662, 0.581) == "0.0 [-0.7, 0.6]"
+    assert interval_text(-0.004, -0.0662, 0.0581) == "0.00 [-0.07, 0.06]"
+    # width 0.118 -> 2 decimals; width 4.5 -> 1 decimal; width 35 -> none
+    assert interval_text(0.612, 0.557, 0.675) == "0.61 [0.56, 0.68]"
+    assert interval_text(10.7, 8.40, 12.9) == "10.7 [8.4, 12.9]"
+    assert interval_text(120.4, 101.2, 136.0) == "120 [101, 136]"
+    # a value held fixed (zero width) keeps its digits
+    assert interval_text(2.5, 2.5, 2.5) == "2.50 [2.50, 2.50]"
+    assert interval_text(float("nan"), 0, 1) == ""

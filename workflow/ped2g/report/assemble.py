@@ -17,7 +17,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-import yaml
 from markupsafe import Markup
 
 from ..io import get_logger, output_dir, write_json
@@ -276,7 +275,7 @@ def _data_section(sec: Section, inputs: ResultInputs, pheno, pheno_path: Path, t
     else:
         saved.save("pedigree_by_population", ped)
         sec.note("From each fit's pedigree_used.csv: the phenotyped animals and their ancestors that the "
-                 "model used. Founders have neither parent known; generations count founders as 1.")
+                 f"model used. Founders have neither parent known; {tables.GENERATIONS_NOTE}.")
         sec.table(html.table(ped))
     if inputs.pedigree_summary:
         sec.heading("Pedigree stage summary")
@@ -599,8 +598,11 @@ def _provenance_section(sec: Section, config: dict[str, Any], config_path: Path 
     sec.heading("This report")
     sec.table(html.key_values(context))
     sec.heading("Config")
-    sec.note("The config as used, with every default filled in.")
-    sec.pre(yaml.safe_dump(config, sort_keys=False, allow_unicode=True))
+    sec.note("The config as used, with every default filled in, one setting per row (the same "
+             "config is in provenance.json).")
+    items = tables.config_items(config)
+    saved.save("config_settings", pd.DataFrame(items, columns=["setting", "value"]))
+    sec.table(html.key_values(items))
     sec.heading("Input files")
     files = [p for p in [config_path, *input_files] if p is not None]
     in_sums = checksums(files)

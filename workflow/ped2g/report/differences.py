@@ -140,9 +140,9 @@ def findings_section(sec, inputs: ResultInputs, config: dict[str, Any], saved, s
     shown = shown.loc[:, shown.notna().any(axis=0)]
     yes = found.table["supported"].astype(bool).to_numpy() if len(found.table) else np.array([], bool)
     if yes.any():
-        part = shown[yes].reset_index(drop=True)
+        part = tables.drop_empty(shown[yes]).reset_index(drop=True)  # each table without empty columns
         sec.table(html.table(part, misses=_mark(part), caption="Supported differences"))
-    rest = shown[~yes].reset_index(drop=True)
+    rest = tables.drop_empty(shown[~yes]).reset_index(drop=True)
     if len(rest):
         sec.table(html.table(rest, caption="Tested but not supported", collapse_after=0,
                              summary=f"Show the {len(rest)} tested statistics that are not supported"))

@@ -61,6 +61,29 @@ def plain(value: Any, digits: int = 3, max_decimals: int | None = None) -> str:
     return "0" if float(text) == 0 else text
 
 
+def interval_text(estimate: Any, lower: Any, upper: Any, width_digits: int = 2) -> str:
+    """``estimate [lower, upper]`` rounded to what the interval supports: the decimals that give
+    the interval's width ``width_digits`` significant figures, the same for all three numbers
+    (a covariance of 6.93e-07 with interval [-0.66, 0.58] prints as 0.00 [-0.66, 0.58]). An
+    interval of zero width (a value held fixed) prints each number as :func:`plain` does."""
+    try:
+        x, lo, hi = float(estimate), float(lower), float(upper)
+    except (TypeError, ValueError):
+        return ""
+    if not all(map(math.isfinite, (x, lo, hi))):
+        return f"{plain(x)} [{plain(lo)}, {plain(hi)}]" if math.isfinite(x) else ""
+    width = hi - lo
+    if width <= 0:
+        return f"{plain(x)} [{plain(lo)}, {plain(hi)}]"
+    decimals = max(width_digits - 1 - math.floor(math.log10(width)), 0)
+
+    def one(v: float) -> str:
+        text = f"{v:.{decimals}f}"
+        return text[1:] if text.startswith("-") and float(text) == 0 else text
+
+    return f"{one(x)} [{one(lo)}, {one(hi)}]"
+
+
 #: Values are never cut to fewer decimals than this (0.0042 stays 0.0042 beside 12.8).
 MIN_DECIMALS = 4
 
@@ -91,9 +114,11 @@ def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int
     Rows beyond ``max_rows`` are left out with a note (the CSV holds them all). ``digits`` gives
     the significant figures of named columns (default 3), e.g. 4 for R-hat so that 1.012 does
     not print as 1.01 beside a 1.01 threshold. A table longer than ``collapse_after`` rows is
-    folded into a ``<details>`` element that the reader opens with one click.
+    folded into a ``<details>`` element that the reader opens with one click. Columns with no
+    value in any row are left out.
     """
     digits = digits or {}
+    frame = frame[[c for c in frame.columns if not _empty(frame[c])]]  # an empty column says nothing
     shown = frame if max_rows is None else frame.iloc[:max_rows]
     parts = ['<div class="table-wrap"><table>']
     if caption:
@@ -119,6 +144,11 @@ def table(frame: pd.DataFrame, misses: pd.DataFrame | None = None, max_rows: int
         label = html.escape(summary or f"Show the table ({len(shown)} rows)")
         parts = [f"<details><summary>{label}</summary>", *parts, "</details>"]
     return Markup("".join(parts))
+
+
+def _empty(column: pd.Series) -> bool:
+    """Whether no cell of the column holds anything (None, NaN or blank text only)."""
+    return bool(column.isna().all()) or bool(column.astype(str).str.strip().isin(["", "nan", "None"]).all())
 
 
 def _is_number(value: Any) -> bool:
@@ -164,10 +194,14 @@ def _cell(value: Any, digits: int, cap: int | None, whole: bool) -> str:
     return plain(value, digits, cap)
 
 
-def plain_value(value: Any) -> str:
-    """A setting's value in words: numbers to 3 significant figures without exponent, yes/no,
-    lists joined with commas (a blank item as "blank"), None and empty lists as "none", nested
-    mappings as ``key: value`` pairs separated by semicolons."""
+def plain_value(value: Any, exact: bool = False) -> str:
+    """A setting's value in words: numbers to 3 significant figures without exponent (``exact``:
+    as written, 0.9 as 0.9), yes/no, lists joined with commas (a blank item as "blank"), None and
+    empty lists as "none", nested mappings as ``key: value`` pairs separated by semicolons."""
+    if exact and _is_number(value) and math.isfinite(float(value)):
+        return np.format_float_positional(float(value), trim="-")
+    if isinstance(value, (dict, list, tuple)) and exact:
+        value = _exact(value)
     if value is None:
         return "none"
     if isinstance(value, (bool, np.bool_)):
@@ -187,6 +221,18 @@ def plain_value(value: Any) -> str:
             return str(int(value))
         return plain(value)
     return str(value)
+
+
+class _Written(str):
+    """A number already written out (by :func:`plain_value` with ``exact``)."""
+
+
+def _exact(value: Any) -> Any:
+    if isinstance(value, dict):
+        return {k: _exact(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_exact(v) for v in value]
+    return _Written(plain_value(value, exact=True)) if _is_number(value) else value
 
 
 def key_values(pairs: dict[str, Any] | list[tuple[str, Any]]) -> Markup:

@@ -66,8 +66,19 @@ def _trait_label(trait: str, config: dict[str, Any]) -> str:
 # ---------------------------------------------------------------------------------------------
 # The data
 # ---------------------------------------------------------------------------------------------
+#: How the report counts generations, said once wherever a count is shown.
+GENERATIONS_NOTE = ("generations: the number of generations, founders being the first (a pedigree of "
+                    "founders only has 1)")
+
+
+def generation_count(max_generation_index: int | None) -> int:
+    """The number of generations from the largest generation index (founders index 0, every other
+    animal 1 + the larger index of its known parents; docs/methods.md §1.2): index + 1."""
+    return 0 if max_generation_index is None else int(max_generation_index) + 1
+
+
 def _generation_depth(frame: pd.DataFrame) -> np.ndarray:
-    """Generation of each animal (founders 0) when the table does not carry it."""
+    """Generation index of each animal (founders 0) when the table does not carry it."""
     index = {name: i for i, name in enumerate(frame["id"])}
     depth = np.zeros(len(frame), dtype=int)
     for i, (sire, dam) in enumerate(zip(frame.get("sire", [""] * len(frame)),
@@ -88,7 +99,8 @@ def pedigree_by_population(inputs: ResultInputs) -> pd.DataFrame | None:
     """Per population: animals, phenotyped animals, founders, generations and inbreeding.
 
     Read from each fit's ``pedigree_used.csv`` (the pruned pedigree the model used). A founder has
-    neither parent known; generations counts founders as generation 0 (so founders-only = 1).
+    neither parent known; ``generations`` is the number of generations with the founders as the
+    first (:data:`GENERATIONS_NOTE`; a pedigree of founders only has 1).
     """
     rows = []
     for pop, fit in inputs.fits.items():
@@ -102,7 +114,7 @@ def pedigree_by_population(inputs: ResultInputs) -> pd.DataFrame | None:
                 if "phenotyped" in ped else None)
         rows.append({
             "population": pop, "animals": len(ped), "phenotyped": phen, "founders": founders,
-            "generations": int(gen.max()) + 1 if len(gen) else 0,
+            "generations": generation_count(int(gen.max())) if len(gen) else 0,
             "mean_inbreeding": float(np.nanmean(f)) if f is not None and len(f) else None,
             "max_inbreeding": float(np.nanmax(f)) if f is not None and len(f) else None,
             "inbred_animals": int(np.sum(f > 0)) if f is not None else None,
@@ -130,13 +142,20 @@ def phenotype_counts(pheno: pd.DataFrame | None, populations: list[str],
 
 
 def changes_by_problem(changes: pd.DataFrame | None) -> pd.DataFrame | None:
-    """Number of pedigree changes per (problem, action)."""
-    if changes is None or changes.empty:
+    """Number of pedigree changes per problem, with the action taken.
+
+    An action that names its row (``stripped (the sire of '7' on this line)``, ``dropped (same as
+    line 5)``) is shown by its first words, so each problem is one row; the full list has them all.
+    """
+    if changes is None or changes.empty or "problem" not in changes.columns:
         return None
-    keys = [c for c in ("problem", "action") if c in changes.columns]
-    if not keys:
-        return None
-    return changes.groupby(keys, sort=True).size().reset_index(name="rows")
+    frame = changes.copy()
+    if "action" in frame.columns:
+        frame["action"] = frame["action"].fillna("").astype(str).str.split(" (", n=1, regex=False).str[0]
+        keys = ["problem", "action"]
+    else:
+        keys = ["problem"]
+    return frame.groupby(keys, sort=True).size().reset_index(name="rows")
 
 
 # ---------------------------------------------------------------------------------------------
@@ -310,15 +329,16 @@ def _summary_row(pop: str, name: str, trait: str, trait2: str, x: np.ndarray, ma
 
 
 def estimate_matrix(table: pd.DataFrame, population: str, quantity: str, traits: list[str]) -> pd.DataFrame:
-    """A t x t display table of ``median [lower, upper]`` for one population and quantity.
+    """A t x t display table of ``median [lower, upper]`` for one population and quantity, rounded
+    to what the interval supports (:func:`ped2g.report.html.interval_text`).
 
     Symmetric matrices fill the upper triangle and diagonal; rg fills the upper triangle with 1
     on the diagonal; h2 gives one row.
     """
-    from .html import fmt
+    from .html import interval_text
 
     part = table[(table["population"] == population) & (table["quantity"] == quantity)]
-    cell = {(r.trait, r.trait2): f"{fmt(r.median)} [{fmt(r.hpd_lower)}, {fmt(r.hpd_upper)}]"
+    cell = {(r.trait, r.trait2): interval_text(r.median, r.hpd_lower, r.hpd_upper)
             for r in part.itertuples()}
     if quantity == "h2":
         return pd.DataFrame([[cell.get((t, ""), "") for t in traits]], columns=traits, index=["h2"])
@@ -477,9 +497,93 @@ RECORD_SKIP = {"cautions", "null_cautions", "assumptions", "definitions", "fits"
                "ped2g_version", "default_reason", "changes"}
 
 
-def record_items(record: dict[str, Any]) -> list[tuple[str, Any]]:
-    """The key-value items of a stage's JSON record worth a settings table (long ones left out)."""
-    return [(k, v) for k, v in record.items() if k not in RECORD_SKIP]
+#: Readable names of the keys of the stages' JSON records (others: underscores as spaces).
+RECORD_LABELS = {
+    "max_generation": "generations",
+    "mean_inbreeding": "mean inbreeding coefficient F",
+    "max_inbreeding": "largest inbreeding coefficient F",
+    "inbred_animals": "inbred animals (F > 0)",
+    "changes_total": "changes to the raw pedigree",
+    "estimator_description": "estimator, in words",
+    "animals_pooled": "phenotyped animals pooled",
+    "animals_simulated": "animals simulated",
+    "animals_in_several_fits": "animals in more than one population's pedigree",
+    "singular_draws": "draws with a singular null G",
+    "c_population": "relatedness factor c = 1 + mean F - mean relationship",
+    "c_pooled": "relatedness factor c, pooled",
+    "chunk_draws": "draws per chunk",
+    "interval_mass": "interval probability mass",
+    "null_draws": "null draws",
+    "subspace_dims": "subspace dimensions (leading eigenvectors)",
+    "eigentensors_kept": "eigentensors kept",
+    "not_positive_definite": "draws not positive definite",
+    "null_estimator": "null estimator",
+    "null_kind": "null",
+    "refit_null": "refitting null",
+    "null": "null folder read",
+    "run_seconds": "run time (seconds)",
+    "seconds": "run time (seconds)",
+    "mcse_over_null_sd_median": "Monte Carlo error over the null's SD (median)",
+    "refit_rhat_max_median": "largest split R-hat of a refit (median)",
+    "pilot_replicates": "pilot refits per population",
+}
+
+
+def _label(key: str) -> str:
+    return RECORD_LABELS.get(key, str(key).replace("_", " "))
+
+
+def record_items(record: dict[str, Any]) -> list[tuple[str, str]]:
+    """A stage's JSON record as readable rows: (label, value in words).
+
+    Long entries (:data:`RECORD_SKIP`) are left out; nested records become one row per entry
+    (``refitting null: replicates``); ``max_generation`` (the largest generation index, founders
+    0) is shown as the number of generations (:func:`generation_count`).
+    """
+    from .html import plain_value
+
+    rows: list[tuple[str, str]] = []
+    for key, value in record.items():
+        if key in RECORD_SKIP:
+            continue
+        if key == "max_generation":
+            rows.append(("generations (founders are the first; a pedigree of founders only has 1)",
+                         str(generation_count(value))))
+        elif isinstance(value, dict) and value:
+            for sub, inner in value.items():
+                if sub not in RECORD_SKIP:
+                    rows.append((f"{_label(key)}: {_label(sub).replace(':', ' ')}", plain_value(inner)))
+        else:
+            rows.append((_label(key), plain_value(value)))
+    return rows
+
+
+#: What a config setting left empty (null) means, in words (the schema's descriptions).
+CONFIG_NONE = {
+    "model.fixed_covariances": "none (G and R are estimated)",
+    "compare.subspace_dims": "default (half the number of traits, rounded down, at least 1)",
+    "compare.max_draws": "default (every posterior draw)",
+    "compare.null_model.replicates": "default (the fewest with which every family of tests can reach "
+                                     "compare.alpha after Holm's adjustment, and at least 99)",
+}
+
+
+def config_items(config: dict[str, Any], prefix: str = "") -> list[tuple[str, str]]:
+    """The config as rows of (dotted key, value in words): ``compare.null_model.refit.chains`` and
+    ``1``; lists joined with commas, a blank entry as "blank", null as what it means
+    (:data:`CONFIG_NONE`) or "none"."""
+    from .html import plain_value
+
+    rows: list[tuple[str, str]] = []
+    for key, value in config.items():
+        name = f"{prefix}{key}"
+        if isinstance(value, dict) and value:
+            rows += config_items(value, prefix=f"{name}.")
+        elif value is None:
+            rows.append((name, CONFIG_NONE.get(name, "none")))
+        else:
+            rows.append((name, plain_value(value, exact=True)))
+    return rows
 
 
 def stage_cautions(inputs: ResultInputs) -> list[str]:
