@@ -31,7 +31,7 @@ def test_every_citation_in_the_text_is_in_the_reference_list():
     text, refs = _paragraph(_config(), ["skewers", "subspace", "tensor", "gmax", "evolvability",
                                         "dimensions", "distance"])
     cited = set()
-    for group in re.findall(r"\(([^()]*\d{4}[^()]*)\)", text):
+    for group in re.findall(r"\(([^()]*)\)", text):
         for item in group.split(";"):
             item = item.strip()
             if item in REFERENCES:
@@ -79,5 +79,30 @@ def test_sampler_that_ran_and_the_missing_value_step_are_named():
     assert "Gibbs step between NUTS transitions" in text and "Tanner & Wong 1987" in text
     assert any(r.startswith("Tanner MA, Wong WH (1987)") for r in refs)
     text, refs = _paragraph(_config(), ["skewers"])
-    assert "in nutpie 0.0.1, each with" in text and "Gibbs step" not in text
+    assert "in nutpie 0.0.1 (github.com/pymc-devs/nutpie), each with" in text and "Gibbs step" not in text
     assert not any("Tanner" in r for r in refs)
+
+
+def test_software_is_cited_with_version_and_reference():
+    # The software papers, recalled from memory [M] (docs/methods.md §8): PyMC, Abril-Pla et al.
+    # 2023, PeerJ Computer Science 9:e1516; NumPy, Harris et al. 2020, Nature 585:357-362; SciPy,
+    # Virtanen et al. 2020, Nature Methods 17:261-272; ArviZ, Kumar et al. 2019, JOSS 4(33):1143;
+    # Snakemake, Mölder et al. 2021, F1000Research 10:33; nutpie has no paper: its repository.
+    versions = {**VERSIONS, "snakemake": "8.1.0"}
+    text, refs = methods_paragraph(_config(), ["north", "south"], ["wing", "mass"], ["marginal"], 3,
+                                   passed=2, methods=["skewers"], null_present=True, versions=versions)
+    for software, citation, reference in [
+            ("PyMC 1.2.3", "Abril-Pla et al. 2023", "PeerJ Computer Science 9:e1516"),
+            ("NumPy 7.8.9", "Harris et al. 2020", "Nature 585:357-362"),
+            ("SciPy 1.0", "Virtanen et al. 2020", "Nature Methods 17:261-272"),
+            ("ArviZ 4.5.6", "Kumar et al. 2019", "Journal of Open Source Software 4(33):1143"),
+            ("Snakemake 8.1.0", "Mölder et al. 2021", "F1000Research 10:33"),
+            ("nutpie 0.0.1", "github.com/pymc-devs/nutpie", "https://github.com/pymc-devs/nutpie")]:
+        assert f"{software} ({citation})" in text, software
+        assert sum(reference in r for r in refs) == 1, reference
+    # no Snakemake sentence or reference when Snakemake is not installed
+    text, refs = _paragraph(_config(), ["skewers"])
+    assert "Snakemake" not in text and not any("Snakemake" in r for r in refs)
+    # the sampler that ran is the one cited: PyMC alone leaves the nutpie repository out
+    text, refs = _paragraph(_config(), ["skewers"], samplers=["pymc"])
+    assert not any("nutpie" in r for r in refs)

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 from typing import Any
 
+#: The in-text citation of nutpie, which has no paper.
+NUTPIE = "github.com/pymc-devs/nutpie"
 #: Full references, keyed by the short citation used in the text.
 REFERENCES: dict[str, str] = {
     "Holm 1979": "Holm S (1979) A simple sequentially rejective multiple test procedure. Scandinavian "
@@ -70,6 +72,22 @@ REFERENCES: dict[str, str] = {
                            "convergence of MCMC. Bayesian Analysis 16:667-718.",
     "Wright 1922": "Wright S (1922) Coefficients of inbreeding and relationship. American Naturalist "
                    "56:330-338.",
+    # The software used (docs/methods.md §8); authors, titles and pages recalled from memory [M].
+    "Abril-Pla et al. 2023": "Abril-Pla O, Andreani V, Carroll C, et al. (2023) PyMC: a modern and "
+                             "comprehensive probabilistic programming framework in Python. PeerJ Computer "
+                             "Science 9:e1516.",  # [M]
+    "Harris et al. 2020": "Harris CR, Millman KJ, van der Walt SJ, et al. (2020) Array programming with "
+                          "NumPy. Nature 585:357-362.",  # [M]
+    "Virtanen et al. 2020": "Virtanen P, Gommers R, Oliphant TE, et al. (2020) SciPy 1.0: fundamental "
+                            "algorithms for scientific computing in Python. Nature Methods 17:261-272.",  # [M]
+    "Kumar et al. 2019": "Kumar R, Carroll C, Hartikainen A, Martin O (2019) ArviZ a unified library for "
+                         "exploratory analysis of Bayesian models in Python. Journal of Open Source "
+                         "Software 4(33):1143.",  # [M]
+    "Mölder et al. 2021": "Mölder F, Jablonski KP, Letcher B, et al. (2021) Sustainable data analysis with "
+                          "Snakemake. F1000Research 10:33.",  # [M]
+    # nutpie has no paper: its repository, with the version given in the text [M].
+    NUTPIE: "nutpie, a No-U-Turn sampler for PyMC models. Software, https://github.com/pymc-devs/nutpie "
+            "(no paper; cite the version named in the text).",
 }
 
 #: What each comparison method's sentence says and cites (keyed by compare/<method>.csv stem).
@@ -198,7 +216,7 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         f"e ~ N(0, R ⊗ I), where A is the additive relationship matrix from the pedigree; the fixed "
         f"effects were {_list(['an intercept per trait', *fixed])}"
         f"{', and further random effects ' + _list(extra) + ' each had their own covariance matrix' if extra else ''}. "
-        f"The model was written in PyMC {v('pymc')} {eng}.")
+        f"The model was written in PyMC {v('pymc')} ({cite('Abril-Pla et al. 2023')}) {eng}.")
     family = priors["sd_family"].replace("_", "-")
     sentences.append(
         f"Each standard deviation had a {family} prior with scale {priors['sd_scale']} times the "
@@ -207,15 +225,15 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
         f"covariance matrix alike; each fixed effect had an independent normal prior with mean 0 and "
         f"standard deviation {priors['fixed_sd']} on the scale of standardised traits (each "
         "trait centred and divided by its phenotypic standard deviation), that is, nearly flat.")
-    names = {"nutpie": f"nutpie {v('nutpie')}", "pymc": f"PyMC {v('pymc')}"}
-    sampler = _list([names.get(x, x) for x in (samplers or [s["sampler"]])])
+    names = {"nutpie": lambda: f"nutpie {v('nutpie')} ({cite(NUTPIE)})", "pymc": lambda: f"PyMC {v('pymc')}"}
+    sampler = _list([names[x]() if x in names else x for x in (samplers or [s["sampler"]])])
     ch = config["checks"]
     sentences.append(
         f"We ran {s['chains']} chains of the No-U-Turn sampler ({cite('Hoffman & Gelman 2014')}) in "
         f"{sampler}, each with {s['warmup']} warm-up and {s['draws']} kept iterations (target acceptance "
         f"{s['target_accept']}, seed {s['seed']}), and required rank-normalised split R-hat ≤ "
         f"{ch['max_rhat']}, bulk and tail effective sample sizes ≥ {ch['min_ess']} "
-        f"({cite('Vehtari et al. 2021')}; ArviZ {v('arviz')}) and "
+        f"({cite('Vehtari et al. 2021')}), computed with ArviZ {v('arviz')} ({cite('Kumar et al. 2019')}), and "
         + ("no divergent transitions" if int(ch['max_divergences']) == 0 else
            f"at most {ch['max_divergences']} divergent transition{'s' if int(ch['max_divergences']) != 1 else ''}")
         + f"; {passed} of {len(populations)} fits met every check.")
@@ -275,9 +293,14 @@ def methods_paragraph(config: dict[str, Any], populations: list[str], traits: li
             f"sizes, and a null G was estimated per population {NULL_ESTIMATOR_TEXT[est]}; the same "
             "statistics were computed on the null G's. This null carries no error of estimating G and "
             "was used descriptively, not as a test.")
+    workflow = ""
+    if versions.get("snakemake") and versions["snakemake"] != "not installed":
+        workflow = (f" The stages ran as a workflow in Snakemake {v('snakemake')} "
+                    f"({cite('Mölder et al. 2021')}).")
     sentences.append(
-        f"Computations used Python {v('python')}, NumPy {v('numpy')}, SciPy {v('scipy')}, "
-        f"PyTensor {v('pytensor')} and xarray {v('xarray')}.")
+        f"Computations used Python {v('python')}, NumPy {v('numpy')} ({cite('Harris et al. 2020')}), "
+        f"SciPy {v('scipy')} ({cite('Virtanen et al. 2020')}), PyTensor {v('pytensor')} and xarray "
+        f"{v('xarray')}.{workflow}")
     return " ".join(sentences), cite.references()
 
 
