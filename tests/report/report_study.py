@@ -173,7 +173,7 @@ def make_study(root: Path, *, null: bool = True, compare: str | None = "stages",
     results = root / "results"
     (results / "pedigree").mkdir(parents=True)
     (results / "pedigree" / "summary.json").write_text(json.dumps(
-        {"animals": 18, "founders": 6, "generations": 4, "mean_inbreeding": 0.0417, "seconds": 0.4}))
+        {"animals": 18, "founders": 6, "max_generation": 3, "mean_inbreeding": 0.0417, "seconds": 0.4}))
     pd.DataFrame({"row": [3, 7], "id": ["a3", "a9"], "problem": ["parent listed after offspring",
                                                                  "dam also used as sire"],
                   "action": ["reordered", "set dam unknown"]}).to_csv(

@@ -3,6 +3,7 @@
 import math
 import re
 
+import matplotlib.colors
 import numpy as np
 import pandas as pd
 
@@ -112,3 +113,34 @@ def test_interval_text_rounds_to_what_the_interval_supports():
     # a value held fixed (zero width) keeps its digits
     assert interval_text(2.5, 2.5, 2.5) == "2.50 [2.50, 2.50]"
     assert interval_text(float("nan"), 0, 1) == ""
+
+
+def test_forest_plot_draws_the_refitting_null_band_on_the_statistic_scale():
+    # compare.calibrated.TESTS: ("distance", "riemannian") is tested as "greater" (its posterior
+    # mean, on the statistic's own axis); ("skewers", "magnitude_ratio") as |ln ratio|, another
+    # scale, so it gets no band. One grey rectangle per banded row, spanning exactly
+    # [null_refit_lower, null_refit_upper].
+    from matplotlib.patches import Rectangle
+
+    from ped2g.report.difference_figures import NULL_BAND
+    from ped2g.report.figures import comparison_figure
+
+    distance = pd.DataFrame({"method": "distance", "statistic": "riemannian",
+                             "population": ["a", "a", "b"], "population2": ["b", "c", "c"],
+                             "estimate": [0.3, 0.5, 0.4], "lower": [0.1, 0.3, 0.2], "upper": [0.6, 0.8, 0.7],
+                             "null_refit_lower": [0.2, 0.25, np.nan], "null_refit_upper": [0.9, 0.95, np.nan]})
+    ratio = distance.assign(method="skewers", statistic="magnitude_ratio")
+
+    def bands(fig):
+        grey = matplotlib.colors.to_rgba(NULL_BAND)[:3]
+        return [[(p.get_x(), p.get_x() + p.get_width()) for p in ax.patches
+                 if isinstance(p, Rectangle) and p.get_facecolor()[:3] == grey] for ax in fig.axes]
+
+    fig = comparison_figure({"riemannian": distance, "magnitude_ratio": ratio}, "t", "s")
+    got = bands(fig)
+    assert len(got[0]) == 2 and got[1] == []
+    assert np.allclose(sorted(got[0]), [(0.2, 0.9), (0.25, 0.95)])
+    assert "shared G (refitting null): 95% of replicates" in [t.get_text() for t in fig.axes[0].get_legend().get_texts()]
+    # without the columns (no refitting null) there is no band
+    fig = comparison_figure({"riemannian": distance.drop(columns=["null_refit_lower", "null_refit_upper"])}, "t", "s")
+    assert bands(fig) == [[]]

@@ -5,6 +5,7 @@ from __future__ import annotations
 import base64
 import io
 import json
+import re
 from html.parser import HTMLParser
 
 import pandas as pd
@@ -238,3 +239,90 @@ def test_a_single_population_without_comparisons(tmp_path):
     assert "genetic_correlations" in result.figures and "rank_north" in result.figures
     assert "1 population (north)" in (paths["out"] / "report.html").read_text(encoding="utf-8")
     assert "No pedigree/changes.csv was found" in page.text("data")
+
+
+class _Tables(HTMLParser):
+    """Every <table> of the page: its section, header cells and rows of cells (text)."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.tables: list[dict] = []
+        self._section = None
+        self._cell: list[str] | None = None
+        self._row: list[str] | None = None
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if tag == "section":
+            self._section = a.get("id")
+        elif tag == "table":
+            self.tables.append({"section": self._section, "kv": a.get("class") == "kv", "head": [], "rows": []})
+        elif tag == "tr" and self.tables:
+            self._row = []
+        elif tag in ("td", "th") and self._row is not None:
+            self._cell = []
+
+    def handle_endtag(self, tag):
+        if tag in ("td", "th") and self._cell is not None and self._row is not None:
+            self._row.append("".join(self._cell).strip())
+            self._cell = None
+        elif tag == "tr" and self._row is not None:
+            t = self.tables[-1]
+            if not t["head"] and not t["kv"]:
+                t["head"] = self._row
+            else:
+                t["rows"].append(self._row)
+            self._row = None
+
+    def handle_data(self, data):
+        if self._cell is not None:
+            self._cell.append(data)
+
+
+def _tables(path) -> list[dict]:
+    parser = _Tables()
+    parser.feed(path.read_text(encoding="utf-8"))
+    return parser.tables
+
+
+def test_settings_tables_are_plain_key_values(built_report):
+    # Every key/value table (what was run, stage records, the config as used): no Python dict or
+    # list syntax, and the config's keys as dotted paths with the values given in the config.
+    paths, _ = built_report
+    kv = [t for t in _tables(paths["out"] / "report.html") if t["kv"]]
+    assert kv
+    for t in kv:
+        for key, value in t["rows"]:
+            assert not set("{}[]") & set(key + value), (key, value)
+            assert "'" not in value or t["section"] != "provenance", (key, value)
+    config = dict(next(t for t in kv if t["section"] == "provenance"
+                       and any(k == "sampling.chains" for k, _ in t["rows"]))["rows"])
+    assert config["sampling.chains"] == "4"  # config.yaml of the study: sampling.chains 4
+    assert config["compare.null_model.refit.chains"] == "1"  # the schema's default
+    assert config["traits"] == "wing, mass, tarsus"
+    assert config["compare.subspace_dims"].startswith("default (")
+
+
+def test_generations_are_counted_one_way_on_the_page(built_report):
+    # The study's pedigree stage recorded max_generation 3 (indices from 0) and each fit used
+    # Mrode's Table 2.1 pedigree, 4 generations by hand (1,2 -> 3,4 -> 5 -> 6): both tables say 4.
+    paths, _ = built_report
+    found = _tables(paths["out"] / "report.html")
+    per_population = next(t for t in found if "generations" in t["head"])
+    col = per_population["head"].index("generations")
+    assert {row[col] for row in per_population["rows"]} == {"4"}
+    stage = dict(next(t for t in found if t["kv"] and t["section"] == "data")["rows"])
+    assert [v for k, v in stage.items() if k.startswith("generations")] == ["4"]
+    assert not any("generation" in k and "max" in k for k in stage)
+
+
+def test_report_tables_have_no_exponents_and_no_empty_columns(built_report):
+    paths, _ = built_report
+    for t in _tables(paths["out"] / "report.html"):
+        cells = [c for row in t["rows"] for c in row]
+        assert not [c for c in cells if re.fullmatch(r"-?\d+(\.\d+)?e[-+]?\d+", c)], t["head"]
+        if t["kv"] or not t["rows"]:
+            continue
+        for j, name in enumerate(t["head"]):
+            if name:  # the row-label column of a matrix has no name
+                assert any(len(r) > j and r[j] != "" for r in t["rows"]), f"empty column {name}"

@@ -149,3 +149,42 @@ def test_row_labels_name_pairs_indices_and_traits():
                                         "c, component 1, component 2"]
     frame["method"] = "tensor"
     assert tables.row_labels(frame)[3] == "c, eigentensor 1, eigenvector 2"
+
+
+def test_generations_agree_between_the_pedigree_stage_and_the_fits_on_mrode_table_2_1():
+    # Mrode (2014) Table 2.1 (docs/methods.md §1.7, P1), counted by hand: founders 1 and 2 are the
+    # first generation; 3 (1 x 2) and 4 (1 x ?) the second; 5 (4 x 3) the third; 6 (5 x 2) the
+    # fourth: 4 generations. A founders-only pedigree has 1.
+    from ped2g.pedigree.clean import clean_pedigree
+    from ped2g.pedigree.summary import summarise
+
+    raw = MRODE_PEDIGREE[["id", "sire", "dam"]].astype(str)
+    ped, changes = clean_pedigree(raw)
+    stage = dict(tables.record_items(summarise(ped, changes)))
+    [label] = [k for k in stage if k.startswith("generations")]
+    assert stage[label] == "4"
+    assert "max_generation" not in " ".join(stage)  # no internal name on the page
+    fits = tables.pedigree_by_population(_inputs(_fit(np.ones((1, 2, 2, 2)) * np.eye(2),
+                                                      pedigree=ped.to_frame())))
+    assert fits.loc[0, "generations"] == 4
+    founders_only, none = clean_pedigree(pd.DataFrame({"id": ["a", "b"], "sire": ["", ""], "dam": ["", ""]}))
+    assert dict(tables.record_items(summarise(founders_only, none)))[label] == "1"
+    assert tables.pedigree_by_population(_inputs(_fit(np.ones((1, 2, 2, 2)) * np.eye(2),
+                                                      pedigree=founders_only.to_frame())))["generations"].tolist() == [1]
+
+
+def test_settings_rows_are_plain_key_values():
+    from ped2g.config import validate
+
+    config = validate({"traits": ["wing", "mass"], "random": [{"name": "brood", "column": "nest"}]})
+    rows = dict(tables.config_items(config))
+    # every config key as its dotted path; lists joined with commas; null in words
+    assert rows["compare.null_model.refit.chains"] == str(config["compare"]["null_model"]["refit"]["chains"])
+    assert rows["traits"] == "wing, mass"
+    assert rows["data.missing_parent"] == ", ".join(c if c else "blank" for c in config["data"]["missing_parent"])
+    assert rows["compare.subspace_dims"].startswith("default (half the number of traits")
+    assert rows["model.fixed_covariances"].startswith("none")
+    assert rows["random"] == "name: brood; column: nest"
+    assert rows["compare.interval_mass"] == "0.95"  # as written, not 0.950
+    for key, value in rows.items():
+        assert not set("{}[]'") & set(value + key), (key, value)

@@ -24,7 +24,7 @@ from . import html, tables
 from .differences import build_context, correlation_figure, difference_blocks, findings_section
 from .figures import (MAX_RANK_PANELS, FigureStore, comparison_figure, covariance_unit,
                       eigentensor_figure, heritability_figure, loadings_figure, null_density_figure,
-                      rank_plots_figure, slug)
+                      rank_plots_figure, refit_band, slug)
 from .pdf import PdfResult, write_pdf
 from .truth import find_truth, read_truth
 from .loaders import (ResultInputs, read_compare_as_written, read_compare_draws, read_phenotypes,
@@ -442,7 +442,8 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
         if method in METHOD_NOTES:
             sec.text(METHOD_NOTES[method])
         display = tables.compare_display(frame)
-        has_null_cols |= "null_estimate" in display and display["null_estimate"].notna().any()
+        method_null = bool("null_estimate" in display and display["null_estimate"].notna().any())
+        has_null_cols |= method_null
         as_written = raw.get(method, frame)
         saved.save(f"compare_{method}", tables.drop_empty(as_written))
         if "description" in frame:
@@ -472,9 +473,14 @@ def _comparisons_section(sec: Section, inputs: ResultInputs, pops: list[str], co
                 too_long.append(str(statistic))
         title = METHOD_TITLES.get(method, method)
         if forest:
+            banded = any(np.isfinite(refit_band(part)[0]).any() for part in forest.values())
+            caption = (f"Observed statistics (blue), posterior median and {mass:.0%} HPD interval"
+                       + ("; grey points: the breeding-value null's" if method_null else "")
+                       + ("; grey bands: the range (2.5% to 97.5% of the replicates) of the posterior mean "
+                          "when every population shares one G (the refitting null), drawn for the "
+                          "statistics tested on their own scale" if banded else "") + ".")
             sec.figure(store.add(f"compare_{method}", comparison_figure(forest, title, f"G on the {scale} scale"),
-                                 title, "Observed statistics (blue) against the randomisation null (grey), "
-                                 f"posterior median and {mass:.0%} HPD interval."))
+                                 title, caption))
         for statistic in too_long:
             sec.note(f"{statistic} has too many rows to plot; see tables/compare_{method}.csv.")
         _density_figure(sec, method, draws, store)

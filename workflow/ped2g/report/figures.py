@@ -193,13 +193,40 @@ def rank_plots_figure(elements: dict[str, np.ndarray], population: str, bins: in
 # ---------------------------------------------------------------------------------------------
 # Comparisons
 # ---------------------------------------------------------------------------------------------
+#: Kinds of calibrated test whose tested value is the statistic's posterior mean, so that the
+#: refitting null's range can be drawn on the statistic's own axis (the others test |ln ratio|
+#: or a distance from the mean over populations, on another scale).
+SAME_SCALE_TESTS = ("greater", "less")
+
+
+def refit_band(frame: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Per row, the refitting null's 95% range of the posterior mean (``null_refit_lower``,
+    ``null_refit_upper``) where it is on the statistic's scale, else NaN."""
+    nan = np.full(len(frame), np.nan)
+    if not {"null_refit_lower", "null_refit_upper"} <= set(frame.columns):
+        return nan, nan
+    from ..compare.calibrated import TESTS
+
+    methods = frame["method"] if "method" in frame else pd.Series([""] * len(frame), index=frame.index)
+    same = np.array([TESTS.get((str(m), str(s))) in SAME_SCALE_TESTS
+                     for m, s in zip(methods, frame["statistic"])], dtype=bool)
+    lo = pd.to_numeric(frame["null_refit_lower"], errors="coerce").to_numpy(dtype=float)
+    hi = pd.to_numeric(frame["null_refit_upper"], errors="coerce").to_numpy(dtype=float)
+    return np.where(same, lo, np.nan), np.where(same, hi, np.nan)
+
+
 def comparison_figure(frames: dict[str, pd.DataFrame], title: str, scale_note: str) -> Figure:
     """Forest plots of a method's statistics, one panel per statistic: the observed posterior
-    median and HPD interval (blue) beside the null's (grey) where the null exists."""
+    median and HPD interval (blue) beside the breeding-value null's (grey points) where it exists,
+    over the refitting null's 95% range of the posterior mean (a grey band, :func:`refit_band`)
+    where the comparison tables have it."""
+    from matplotlib.patches import Rectangle
+
+    from .difference_figures import NULL_BAND
     sizes = [max(len(f), 1) for f in frames.values()]
     fig, axes = plt.subplots(len(frames), 1, figsize=(7.8, 0.34 * sum(sizes) + 1.05 * len(frames) + 0.4),
                              squeeze=False, gridspec_kw={"height_ratios": [n + 2.2 for n in sizes]})
-    legend_done = False
+    legend_done: set[str] = set()
     for ax, (statistic, frame) in zip(axes[:, 0], frames.items()):
         labels = row_labels(frame)
         y = np.arange(len(frame))
@@ -214,6 +241,14 @@ def comparison_figure(frames: dict[str, pd.DataFrame], title: str, scale_note: s
             ax.errorbar(est, y + offset, xerr=np.abs(err), fmt="o", color=colour, capsize=2,
                         markersize=4, label=label)
 
+        band_lo, band_hi = refit_band(frame)
+        banded = False
+        for yi, lo, hi in zip(y, band_lo, band_hi):
+            if np.isfinite(lo) and np.isfinite(hi):
+                ax.add_patch(Rectangle((lo, yi - 0.4), hi - lo, 0.8, facecolor=NULL_BAND, edgecolor=NULL_BAND,
+                                       lw=1.0, alpha=0.7, zorder=0,
+                                       label=None if banded else "shared G (refitting null): 95% of replicates"))
+                banded = True
         nan = np.full(len(frame), np.nan)
         draw(frame["estimate"], frame["lower"] if "lower" in frame else nan,
              frame["upper"] if "upper" in frame else nan, -shift, OBSERVED_COLOUR, "observed")
@@ -225,9 +260,11 @@ def comparison_figure(frames: dict[str, pd.DataFrame], title: str, scale_note: s
         ax.set_xlabel(f"{statistic} (degrees)" if "angle" in str(statistic) else statistic, fontsize=9)
         ax.tick_params(axis="x", labelsize=8)
         ax.grid(axis="y", visible=False)
-        if not legend_done:
-            ax.legend(fontsize=8, loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=2, frameon=False)
-            legend_done = True
+        handles, names = ax.get_legend_handles_labels()
+        if set(names) - legend_done:  # a panel that brings a new mark (the band) gets a legend too
+            ax.legend(handles, names, fontsize=8, loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=3,
+                      frameon=False)
+            legend_done |= set(names)
     fig.suptitle(f"{title} (median and HPD interval; {scale_note})", fontsize=10)
     fig.tight_layout()
     return fig

@@ -564,7 +564,7 @@ CONFIG_NONE = {
     "compare.subspace_dims": "default (half the number of traits, rounded down, at least 1)",
     "compare.max_draws": "default (every posterior draw)",
     "compare.null_model.replicates": "default (the fewest with which every family of tests can reach "
-                                     "compare.alpha after Holm's adjustment, and at least 99)",
+                                     "compare.alpha after the Holm adjustment, and at least 99)",
 }
 
 
