@@ -90,6 +90,100 @@ def test_not_positive_definite_is_reported():
     assert not sf.Factor(Cp, Ci).factor(Cx)
 
 
+
+def random_block_spd(n_blocks, t, density, seed):
+    """A symmetric positive definite matrix made of dense t x t blocks on a random block pattern
+    (diagonally dominant, so positive definite by Gershgorin's theorem [C]), unknowns of a block
+    kept together and the blocks in a minimum-degree order of the block graph (as the mixed-model
+    equations are laid out)."""
+    rng = np.random.default_rng(seed)
+    B = sp.random(n_blocks, n_blocks, density=density, random_state=seed)
+    B = ((B + B.T + sp.eye(n_blocks)) != 0).astype(float)
+    order = sf.fill_reducing_order(B)
+    B = B.tocsr()[order][:, order].tocoo()
+    vals = rng.normal(size=(B.nnz, t, t))
+    rows = (B.row[:, None, None] * t + np.arange(t)[None, :, None] + 0 * vals).ravel()
+    cols = (B.col[:, None, None] * t + np.arange(t)[None, None, :] + 0 * vals).ravel()
+    M = sp.csc_matrix((vals.ravel(), (rows.astype(int), cols.astype(int))), shape=(n_blocks * t,) * 2)
+    M = M + M.T
+    return (M + sp.diags(np.abs(M).sum(axis=1).A1 + 0.1)).tocsc()
+
+
+def scalar_factor(M):
+    """Scalar up-looking LDL' and scalar selected inverse of the (permuted) M."""
+    Cp, Ci, Cx = sf.upper_csc(M)
+    parent, Lp, Li = sf.symbolic(Cp, Ci)
+    Lx, D = np.empty(len(Li)), np.empty(len(Cp) - 1)
+    assert sf.ldl_numeric(Cp, Ci, Cx, parent, Lp, Li, Lx, D) == len(D)
+    Zx, Zd = np.empty(len(Li)), np.empty(len(D))
+    sf.selected_inverse(Lp, Li, Lx, D, Zx, Zd)
+    return Lx, D, Zx, Zd
+
+
+@pytest.mark.parametrize("n_blocks,t,density,seed", [(60, 4, 0.05, 1), (150, 3, 0.02, 2), (40, 1, 0.1, 3),
+                                                     (25, 4, 0.5, 4)])
+def test_supernodal_factor_equals_scalar_and_dense_on_block_matrices(n_blocks, t, density, seed):
+    # Supernodal kernels against the scalar ones (same L, D, Z on the same pattern) and both
+    # against numpy's dense inverse [C].
+    M = random_block_spd(n_blocks, t, density, seed)
+    f = check_factor(M)
+    widths = np.diff(f.snode)
+    assert widths.sum() == M.shape[0] and widths.min() >= 1
+    if t > 1:
+        assert widths.max() > t             # some supernodes span more than one block
+    Lx, D, Zx, Zd = scalar_factor(M)
+    np.testing.assert_allclose(f.D, D, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(f.Lx, Lx, rtol=0, atol=1e-10 * np.abs(Lx).max())
+    Zx2, Zd2 = f.selected_inverse()
+    np.testing.assert_allclose(Zd2, Zd, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(Zx2, Zx, rtol=0, atol=1e-10 * np.abs(Zd).max())
+    inv = np.linalg.inv(M.toarray())
+    np.testing.assert_allclose(Zd2, np.diag(inv), rtol=1e-10, atol=0)
+
+
+def test_supernode_columns_share_their_pattern():
+    # Inside a supernode, column j's rows are j+1 followed by column j+1's rows [C: definition].
+    M = random_block_spd(80, 3, 0.04, 6)
+    f = sf.Factor(*sf.upper_csc(M)[:2])
+    for J in range(len(f.snode) - 1):
+        for j in range(f.snode[J], f.snode[J + 1] - 1):
+            here = f.Li[f.Lp[j]:f.Lp[j + 1]].tolist()
+            assert here == [j + 1] + f.Li[f.Lp[j + 1]:f.Lp[j + 2]].tolist()
+
+
+def test_transpose_pattern_equals_scipy_transpose():
+    M = random_spd(70, 0.05, 8)
+    Cp, Ci, Cx = sf.upper_csc(M)
+    Tp, Ti, take = sf.transpose_pattern(Cp, Ci)
+    want = sp.triu(M).T.tocsc()            # scipy as reference [C]
+    want.sort_indices()
+    np.testing.assert_array_equal(Tp, want.indptr)
+    np.testing.assert_array_equal(Ti, want.indices)
+    np.testing.assert_array_equal(Cx[take], want.data)
+
+
+@pytest.mark.parametrize("bad", [0, 7, 29])
+def test_supernodal_factor_reports_the_first_non_positive_pivot(bad):
+    # A matrix that is positive definite up to column bad - 1 and not at bad: the supernodal
+    # kernel stops at the same column as the scalar one, and that column is bad [C: Sylvester's
+    # criterion on the leading minors].
+    M = random_block_spd(10, 3, 0.3, 9).toarray()
+    n = len(M)
+    Lc = np.linalg.cholesky(M[:bad, :bad]) if bad else np.zeros((0, 0))
+    x = np.linalg.solve(Lc, M[:bad, bad]) if bad else np.zeros(0)
+    M[bad, bad] = x @ x - 1.0              # Schur complement at bad is -1
+    S = sp.csc_matrix(M)
+    Cp, Ci, Cx = sf.upper_csc(S)
+    f = sf.Factor(Cp, Ci)
+    assert not f.factor(Cx)
+    parent, Lp, Li = sf.symbolic(Cp, Ci)
+    low_p, low_i, take = sf.transpose_pattern(Cp, Ci)
+    Lx, D = np.empty(len(Li)), np.empty(n)
+    got = sf.ldl_supernodal(low_p, low_i, Cx[take], f.snode, Lp, Li, Lx, D)
+    assert got == bad
+    assert sf.ldl_numeric(Cp, Ci, Cx, parent, Lp, Li, np.empty(len(Li)), np.empty(n)) == bad
+
+
 # ------------------------------------------------------------------------------------------------
 # a small study: maternal effect on the dam column, permanent environment on the id column,
 # repeated records, missing cells, founders' records without a known dam (level -1)

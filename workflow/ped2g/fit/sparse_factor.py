@@ -225,8 +225,250 @@ def selected_inverse(Lp, Li, Lx, D, Zx, Zd):
         Zd[j] = dj
 
 
+# ------------------------------------------------------------------------------------------------
+# supernodal kernels (docs/methods.md §2.14): the same L, D and selected inverse, stored exactly as
+# above (CSC aligned with Li), computed a supernode at a time with small dense kernels
+# ------------------------------------------------------------------------------------------------
+
+#: Floating-point licence of the dense loops: sums may be reassociated (so they vectorise) and
+#: multiply-adds fused; no assumption about NaN or infinity (the positivity checks stay exact).
+_SUMS = {"reassoc", "contract"}
+
+
+def supernodes(parent: np.ndarray, Lp: np.ndarray) -> np.ndarray:
+    """Start column of each fundamental-type supernode, then n: column j+1 joins j's supernode when
+    j+1 is j's parent and column j's row pattern is j+1 followed by column j+1's pattern (equal
+    counts suffice, as the pattern of a column minus its parent lies in the parent's pattern)."""
+    n = len(Lp) - 1
+    if n == 0:
+        return np.zeros(1, dtype=np.int64)
+    cnt = np.diff(np.asarray(Lp, dtype=np.int64))
+    join = (np.asarray(parent[:-1]) == np.arange(1, n)) & (cnt[:-1] == cnt[1:] + 1)
+    return np.concatenate([[0], np.flatnonzero(~join) + 1, [n]]).astype(np.int64)
+
+
+@numba.njit(cache=True)
+def _column_supernode(snode, n):
+    col_sn = np.empty(n, dtype=np.int64)
+    for J in range(len(snode) - 1):
+        for j in range(snode[J], snode[J + 1]):
+            col_sn[j] = J
+    return col_sn
+
+
+@numba.njit(cache=True)
+def _panel_sizes(snode, Lp):
+    """(max s*(s+m), max m*m) over supernodes (s columns, m rows below)."""
+    big = 0
+    bigr = 0
+    for J in range(len(snode) - 1):
+        c0, c1 = snode[J], snode[J + 1]
+        s = c1 - c0
+        m = Lp[c0 + 1] - Lp[c0] - (s - 1)
+        if s * (s + m) > big:
+            big = s * (s + m)
+        if m * m > bigr:
+            bigr = m * m
+    return big, bigr
+
+
+@numba.njit(cache=True, fastmath=_SUMS)
+def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
+    """``C = L D L'`` a supernode at a time (left-looking): ``C`` here is the *lower* triangle
+    (diagonal included) in CSC, ``Lp``/``Li`` its symbolic factor and ``snode`` from
+    :func:`supernodes`. Fills ``Lx`` and ``D`` exactly as :func:`ldl_numeric`; returns n, or the first
+    k with ``d_k <= 0``.
+
+    A supernode J (columns c0..c1-1, rows R below) is a dense panel P (column a, local row r: the
+    s columns' own rows first, then R). Each earlier supernode K whose rows reach into J subtracts
+    ``L_{rows,K} D_K L_{J,K}'`` (found through linked lists keyed by the supernode of K's next row),
+    then the panel is factorised densely.
+    """
+    n = len(D)
+    n_s = len(snode) - 1
+    col_sn = _column_supernode(snode, n)
+    big, _ = _panel_sizes(snode, Lp)
+    buf = np.zeros(max(big, 1))
+    relmap = np.empty(n, dtype=np.int64)
+    head = np.full(n_s, -1, dtype=np.int64)
+    nxt = np.full(n_s, -1, dtype=np.int64)
+    ptr = np.zeros(n_s, dtype=np.int64)
+    tmp = np.empty(n)
+    for J in range(n_s):
+        c0, c1 = snode[J], snode[J + 1]
+        s = c1 - c0
+        rbase = Lp[c0] + s - 1          # rows below the supernode, in column c0
+        m = Lp[c0 + 1] - rbase
+        h = s + m
+        for a in range(s):
+            relmap[c0 + a] = a
+        for b in range(m):
+            relmap[Li[rbase + b]] = s + b
+        P = buf[: s * h].reshape((s, h))
+        P[:, :] = 0.0
+        for a in range(s):
+            j = c0 + a
+            for p in range(Cp[j], Cp[j + 1]):
+                P[a, relmap[Ci[p]]] += Cx[p]
+        # updates from the supernodes linked to J
+        K = head[J]
+        while K != -1:
+            nextK = nxt[K]
+            k0, k1 = snode[K], snode[K + 1]
+            sK = k1 - k0
+            kb = Lp[k0] + sK - 1
+            mK = Lp[k0 + 1] - kb
+            q = ptr[K]
+            q2 = q
+            while q2 < mK and Li[kb + q2] < c1:
+                q2 += 1
+            rem = mK - q
+            for cc in range(q2 - q):
+                col = Li[kb + q + cc] - c0
+                for r in range(cc, rem):
+                    tmp[r] = 0.0
+                for c in range(sK):
+                    off = Lp[k0 + c] + (sK - 1 - c) + q
+                    w = Lx[off + cc] * D[k0 + c]
+                    if w != 0.0:
+                        for r in range(cc, rem):
+                            tmp[r] += Lx[off + r] * w
+                for r in range(cc, rem):
+                    P[col, relmap[Li[kb + q + r]]] -= tmp[r]
+            ptr[K] = q2
+            if q2 < mK:
+                Jn = col_sn[Li[kb + q2]]
+                nxt[K] = head[Jn]
+                head[Jn] = K
+            K = nextK
+        # dense LDL' of the panel
+        for a in range(s):
+            d = P[a, a]
+            if not d > 0.0:
+                return c0 + a
+            D[c0 + a] = d
+            for r in range(a + 1, h):
+                P[a, r] /= d
+            for c in range(a + 1, s):
+                f = P[a, c] * d
+                for r in range(c, h):
+                    P[c, r] -= P[a, r] * f
+        for a in range(s):
+            off = Lp[c0 + a] - a - 1
+            for r in range(a + 1, h):
+                Lx[off + r] = P[a, r]
+        if m > 0:
+            ptr[J] = 0
+            Jn = col_sn[Li[rbase]]
+            nxt[J] = head[Jn]
+            head[Jn] = J
+    return n
+
+
+@numba.njit(cache=True, fastmath=_SUMS)
+def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
+    """:func:`selected_inverse` a supernode at a time, from the last to the first.
+
+    For supernode J (columns c0..c1-1, rows R below, m of them) the entries ``Z_RR`` (all on L's
+    pattern: R is a clique) are gathered from the supernodes that own R's columns, ``Y = Z_RR L_RJ``
+    is one dense product, and Takahashi's equations for the columns of J, last first, need only Y,
+    the columns of J already done and ``L``'s own panel.
+    """
+    n = len(D)
+    n_s = len(snode) - 1
+    col_sn = _column_supernode(snode, n)
+    big, bigr = _panel_sizes(snode, Lp)
+    zbuf = np.zeros(max(big, 1))
+    rbuf = np.zeros(max(bigr, 1))
+    maxs = 1
+    maxm = 1
+    for J in range(n_s):
+        s = snode[J + 1] - snode[J]
+        maxs = max(maxs, s)
+        maxm = max(maxm, Lp[snode[J] + 1] - Lp[snode[J]] - (s - 1))
+    ybuf = np.zeros(maxs * maxm)
+    posf = np.empty(maxm, dtype=np.int64)
+    for J in range(n_s - 1, -1, -1):
+        c0, c1 = snode[J], snode[J + 1]
+        s = c1 - c0
+        rbase = Lp[c0] + s - 1
+        m = Lp[c0 + 1] - rbase
+        h = s + m
+        Zrr = rbuf[: m * m].reshape((m, m))
+        b = 0
+        while b < m:
+            x = Li[rbase + b]
+            K = col_sn[x]
+            k0, k1 = snode[K], snode[K + 1]
+            e = b + 1
+            while e < m and Li[rbase + e] < k1:
+                e += 1
+            # positions of R[b+1:] in the pattern of K's first column
+            qq = Lp[k0] + (x - k0)
+            for bb in range(b + 1, m):
+                want = Li[rbase + bb]
+                while Li[qq] != want:
+                    qq += 1
+                posf[bb] = qq - Lp[k0]
+            for a in range(b, e):
+                xa = Li[rbase + a]
+                Zrr[a, a] = Zd[xa]
+                shift = Lp[xa] - (xa - k0)
+                for bb in range(a + 1, m):
+                    v = Zx[shift + posf[bb]]
+                    Zrr[a, bb] = v
+                    Zrr[bb, a] = v
+            b = e
+        # Yt[a, :] = Z_RR L_R,a
+        Yt = ybuf[: s * m].reshape((s, m))
+        for a in range(s):
+            lo = rbase + (Lp[c0 + a] - Lp[c0]) - a
+            for rr in range(m):
+                acc = 0.0
+                for q in range(m):
+                    acc += Zrr[rr, q] * Lx[lo + q]
+                Yt[a, rr] = acc
+        Zt = zbuf[: s * h].reshape((s, h))
+        for a in range(s - 1, -1, -1):
+            j = c0 + a
+            off = Lp[j] - a - 1          # L[r, a] = Lx[off + r], r > a
+            for rr in range(m):
+                Zt[a, s + rr] = -Yt[a, rr]
+            for c in range(a + 1, s):
+                lca = Lx[off + c]
+                for rr in range(m):
+                    Zt[a, s + rr] -= Zt[c, s + rr] * lca
+            # rows of J: row bq of Zt holds Z[bq, c] for every c > a (kept symmetric below)
+            for bq in range(a + 1, s):
+                acc = 0.0
+                for r in range(a + 1, h):
+                    acc += Zt[bq, r] * Lx[off + r]
+                Zt[a, bq] = -acc
+                Zt[bq, a] = -acc
+            dj = 1.0 / D[j]
+            for r in range(a + 1, h):
+                dj -= Lx[off + r] * Zt[a, r]
+            Zt[a, a] = dj
+            Zd[j] = dj
+            for r in range(a + 1, h):
+                Zx[off + r] = Zt[a, r]
+
+
+def transpose_pattern(Cp: np.ndarray, Ci: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The transpose of the CSC pattern (Cp, Ci) of a square matrix, rows sorted, as (Tp, Ti, take):
+    value q of the transpose is value ``take[q]`` of the original. For a symmetric matrix this turns
+    the upper triangle's CSC into the lower triangle's and back."""
+    n = len(Cp) - 1
+    Ci = np.asarray(Ci, dtype=np.int64)
+    cols = np.repeat(np.arange(n, dtype=np.int64), np.diff(Cp))
+    order = np.lexsort((cols, Ci))
+    Tp = np.searchsorted(Ci[order], np.arange(n + 1)).astype(np.int64)
+    return Tp, cols[order], order.astype(np.int64)
+
+
 class Factor:
-    """Symbolic analysis of a fixed symmetric pattern with numeric factorisation on demand.
+    """Symbolic analysis of a fixed symmetric pattern with numeric factorisation on demand
+    (supernodal kernels; the scalar ones above compute the same numbers).
 
     Parameters
     ----------
@@ -239,6 +481,8 @@ class Factor:
         self.Ci = np.asarray(Ci, dtype=np.int64)
         self.n = len(self.Cp) - 1
         self.parent, self.Lp, self.Li = symbolic(self.Cp, self.Ci)
+        self.snode = supernodes(self.parent, self.Lp)
+        self.lower_p, self.lower_i, self.lower_take = transpose_pattern(self.Cp, self.Ci)
         self.Lx = np.empty(len(self.Li))
         self.D = np.empty(self.n)
 
@@ -248,9 +492,11 @@ class Factor:
         return int(len(self.Li) + self.n)
 
     def factor(self, Cx: np.ndarray) -> bool:
-        """Numeric factorisation for the values ``Cx``; False if the matrix is not positive definite."""
-        return ldl_numeric(self.Cp, self.Ci, np.asarray(Cx, dtype=np.float64), self.parent, self.Lp, self.Li,
-                           self.Lx, self.D) == self.n
+        """Numeric factorisation for the values ``Cx`` (aligned with ``Ci``); False if the matrix is
+        not positive definite."""
+        lower = np.asarray(Cx, dtype=np.float64)[self.lower_take]
+        return ldl_supernodal(self.lower_p, self.lower_i, lower, self.snode, self.Lp, self.Li, self.Lx,
+                              self.D) == self.n
 
     def solve(self, b: np.ndarray) -> np.ndarray:
         x = np.array(b, dtype=np.float64)
@@ -267,10 +513,12 @@ class Factor:
         """(Zx, Zd): the inverse on L's strictly lower pattern (aligned with ``Li``) and its diagonal."""
         Zx = np.empty(len(self.Li))
         Zd = np.empty(self.n)
-        selected_inverse(self.Lp, self.Li, self.Lx, self.D, Zx, Zd)
+        selected_inverse_supernodal(self.snode, self.Lp, self.Li, self.Lx, self.D, Zx, Zd)
         return Zx, Zd
 
     def lower_matrix(self, Zx: np.ndarray, Zd: np.ndarray) -> sp.csc_matrix:
         """Values aligned with L's pattern as a lower-triangular sparse matrix (diagonal ``Zd``)."""
         cols = np.repeat(np.arange(self.n), np.diff(self.Lp))
         return (sp.csc_matrix((Zx, (self.Li, cols)), shape=(self.n, self.n)) + sp.diags(Zd)).tocsc()
+
+
