@@ -520,5 +520,3 @@ class Factor:
         """Values aligned with L's pattern as a lower-triangular sparse matrix (diagonal ``Zd``)."""
         cols = np.repeat(np.arange(self.n), np.diff(self.Lp))
         return (sp.csc_matrix((Zx, (self.Li, cols)), shape=(self.n, self.n)) + sp.diags(Zd)).tocsc()
-
-
