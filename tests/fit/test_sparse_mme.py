@@ -141,6 +141,38 @@ def test_supernodal_factor_equals_scalar_and_dense_on_block_matrices(n_blocks, t
     np.testing.assert_allclose(Zd2, np.diag(inv), rtol=1e-10, atol=0)
 
 
+
+def test_supernodal_kernels_on_wide_supernodes_with_rows_below():
+    # A dense group of 130 unknowns coupled to 30 later ones, after 60 sparse ones (natural order),
+    # and the first of those 30 coupled to 20 more (which ends the group's supernode there):
+    # a supernode wider than the selected inverse's chunk with rows below it, so every path of the
+    # supernodal kernels runs; compared with the scalar kernels and numpy [C].
+    rng = np.random.default_rng(11)
+    n = 240
+    M = np.zeros((n, n))
+    M[60:190, 60:190] = rng.normal(size=(130, 130))
+    M[60:190, 190:220] = rng.normal(size=(130, 30)) * (rng.random((130, 30)) < 0.5)
+    M[190:220, 190:220] = rng.normal(size=(30, 30))
+    M[190, 220:] = rng.normal(size=20)
+    sparse = sp.random(60, n, density=0.03, random_state=12).toarray()
+    M[:60] += sparse
+    M = np.triu(M) + np.triu(M, 1).T
+    M += np.diag(np.abs(M).sum(axis=1) + 0.1)
+    S = sp.csc_matrix(M)
+    f = check_factor(S)
+    widths = np.diff(f.snode)
+    below = np.array([f.Lp[c + 1] - f.Lp[c] - (w - 1) for c, w in zip(f.snode[:-1], widths)])
+    # wide with rows below, and big enough that its update of the next supernode and its Z_RR L_RJ
+    # are BLAS products
+    assert np.any((widths > sf._CHUNK) & (below > 0) & (widths * below ** 2 >= sf._DENSE_PRODUCT))
+    Lx, D, Zx, Zd = scalar_factor(S)
+    np.testing.assert_allclose(f.D, D, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(f.Lx, Lx, rtol=0, atol=1e-10 * np.abs(Lx).max())
+    Zx2, Zd2 = f.selected_inverse()
+    np.testing.assert_allclose(Zd2, Zd, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(Zx2, Zx, rtol=0, atol=1e-10 * np.abs(Zd).max())
+
+
 def test_supernode_columns_share_their_pattern():
     # Inside a supernode, column j's rows are j+1 followed by column j+1's rows [C: definition].
     M = random_block_spd(80, 3, 0.04, 6)

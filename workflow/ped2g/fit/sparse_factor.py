@@ -233,6 +233,10 @@ def selected_inverse(Lp, Li, Lx, D, Zx, Zd):
 #: Floating-point licence of the dense loops: sums may be reassociated (so they vectorise) and
 #: multiply-adds fused; no assumption about NaN or infinity (the positivity checks stay exact).
 _SUMS = {"reassoc", "contract"}
+#: Columns of a supernode handled together (factorisation and selected inverse), and the size
+#: (product of the three dimensions) above which a product of two panels goes to BLAS.
+_CHUNK = 48
+_DENSE_PRODUCT = 1 << 16
 
 
 def supernodes(parent: np.ndarray, Lp: np.ndarray) -> np.ndarray:
@@ -323,36 +327,73 @@ def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
             while q2 < mK and Li[kb + q2] < c1:
                 q2 += 1
             rem = mK - q
-            for cc in range(q2 - q):
-                col = Li[kb + q + cc] - c0
-                for r in range(cc, rem):
-                    tmp[r] = 0.0
+            nj = q2 - q
+            if sK * nj * rem >= _DENSE_PRODUCT:
+                # one BLAS product: U = (L_JK D_K) L_rows,K'
+                Bt = np.empty((sK, rem))
+                BD = np.empty((nj, sK))
                 for c in range(sK):
                     off = Lp[k0 + c] + (sK - 1 - c) + q
-                    w = Lx[off + cc] * D[k0 + c]
-                    if w != 0.0:
-                        for r in range(cc, rem):
-                            tmp[r] += Lx[off + r] * w
-                for r in range(cc, rem):
-                    P[col, relmap[Li[kb + q + r]]] -= tmp[r]
+                    for r in range(rem):
+                        Bt[c, r] = Lx[off + r]
+                    for cc in range(nj):
+                        BD[cc, c] = Lx[off + cc] * D[k0 + c]
+                U = np.dot(BD, Bt)
+                for cc in range(nj):
+                    col = Li[kb + q + cc] - c0
+                    for r in range(cc, rem):
+                        P[col, relmap[Li[kb + q + r]]] -= U[cc, r]
+            else:
+                for cc in range(nj):
+                    col = Li[kb + q + cc] - c0
+                    for r in range(cc, rem):
+                        tmp[r] = 0.0
+                    for c in range(sK):
+                        off = Lp[k0 + c] + (sK - 1 - c) + q
+                        w = Lx[off + cc] * D[k0 + c]
+                        if w != 0.0:
+                            for r in range(cc, rem):
+                                tmp[r] += Lx[off + r] * w
+                    for r in range(cc, rem):
+                        P[col, relmap[Li[kb + q + r]]] -= tmp[r]
             ptr[K] = q2
             if q2 < mK:
                 Jn = col_sn[Li[kb + q2]]
                 nxt[K] = head[Jn]
                 head[Jn] = K
             K = nextK
-        # dense LDL' of the panel
-        for a in range(s):
-            d = P[a, a]
-            if not d > 0.0:
-                return c0 + a
-            D[c0 + a] = d
-            for r in range(a + 1, h):
-                P[a, r] /= d
-            for c in range(a + 1, s):
-                f = P[a, c] * d
-                for r in range(c, h):
-                    P[c, r] -= P[a, r] * f
+        # dense LDL' of the panel, in chunks of columns: inside a chunk column by column, then the
+        # chunk's update of the panel's later columns as one BLAS product
+        a1 = 0
+        while a1 < s:
+            a0 = a1
+            a1 = min(a0 + _CHUNK, s)
+            for a in range(a0, a1):
+                d = P[a, a]
+                if not d > 0.0:
+                    return c0 + a
+                D[c0 + a] = d
+                for r in range(a + 1, h):
+                    P[a, r] /= d
+                for c in range(a + 1, a1):
+                    f = P[a, c] * d
+                    for r in range(c, h):
+                        P[c, r] -= P[a, r] * f
+            nT = s - a1
+            if nT > 0:
+                w = a1 - a0
+                B = np.empty((w, h - a1))
+                BD = np.empty((nT, w))
+                for a in range(w):
+                    da = D[c0 + a0 + a]
+                    for r in range(h - a1):
+                        B[a, r] = P[a0 + a, a1 + r]
+                    for c in range(nT):
+                        BD[c, a] = B[a, c] * da
+                U = np.dot(BD, B)
+                for c in range(nT):
+                    for r in range(c, h - a1):
+                        P[a1 + c, a1 + r] -= U[c, r]
         for a in range(s):
             off = Lp[c0 + a] - a - 1
             for r in range(a + 1, h):
@@ -421,37 +462,79 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
             b = e
         # Yt[a, :] = Z_RR L_R,a
         Yt = ybuf[: s * m].reshape((s, m))
-        for a in range(s):
-            lo = rbase + (Lp[c0 + a] - Lp[c0]) - a
-            for rr in range(m):
-                acc = 0.0
+        if s * m * m >= _DENSE_PRODUCT:
+            LR = np.empty((s, m))
+            for a in range(s):
+                lo = rbase + (Lp[c0 + a] - Lp[c0]) - a
                 for q in range(m):
-                    acc += Zrr[rr, q] * Lx[lo + q]
-                Yt[a, rr] = acc
-        Zt = zbuf[: s * h].reshape((s, h))
-        for a in range(s - 1, -1, -1):
-            j = c0 + a
-            off = Lp[j] - a - 1          # L[r, a] = Lx[off + r], r > a
-            for rr in range(m):
-                Zt[a, s + rr] = -Yt[a, rr]
-            for c in range(a + 1, s):
-                lca = Lx[off + c]
+                    LR[a, q] = Lx[lo + q]
+            Yt[:, :] = np.dot(LR, Zrr)
+        else:
+            for a in range(s):
+                lo = rbase + (Lp[c0 + a] - Lp[c0]) - a
                 for rr in range(m):
-                    Zt[a, s + rr] -= Zt[c, s + rr] * lca
-            # rows of J: row bq of Zt holds Z[bq, c] for every c > a (kept symmetric below)
-            for bq in range(a + 1, s):
-                acc = 0.0
+                    acc = 0.0
+                    for q in range(m):
+                        acc += Zrr[rr, q] * Lx[lo + q]
+                    Yt[a, rr] = acc
+        # Zt[a, r] = Z[r, a] for r > a (J's own rows kept symmetric: Zt[r, a] too); columns of J
+        # in chunks of _CHUNK from the last, the part of each sum over columns beyond the chunk
+        # as one dense product
+        Zt = zbuf[: s * h].reshape((s, h))
+        a1 = s
+        while a1 > 0:
+            a0 = max(a1 - _CHUNK, 0)
+            w = a1 - a0
+            nJ = s - a1
+            T = np.zeros((w, h - a1))
+            for a in range(w):
+                for rr in range(m):
+                    T[a, nJ + rr] = Yt[a0 + a, rr]
+            if nJ > 0:
+                Lc = np.empty((w, nJ))
+                LcR = np.empty((w, m))
+                for a in range(w):
+                    off = Lp[c0 + a0 + a] - (a0 + a) - 1
+                    for c in range(nJ):
+                        Lc[a, c] = Lx[off + a1 + c]
+                    for rr in range(m):
+                        LcR[a, rr] = Lx[off + s + rr]
+                Zb = np.empty((nJ, h - a1))
+                ZR = np.empty((m, nJ))
+                for c in range(nJ):
+                    for r in range(h - a1):
+                        Zb[c, r] = Zt[a1 + c, a1 + r]
+                    for rr in range(m):
+                        ZR[rr, c] = Zt[a1 + c, s + rr]
+                T += np.dot(Lc, Zb)
+                if m > 0:
+                    T[:, :nJ] += np.dot(LcR, ZR)
+            for a in range(a1 - 1, a0 - 1, -1):
+                j = c0 + a
+                off = Lp[j] - a - 1          # L[r, a] = Lx[off + r], r > a
+                for r in range(a1, h):
+                    Zt[a, r] = -T[a - a0, r - a1]
+                for c in range(a + 1, a1):
+                    lca = Lx[off + c]
+                    for r in range(a1, h):
+                        Zt[a, r] -= Zt[c, r] * lca
+                for r in range(a1, s):
+                    Zt[r, a] = Zt[a, r]
+                # rows of the chunk: row bq of Zt holds Z[bq, c] for every c > a
+                for bq in range(a + 1, a1):
+                    acc = 0.0
+                    for r in range(a + 1, h):
+                        acc += Zt[bq, r] * Lx[off + r]
+                    Zt[a, bq] = -acc
+                    Zt[bq, a] = -acc
+                dj = 1.0 / D[j]
                 for r in range(a + 1, h):
-                    acc += Zt[bq, r] * Lx[off + r]
-                Zt[a, bq] = -acc
-                Zt[bq, a] = -acc
-            dj = 1.0 / D[j]
-            for r in range(a + 1, h):
-                dj -= Lx[off + r] * Zt[a, r]
-            Zt[a, a] = dj
-            Zd[j] = dj
-            for r in range(a + 1, h):
-                Zx[off + r] = Zt[a, r]
+                    dj -= Lx[off + r] * Zt[a, r]
+                Zt[a, a] = dj
+                Zd[j] = dj
+                for r in range(a + 1, h):
+                    Zx[off + r] = Zt[a, r]
+            a1 = a0
 
 
 def transpose_pattern(Cp: np.ndarray, Ci: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
