@@ -173,6 +173,64 @@ def test_supernodal_kernels_on_wide_supernodes_with_rows_below():
     np.testing.assert_allclose(Zx2, Zx, rtol=0, atol=1e-10 * np.abs(Zd).max())
 
 
+
+def test_postorder_visits_children_before_parents():
+    # A postorder of a forest: a permutation in which every node comes after all its descendants,
+    # each subtree on consecutive positions [C: definition].
+    rng = np.random.default_rng(13)
+    n = 300
+    parent = np.array([rng.integers(j + 1, n) if j < n - 1 and rng.random() < 0.9 else -1 for j in range(n)])
+    order = sf.postorder(parent)
+    assert sorted(order.tolist()) == list(range(n))
+    where = np.empty(n, int)
+    where[order] = np.arange(n)
+    size = np.ones(n, int)
+    for j in range(n):                       # parents have larger labels, so this accumulates subtrees
+        if parent[j] >= 0:
+            size[parent[j]] += size[j]
+    for j in range(n):
+        if parent[j] >= 0:
+            assert where[j] < where[parent[j]]
+        # the subtree of j occupies the size[j] positions ending at j
+        sub = order[where[j] - size[j] + 1: where[j] + 1]
+        for v in sub:
+            u = v
+            while u != j and u != -1:
+                u = parent[u]
+            assert u == j
+
+
+def test_amalgamated_pattern_gives_the_same_factor_and_inverse():
+    # Relaxed supernodes store some zeros: L, D and Z on the enlarged pattern equal the scalar
+    # kernels' on the exact pattern, and are 0 (L) where the pattern grew; Z's new entries equal
+    # numpy's dense inverse there [C].
+    M = random_block_spd(120, 4, 0.06, 5)
+    f = sf.Factor(*sf.upper_csc(M)[:2])
+    snode, Lp, Li = sf.amalgamate(f.snode, f.Lp, f.Li, f.parent, 0.2, 64, 0.6)
+    assert len(snode) < len(f.snode) and len(Li) > len(f.Li)
+    Cp, Ci, Cx = sf.upper_csc(M)
+    low_p, low_i, take = sf.transpose_pattern(Cp, Ci)
+    n = M.shape[0]
+    Lx, D = np.empty(len(Li)), np.empty(n)
+    assert sf.ldl_supernodal(low_p, low_i, Cx[take], snode, Lp, Li, Lx, D) == n
+    Zx, Zd = np.empty(len(Li)), np.empty(n)
+    sf.selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd)
+    Lx0, D0, Zx0, Zd0 = scalar_factor(M)
+    cols = np.repeat(np.arange(n), np.diff(Lp))
+    key = cols * n + Li
+    key0 = np.repeat(np.arange(n), np.diff(f.Lp)) * n + f.Li
+    at = np.searchsorted(key, key0)
+    np.testing.assert_array_equal(key[at], key0)
+    grown = np.ones(len(Li), bool)
+    grown[at] = False
+    np.testing.assert_allclose(D, D0, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(Lx[at], Lx0, rtol=0, atol=1e-10 * np.abs(Lx0).max())
+    assert grown.any() and np.abs(Lx[grown]).max() <= 1e-12 * np.abs(Lx0).max()
+    np.testing.assert_allclose(Zx[at], Zx0, rtol=0, atol=1e-10 * np.abs(Zd0).max())
+    inv = np.linalg.inv(M.toarray())
+    np.testing.assert_allclose(Zx[grown], inv[Li[grown], cols[grown]], rtol=0, atol=1e-10 * np.abs(inv).max())
+
+
 def test_supernode_columns_share_their_pattern():
     # Inside a supernode, column j's rows are j+1 followed by column j+1's rows [C: definition].
     M = random_block_spd(80, 3, 0.04, 6)
@@ -297,7 +355,18 @@ def test_mme_factor_equals_dense_on_a_real_coefficient_matrix():
     s = small_study(3)
     C = sm.coefficient_matrix(s["design"], s["G"], s["R"], s["covs"])
     f = check_factor(C)
-    assert f.nnz == s["design"].factor_nnz
+    d = s["design"]
+    # the design stores the exact fill of its ordering, enlarged by relaxed supernodes: its pattern
+    # is the amalgamation of the exact one and contains it [C: elementary]
+    snode, Lp, Li = sf.amalgamate(f.snode, f.Lp, f.Li, f.parent)
+    np.testing.assert_array_equal(d.snode, snode)
+    np.testing.assert_array_equal(d.Lp, Lp)
+    np.testing.assert_array_equal(d.Li, Li)
+    n = f.n
+    exact = set((np.repeat(np.arange(n), np.diff(f.Lp)) * n + f.Li).tolist())
+    stored = set((np.repeat(np.arange(n), np.diff(d.Lp)) * n + d.Li).tolist())
+    assert exact <= stored and len(stored) >= len(exact)
+    assert f.nnz <= d.factor_nnz
 
 
 @pytest.mark.parametrize("t", [2, 3])

@@ -603,3 +603,108 @@ class Factor:
         """Values aligned with L's pattern as a lower-triangular sparse matrix (diagonal ``Zd``)."""
         cols = np.repeat(np.arange(self.n), np.diff(self.Lp))
         return (sp.csc_matrix((Zx, (self.Li, cols)), shape=(self.n, self.n)) + sp.diags(Zd)).tocsc()
+
+
+@numba.njit(cache=True)
+def postorder(parent):
+    """A postorder of the forest ``parent`` (-1 at roots): ``order[k]`` is the k-th node visited,
+    children (in increasing order) before their parent. Renumbering the unknowns this way leaves
+    the fill unchanged and puts every subtree, hence every chain, on consecutive columns."""
+    n = len(parent)
+    head = np.full(n, -1, dtype=np.int64)
+    nxt = np.full(n, -1, dtype=np.int64)
+    for j in range(n - 1, -1, -1):
+        p = parent[j]
+        if p >= 0:
+            nxt[j] = head[p]
+            head[p] = j
+    order = np.empty(n, dtype=np.int64)
+    stack = np.empty(n, dtype=np.int64)
+    k = 0
+    for root in range(n):
+        if parent[root] != -1:
+            continue
+        top = 0
+        stack[0] = root
+        while top >= 0:
+            v = stack[top]
+            c = head[v]
+            if c == -1:
+                order[k] = v
+                k += 1
+                top -= 1
+            else:
+                head[v] = nxt[c]
+                top += 1
+                stack[top] = c
+    return order
+
+
+@numba.njit(cache=True)
+def _amalgamate(snode, Lp, Li, parent, max_zero_fraction, small_width, small_zero_fraction):
+    n = len(Lp) - 1
+    n_s = len(snode) - 1
+    starts = np.empty(n_s + 1, dtype=np.int64)
+    last = np.empty(n_s, dtype=np.int64)     # original supernode whose rows below close each group
+    g = 0
+    starts[0] = 0
+    cur = 0
+    z = 0
+    for J in range(1, n_s + 1):
+        if J < n_s:
+            g0, g1 = snode[cur], snode[J]
+            p0, p1 = snode[J], snode[J + 1]
+            sG, sP = g1 - g0, p1 - p0
+            mG = Lp[g1] - Lp[g1 - 1]                     # rows below the group's last column
+            mP = Lp[p0 + 1] - Lp[p0] - (sP - 1)
+            if parent[g1 - 1] == p0:
+                extra = sG * (sP + mP - mG)
+                s = sG + sP
+                nnz = s * (s - 1) // 2 + s * mP
+                frac = (z + extra) / max(nnz, 1)
+                if frac <= max_zero_fraction or (s <= small_width and frac <= small_zero_fraction):
+                    z += extra
+                    continue
+        last[g] = J - 1
+        g += 1
+        starts[g] = snode[J] if J < n_s else n
+        cur = J
+        z = 0
+    starts = starts[: g + 1]
+    newLp = np.zeros(n + 1, dtype=np.int64)
+    for G in range(g):
+        c0, c1 = starts[G], starts[G + 1]
+        K = last[G]
+        k0 = snode[K]
+        m = Lp[k0 + 1] - Lp[k0] - (snode[K + 1] - k0 - 1)
+        for j in range(c0, c1):
+            newLp[j + 1] = newLp[j] + (c1 - 1 - j) + m
+    newLi = np.empty(newLp[n], dtype=np.int64)
+    for G in range(g):
+        c0, c1 = starts[G], starts[G + 1]
+        K = last[G]
+        k0 = snode[K]
+        rb = Lp[k0] + (snode[K + 1] - k0 - 1)
+        m = Lp[k0 + 1] - rb
+        for j in range(c0, c1):
+            q = newLp[j]
+            for r in range(j + 1, c1):
+                newLi[q] = r
+                q += 1
+            for b in range(m):
+                newLi[q] = Li[rb + b]
+                q += 1
+    return starts, newLp, newLi
+
+
+def amalgamate(snode: np.ndarray, Lp: np.ndarray, Li: np.ndarray, parent: np.ndarray,
+               max_zero_fraction: float = 0.05, small_width: int = 32, small_zero_fraction: float = 0.3):
+    """Relaxed supernodes: merge a supernode with the next one when the next starts at the parent
+    of its last column and the merged panel's stored zeros stay a small fraction of its entries
+    (``max_zero_fraction``, or ``small_zero_fraction`` for panels of at most ``small_width``
+    columns). Returns (snode, Lp, Li) of the enlarged pattern: it contains the original one, each
+    supernode's rows below it are those of its last merged part, so it is still closed under
+    elimination and the supernodal kernels give the same L, D and Z (zeros where the pattern grew)."""
+    return _amalgamate(np.asarray(snode, dtype=np.int64), np.asarray(Lp, dtype=np.int64),
+                       np.asarray(Li, dtype=np.int64), np.asarray(parent, dtype=np.int64),
+                       float(max_zero_fraction), int(small_width), float(small_zero_fraction))

@@ -149,6 +149,11 @@ def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
          (np.concatenate([Ainv.row, level_blocks, u_pair]), np.concatenate([Ainv.col, level_blocks, v_pair]))),
         shape=(n_b, n_b)).tocsc()
     perm_b = sf.fill_reducing_order(block_pattern)
+    # postorder of the block elimination tree (same fill; chains of blocks on consecutive columns)
+    Bu = sp.triu(block_pattern.tocsr()[perm_b][:, perm_b], format="csc")
+    Bu.sort_indices()
+    block_parent = sf.symbolic(Bu.indptr, Bu.indices)[0]
+    perm_b = perm_b[sf.postorder(block_parent)]
     perm = (perm_b[:, None] * t + np.arange(t)[None, :]).ravel()
     iperm = np.empty(n_u, dtype=np.int64)
     iperm[perm] = np.arange(n_u)
@@ -196,7 +201,7 @@ def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
 
     Up, Ui, _ = sf.transpose_pattern(Cp, Ci)
     parent, Lp, Li = sf.symbolic(Up, Ui)
-    snode = sf.supernodes(parent, Lp)
+    snode, Lp, Li = sf.amalgamate(sf.supernodes(parent, Lp), Lp, Li, parent)
     nnzL = len(Li)
     lkeys = np.repeat(np.arange(n_u, dtype=np.int64), np.diff(Lp)) * n_u + Li
     off = Ci != Cj
