@@ -5,16 +5,19 @@ Simulated design per size n: a pedigree of n animals in overlapping generations 
 then each animal's sire drawn from 2% of the animals of earlier generations and its dam from the
 rest, 5% of dams unknown), one record per non-founder plus a second record for 20% of them, 10% of
 trait cells missing; extra random effects: maternal (on the dam; -1 where unknown), permanent
-environment (on the animal, repeated records) and cohort (generation x 10 groups).
+environment (on the animal, repeated records) and cohort (generation x 10 groups). With
+``--max-records M`` a design with more than M records keeps a random M of them. ``peak MB`` is the
+process's peak resident memory so far (sizes run in the order given, so give them ascending).
 
 Usage (from the repository root)::
 
-    python benchmarks/sparse_likelihood.py --animals 1000 10000 100000 --traits 4
+    python benchmarks/sparse_likelihood.py --animals 1000 10000 100000 --traits 4 --max-records 50000
 """
 
 from __future__ import annotations
 
 import argparse
+import resource
 import sys
 import time
 from pathlib import Path
@@ -24,7 +27,7 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "workflow"))
 
 
-def simulated_design(n: int, t: int, seed: int = 1):
+def simulated_design(n: int, t: int, seed: int = 1, max_records: int | None = None):
     from ped2g.fit import sparse_mme
     from ped2g.pedigree.core import Pedigree
     from ped2g.pedigree.relationships import inbreeding
@@ -48,6 +51,8 @@ def simulated_design(n: int, t: int, seed: int = 1):
                    generation=gen, inbreeding=inbreeding(sire, dam))
     recorded = np.flatnonzero(gen > 0)
     rec = np.concatenate([recorded, recorded[rng.random(len(recorded)) < 0.2]])
+    if max_records is not None and len(rec) > max_records:
+        rec = np.sort(rng.choice(rec, max_records, replace=False))
     observed = rng.random((len(rec), t)) > 0.1
     observed[~observed.any(axis=1), 0] = True
     dams = np.unique(dam[dam >= 0])
@@ -69,13 +74,14 @@ def main(argv=None) -> int:
     parser.add_argument("--animals", type=int, nargs="+", default=[1000, 10000])
     parser.add_argument("--traits", type=int, default=4)
     parser.add_argument("--repeats", type=int, default=3)
+    parser.add_argument("--max-records", type=int, default=None)
     args = parser.parse_args(argv)
     t = args.traits
     rng = np.random.default_rng(0)
     print(f"{'animals':>8} {'records':>8} {'unknowns':>9} {'nnz(C)':>11} {'nnz(L)':>12} {'design s':>9} "
-          f"{'logL+grad s':>12}")
+          f"{'logL+grad s':>12} {'supernodes':>10} {'peak MB':>8}")
     for n in args.animals:
-        design, observed, build_s = simulated_design(n, t)
+        design, observed, build_s = simulated_design(n, t, max_records=args.max_records)
         G = 0.4 * np.eye(t) + 0.1
         R = 0.5 * np.eye(t) + 0.1
         covs = [0.1 * np.eye(t) + 0.02, 0.15 * np.eye(t) + 0.03, 0.05 * np.eye(t)]
@@ -89,7 +95,8 @@ def main(argv=None) -> int:
         assert np.isfinite(value)
         nnz_c = 2 * len(design.Ci) - design.n_unknowns
         print(f"{n:>8} {len(observed):>8} {design.n_unknowns:>9} {nnz_c:>11,} {design.factor_nnz:>12,} "
-              f"{build_s:>9.2f} {min(times):>12.3f}", flush=True)
+              f"{build_s:>9.2f} {min(times):>12.3f} {len(design.snode) - 1:>10,} "
+              f"{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:>8.0f}", flush=True)
     return 0
 
 

@@ -90,6 +90,190 @@ def test_not_positive_definite_is_reported():
     assert not sf.Factor(Cp, Ci).factor(Cx)
 
 
+
+def random_block_spd(n_blocks, t, density, seed):
+    """A symmetric positive definite matrix made of dense t x t blocks on a random block pattern
+    (diagonally dominant, so positive definite by Gershgorin's theorem [C]), unknowns of a block
+    kept together and the blocks in a minimum-degree order of the block graph (as the mixed-model
+    equations are laid out)."""
+    rng = np.random.default_rng(seed)
+    B = sp.random(n_blocks, n_blocks, density=density, random_state=seed)
+    B = ((B + B.T + sp.eye(n_blocks)) != 0).astype(float)
+    order = sf.fill_reducing_order(B)
+    B = B.tocsr()[order][:, order].tocoo()
+    vals = rng.normal(size=(B.nnz, t, t))
+    rows = (B.row[:, None, None] * t + np.arange(t)[None, :, None] + 0 * vals).ravel()
+    cols = (B.col[:, None, None] * t + np.arange(t)[None, None, :] + 0 * vals).ravel()
+    M = sp.csc_matrix((vals.ravel(), (rows.astype(int), cols.astype(int))), shape=(n_blocks * t,) * 2)
+    M = M + M.T
+    return (M + sp.diags(np.abs(M).sum(axis=1).A1 + 0.1)).tocsc()
+
+
+def scalar_factor(M):
+    """Scalar up-looking LDL' and scalar selected inverse of the (permuted) M."""
+    Cp, Ci, Cx = sf.upper_csc(M)
+    parent, Lp, Li = sf.symbolic(Cp, Ci)
+    Lx, D = np.empty(len(Li)), np.empty(len(Cp) - 1)
+    assert sf.ldl_numeric(Cp, Ci, Cx, parent, Lp, Li, Lx, D) == len(D)
+    Zx, Zd = np.empty(len(Li)), np.empty(len(D))
+    sf.selected_inverse(Lp, Li, Lx, D, Zx, Zd)
+    return Lx, D, Zx, Zd
+
+
+@pytest.mark.parametrize("n_blocks,t,density,seed", [(60, 4, 0.05, 1), (150, 3, 0.02, 2), (40, 1, 0.1, 3),
+                                                     (25, 4, 0.5, 4)])
+def test_supernodal_factor_equals_scalar_and_dense_on_block_matrices(n_blocks, t, density, seed):
+    # Supernodal kernels against the scalar ones (same L, D, Z on the same pattern) and both
+    # against numpy's dense inverse [C].
+    M = random_block_spd(n_blocks, t, density, seed)
+    f = check_factor(M)
+    widths = np.diff(f.snode)
+    assert widths.sum() == M.shape[0] and widths.min() >= 1
+    if t > 1:
+        assert widths.max() > t             # some supernodes span more than one block
+    Lx, D, Zx, Zd = scalar_factor(M)
+    np.testing.assert_allclose(f.D, D, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(f.Lx, Lx, rtol=0, atol=1e-10 * np.abs(Lx).max())
+    Zx2, Zd2 = f.selected_inverse()
+    np.testing.assert_allclose(Zd2, Zd, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(Zx2, Zx, rtol=0, atol=1e-10 * np.abs(Zd).max())
+    inv = np.linalg.inv(M.toarray())
+    np.testing.assert_allclose(Zd2, np.diag(inv), rtol=1e-10, atol=0)
+
+
+
+def test_supernodal_kernels_on_wide_supernodes_with_rows_below():
+    # A dense group of 130 unknowns coupled to 30 later ones, after 60 sparse ones (natural order),
+    # and the first of those 30 coupled to 20 more (which ends the group's supernode there):
+    # a supernode wider than the selected inverse's chunk with rows below it, so every path of the
+    # supernodal kernels runs; compared with the scalar kernels and numpy [C].
+    rng = np.random.default_rng(11)
+    n = 240
+    M = np.zeros((n, n))
+    M[60:190, 60:190] = rng.normal(size=(130, 130))
+    M[60:190, 190:220] = rng.normal(size=(130, 30)) * (rng.random((130, 30)) < 0.5)
+    M[190:220, 190:220] = rng.normal(size=(30, 30))
+    M[190, 220:] = rng.normal(size=20)
+    sparse = sp.random(60, n, density=0.03, random_state=12).toarray()
+    M[:60] += sparse
+    M = np.triu(M) + np.triu(M, 1).T
+    M += np.diag(np.abs(M).sum(axis=1) + 0.1)
+    S = sp.csc_matrix(M)
+    f = check_factor(S)
+    widths = np.diff(f.snode)
+    below = np.array([f.Lp[c + 1] - f.Lp[c] - (w - 1) for c, w in zip(f.snode[:-1], widths)])
+    # wide with rows below, and big enough that its update of the next supernode and its Z_RR L_RJ
+    # are BLAS products
+    assert np.any((widths > sf._CHUNK) & (below > 0) & (widths * below ** 2 >= sf._DENSE_PRODUCT))
+    Lx, D, Zx, Zd = scalar_factor(S)
+    np.testing.assert_allclose(f.D, D, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(f.Lx, Lx, rtol=0, atol=1e-10 * np.abs(Lx).max())
+    Zx2, Zd2 = f.selected_inverse()
+    np.testing.assert_allclose(Zd2, Zd, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(Zx2, Zx, rtol=0, atol=1e-10 * np.abs(Zd).max())
+
+
+
+def test_postorder_visits_children_before_parents():
+    # A postorder of a forest: a permutation in which every node comes after all its descendants,
+    # each subtree on consecutive positions [C: definition].
+    rng = np.random.default_rng(13)
+    n = 300
+    parent = np.array([rng.integers(j + 1, n) if j < n - 1 and rng.random() < 0.9 else -1 for j in range(n)])
+    order = sf.postorder(parent)
+    assert sorted(order.tolist()) == list(range(n))
+    where = np.empty(n, int)
+    where[order] = np.arange(n)
+    size = np.ones(n, int)
+    for j in range(n):                       # parents have larger labels, so this accumulates subtrees
+        if parent[j] >= 0:
+            size[parent[j]] += size[j]
+    for j in range(n):
+        if parent[j] >= 0:
+            assert where[j] < where[parent[j]]
+        # the subtree of j occupies the size[j] positions ending at j
+        sub = order[where[j] - size[j] + 1: where[j] + 1]
+        for v in sub:
+            u = v
+            while u != j and u != -1:
+                u = parent[u]
+            assert u == j
+
+
+def test_amalgamated_pattern_gives_the_same_factor_and_inverse():
+    # Relaxed supernodes store some zeros: L, D and Z on the enlarged pattern equal the scalar
+    # kernels' on the exact pattern, and are 0 (L) where the pattern grew; Z's new entries equal
+    # numpy's dense inverse there [C].
+    M = random_block_spd(120, 4, 0.06, 5)
+    f = sf.Factor(*sf.upper_csc(M)[:2])
+    snode, Lp, Li = sf.amalgamate(f.snode, f.Lp, f.Li, f.parent, 0.2, 64, 0.6)
+    assert len(snode) < len(f.snode) and len(Li) > len(f.Li)
+    Cp, Ci, Cx = sf.upper_csc(M)
+    low_p, low_i, take = sf.transpose_pattern(Cp, Ci)
+    n = M.shape[0]
+    Lx, D = np.empty(len(Li)), np.empty(n)
+    assert sf.ldl_supernodal(low_p, low_i, Cx[take], snode, Lp, Li, Lx, D) == n
+    Zx, Zd = np.empty(len(Li)), np.empty(n)
+    sf.selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd)
+    Lx0, D0, Zx0, Zd0 = scalar_factor(M)
+    cols = np.repeat(np.arange(n), np.diff(Lp))
+    key = cols * n + Li
+    key0 = np.repeat(np.arange(n), np.diff(f.Lp)) * n + f.Li
+    at = np.searchsorted(key, key0)
+    np.testing.assert_array_equal(key[at], key0)
+    grown = np.ones(len(Li), bool)
+    grown[at] = False
+    np.testing.assert_allclose(D, D0, rtol=1e-10, atol=0)
+    np.testing.assert_allclose(Lx[at], Lx0, rtol=0, atol=1e-10 * np.abs(Lx0).max())
+    assert grown.any() and np.abs(Lx[grown]).max() <= 1e-12 * np.abs(Lx0).max()
+    np.testing.assert_allclose(Zx[at], Zx0, rtol=0, atol=1e-10 * np.abs(Zd0).max())
+    inv = np.linalg.inv(M.toarray())
+    np.testing.assert_allclose(Zx[grown], inv[Li[grown], cols[grown]], rtol=0, atol=1e-10 * np.abs(inv).max())
+
+
+def test_supernode_columns_share_their_pattern():
+    # Inside a supernode, column j's rows are j+1 followed by column j+1's rows [C: definition].
+    M = random_block_spd(80, 3, 0.04, 6)
+    f = sf.Factor(*sf.upper_csc(M)[:2])
+    for J in range(len(f.snode) - 1):
+        for j in range(f.snode[J], f.snode[J + 1] - 1):
+            here = f.Li[f.Lp[j]:f.Lp[j + 1]].tolist()
+            assert here == [j + 1] + f.Li[f.Lp[j + 1]:f.Lp[j + 2]].tolist()
+
+
+def test_transpose_pattern_equals_scipy_transpose():
+    M = random_spd(70, 0.05, 8)
+    Cp, Ci, Cx = sf.upper_csc(M)
+    Tp, Ti, take = sf.transpose_pattern(Cp, Ci)
+    want = sp.triu(M).T.tocsc()            # scipy as reference [C]
+    want.sort_indices()
+    np.testing.assert_array_equal(Tp, want.indptr)
+    np.testing.assert_array_equal(Ti, want.indices)
+    np.testing.assert_array_equal(Cx[take], want.data)
+
+
+@pytest.mark.parametrize("bad", [0, 7, 29])
+def test_supernodal_factor_reports_the_first_non_positive_pivot(bad):
+    # A matrix that is positive definite up to column bad - 1 and not at bad: the supernodal
+    # kernel stops at the same column as the scalar one, and that column is bad [C: Sylvester's
+    # criterion on the leading minors].
+    M = random_block_spd(10, 3, 0.3, 9).toarray()
+    n = len(M)
+    Lc = np.linalg.cholesky(M[:bad, :bad]) if bad else np.zeros((0, 0))
+    x = np.linalg.solve(Lc, M[:bad, bad]) if bad else np.zeros(0)
+    M[bad, bad] = x @ x - 1.0              # Schur complement at bad is -1
+    S = sp.csc_matrix(M)
+    Cp, Ci, Cx = sf.upper_csc(S)
+    f = sf.Factor(Cp, Ci)
+    assert not f.factor(Cx)
+    parent, Lp, Li = sf.symbolic(Cp, Ci)
+    low_p, low_i, take = sf.transpose_pattern(Cp, Ci)
+    Lx, D = np.empty(len(Li)), np.empty(n)
+    got = sf.ldl_supernodal(low_p, low_i, Cx[take], f.snode, Lp, Li, Lx, D)
+    assert got == bad
+    assert sf.ldl_numeric(Cp, Ci, Cx, parent, Lp, Li, np.empty(len(Li)), np.empty(n)) == bad
+
+
 # ------------------------------------------------------------------------------------------------
 # a small study: maternal effect on the dam column, permanent environment on the id column,
 # repeated records, missing cells, founders' records without a known dam (level -1)
@@ -171,7 +355,18 @@ def test_mme_factor_equals_dense_on_a_real_coefficient_matrix():
     s = small_study(3)
     C = sm.coefficient_matrix(s["design"], s["G"], s["R"], s["covs"])
     f = check_factor(C)
-    assert f.nnz == s["design"].factor_nnz
+    d = s["design"]
+    # the design stores the exact fill of its ordering, enlarged by relaxed supernodes: its pattern
+    # is the amalgamation of the exact one and contains it [C: elementary]
+    snode, Lp, Li = sf.amalgamate(f.snode, f.Lp, f.Li, f.parent)
+    np.testing.assert_array_equal(d.snode, snode)
+    np.testing.assert_array_equal(d.Lp, Lp)
+    np.testing.assert_array_equal(d.Li, Li)
+    n = f.n
+    exact = set((np.repeat(np.arange(n), np.diff(f.Lp)) * n + f.Li).tolist())
+    stored = set((np.repeat(np.arange(n), np.diff(d.Lp)) * n + d.Li).tolist())
+    assert exact <= stored and len(stored) >= len(exact)
+    assert f.nnz <= d.factor_nnz
 
 
 @pytest.mark.parametrize("t", [2, 3])

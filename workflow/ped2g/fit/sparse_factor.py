@@ -225,8 +225,333 @@ def selected_inverse(Lp, Li, Lx, D, Zx, Zd):
         Zd[j] = dj
 
 
+# ------------------------------------------------------------------------------------------------
+# supernodal kernels (docs/methods.md §2.14): the same L, D and selected inverse, stored exactly as
+# above (CSC aligned with Li), computed a supernode at a time with small dense kernels
+# ------------------------------------------------------------------------------------------------
+
+#: Floating-point licence of the dense loops: sums may be reassociated (so they vectorise) and
+#: multiply-adds fused; no assumption about NaN or infinity (the positivity checks stay exact).
+_SUMS = {"reassoc", "contract"}
+#: Columns of a supernode handled together (factorisation and selected inverse), and the size
+#: (product of the three dimensions) above which a product of two panels goes to BLAS.
+_CHUNK = 48
+_DENSE_PRODUCT = 1 << 16
+
+
+def supernodes(parent: np.ndarray, Lp: np.ndarray) -> np.ndarray:
+    """Start column of each fundamental-type supernode, then n: column j+1 joins j's supernode when
+    j+1 is j's parent and column j's row pattern is j+1 followed by column j+1's pattern (equal
+    counts suffice, as the pattern of a column minus its parent lies in the parent's pattern)."""
+    n = len(Lp) - 1
+    if n == 0:
+        return np.zeros(1, dtype=np.int64)
+    cnt = np.diff(np.asarray(Lp, dtype=np.int64))
+    join = (np.asarray(parent[:-1]) == np.arange(1, n)) & (cnt[:-1] == cnt[1:] + 1)
+    return np.concatenate([[0], np.flatnonzero(~join) + 1, [n]]).astype(np.int64)
+
+
+@numba.njit(cache=True)
+def _column_supernode(snode, n):
+    col_sn = np.empty(n, dtype=np.int64)
+    for J in range(len(snode) - 1):
+        for j in range(snode[J], snode[J + 1]):
+            col_sn[j] = J
+    return col_sn
+
+
+@numba.njit(cache=True)
+def _panel_sizes(snode, Lp):
+    """(max s*(s+m), max m*m) over supernodes (s columns, m rows below)."""
+    big = 0
+    bigr = 0
+    for J in range(len(snode) - 1):
+        c0, c1 = snode[J], snode[J + 1]
+        s = c1 - c0
+        m = Lp[c0 + 1] - Lp[c0] - (s - 1)
+        if s * (s + m) > big:
+            big = s * (s + m)
+        if m * m > bigr:
+            bigr = m * m
+    return big, bigr
+
+
+@numba.njit(cache=True, fastmath=_SUMS)
+def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
+    """``C = L D L'`` a supernode at a time (left-looking): ``C`` here is the *lower* triangle
+    (diagonal included) in CSC, ``Lp``/``Li`` its symbolic factor and ``snode`` from
+    :func:`supernodes`. Fills ``Lx`` and ``D`` exactly as :func:`ldl_numeric`; returns n, or the first
+    k with ``d_k <= 0``.
+
+    A supernode J (columns c0..c1-1, rows R below) is a dense panel P (column a, local row r: the
+    s columns' own rows first, then R). Each earlier supernode K whose rows reach into J subtracts
+    ``L_{rows,K} D_K L_{J,K}'`` (found through linked lists keyed by the supernode of K's next row),
+    then the panel is factorised densely.
+    """
+    n = len(D)
+    n_s = len(snode) - 1
+    col_sn = _column_supernode(snode, n)
+    big, _ = _panel_sizes(snode, Lp)
+    buf = np.zeros(max(big, 1))
+    relmap = np.empty(n, dtype=np.int64)
+    head = np.full(n_s, -1, dtype=np.int64)
+    nxt = np.full(n_s, -1, dtype=np.int64)
+    ptr = np.zeros(n_s, dtype=np.int64)
+    tmp = np.empty(n)
+    for J in range(n_s):
+        c0, c1 = snode[J], snode[J + 1]
+        s = c1 - c0
+        rbase = Lp[c0] + s - 1          # rows below the supernode, in column c0
+        m = Lp[c0 + 1] - rbase
+        h = s + m
+        for a in range(s):
+            relmap[c0 + a] = a
+        for b in range(m):
+            relmap[Li[rbase + b]] = s + b
+        P = buf[: s * h].reshape((s, h))
+        P[:, :] = 0.0
+        for a in range(s):
+            j = c0 + a
+            for p in range(Cp[j], Cp[j + 1]):
+                P[a, relmap[Ci[p]]] += Cx[p]
+        # updates from the supernodes linked to J
+        K = head[J]
+        while K != -1:
+            nextK = nxt[K]
+            k0, k1 = snode[K], snode[K + 1]
+            sK = k1 - k0
+            kb = Lp[k0] + sK - 1
+            mK = Lp[k0 + 1] - kb
+            q = ptr[K]
+            q2 = q
+            while q2 < mK and Li[kb + q2] < c1:
+                q2 += 1
+            rem = mK - q
+            nj = q2 - q
+            if sK * nj * rem >= _DENSE_PRODUCT:
+                # one BLAS product: U = (L_JK D_K) L_rows,K'
+                Bt = np.empty((sK, rem))
+                BD = np.empty((nj, sK))
+                for c in range(sK):
+                    off = Lp[k0 + c] + (sK - 1 - c) + q
+                    for r in range(rem):
+                        Bt[c, r] = Lx[off + r]
+                    for cc in range(nj):
+                        BD[cc, c] = Lx[off + cc] * D[k0 + c]
+                U = np.dot(BD, Bt)
+                for cc in range(nj):
+                    col = Li[kb + q + cc] - c0
+                    for r in range(cc, rem):
+                        P[col, relmap[Li[kb + q + r]]] -= U[cc, r]
+            else:
+                for cc in range(nj):
+                    col = Li[kb + q + cc] - c0
+                    for r in range(cc, rem):
+                        tmp[r] = 0.0
+                    for c in range(sK):
+                        off = Lp[k0 + c] + (sK - 1 - c) + q
+                        w = Lx[off + cc] * D[k0 + c]
+                        if w != 0.0:
+                            for r in range(cc, rem):
+                                tmp[r] += Lx[off + r] * w
+                    for r in range(cc, rem):
+                        P[col, relmap[Li[kb + q + r]]] -= tmp[r]
+            ptr[K] = q2
+            if q2 < mK:
+                Jn = col_sn[Li[kb + q2]]
+                nxt[K] = head[Jn]
+                head[Jn] = K
+            K = nextK
+        # dense LDL' of the panel, in chunks of columns: inside a chunk column by column, then the
+        # chunk's update of the panel's later columns as one BLAS product
+        a1 = 0
+        while a1 < s:
+            a0 = a1
+            a1 = min(a0 + _CHUNK, s)
+            for a in range(a0, a1):
+                d = P[a, a]
+                if not d > 0.0:
+                    return c0 + a
+                D[c0 + a] = d
+                for r in range(a + 1, h):
+                    P[a, r] /= d
+                for c in range(a + 1, a1):
+                    f = P[a, c] * d
+                    for r in range(c, h):
+                        P[c, r] -= P[a, r] * f
+            nT = s - a1
+            if nT > 0:
+                w = a1 - a0
+                B = np.empty((w, h - a1))
+                BD = np.empty((nT, w))
+                for a in range(w):
+                    da = D[c0 + a0 + a]
+                    for r in range(h - a1):
+                        B[a, r] = P[a0 + a, a1 + r]
+                    for c in range(nT):
+                        BD[c, a] = B[a, c] * da
+                U = np.dot(BD, B)
+                for c in range(nT):
+                    for r in range(c, h - a1):
+                        P[a1 + c, a1 + r] -= U[c, r]
+        for a in range(s):
+            off = Lp[c0 + a] - a - 1
+            for r in range(a + 1, h):
+                Lx[off + r] = P[a, r]
+        if m > 0:
+            ptr[J] = 0
+            Jn = col_sn[Li[rbase]]
+            nxt[J] = head[Jn]
+            head[Jn] = J
+    return n
+
+
+@numba.njit(cache=True, fastmath=_SUMS)
+def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
+    """:func:`selected_inverse` a supernode at a time, from the last to the first.
+
+    For supernode J (columns c0..c1-1, rows R below, m of them) the entries ``Z_RR`` (all on L's
+    pattern: R is a clique) are gathered from the supernodes that own R's columns, ``Y = Z_RR L_RJ``
+    is one dense product, and Takahashi's equations for the columns of J, last first, need only Y,
+    the columns of J already done and ``L``'s own panel.
+    """
+    n = len(D)
+    n_s = len(snode) - 1
+    col_sn = _column_supernode(snode, n)
+    big, bigr = _panel_sizes(snode, Lp)
+    zbuf = np.zeros(max(big, 1))
+    rbuf = np.zeros(max(bigr, 1))
+    maxs = 1
+    maxm = 1
+    for J in range(n_s):
+        s = snode[J + 1] - snode[J]
+        maxs = max(maxs, s)
+        maxm = max(maxm, Lp[snode[J] + 1] - Lp[snode[J]] - (s - 1))
+    ybuf = np.zeros(maxs * maxm)
+    posf = np.empty(maxm, dtype=np.int64)
+    for J in range(n_s - 1, -1, -1):
+        c0, c1 = snode[J], snode[J + 1]
+        s = c1 - c0
+        rbase = Lp[c0] + s - 1
+        m = Lp[c0 + 1] - rbase
+        h = s + m
+        Zrr = rbuf[: m * m].reshape((m, m))
+        b = 0
+        while b < m:
+            x = Li[rbase + b]
+            K = col_sn[x]
+            k0, k1 = snode[K], snode[K + 1]
+            e = b + 1
+            while e < m and Li[rbase + e] < k1:
+                e += 1
+            # positions of R[b+1:] in the pattern of K's first column
+            qq = Lp[k0] + (x - k0)
+            for bb in range(b + 1, m):
+                want = Li[rbase + bb]
+                while Li[qq] != want:
+                    qq += 1
+                posf[bb] = qq - Lp[k0]
+            for a in range(b, e):
+                xa = Li[rbase + a]
+                Zrr[a, a] = Zd[xa]
+                shift = Lp[xa] - (xa - k0)
+                for bb in range(a + 1, m):
+                    v = Zx[shift + posf[bb]]
+                    Zrr[a, bb] = v
+                    Zrr[bb, a] = v
+            b = e
+        # Yt[a, :] = Z_RR L_R,a
+        Yt = ybuf[: s * m].reshape((s, m))
+        if s * m * m >= _DENSE_PRODUCT:
+            LR = np.empty((s, m))
+            for a in range(s):
+                lo = rbase + (Lp[c0 + a] - Lp[c0]) - a
+                for q in range(m):
+                    LR[a, q] = Lx[lo + q]
+            Yt[:, :] = np.dot(LR, Zrr)
+        else:
+            for a in range(s):
+                lo = rbase + (Lp[c0 + a] - Lp[c0]) - a
+                for rr in range(m):
+                    acc = 0.0
+                    for q in range(m):
+                        acc += Zrr[rr, q] * Lx[lo + q]
+                    Yt[a, rr] = acc
+        # Zt[a, r] = Z[r, a] for r > a (J's own rows kept symmetric: Zt[r, a] too); columns of J
+        # in chunks of _CHUNK from the last, the part of each sum over columns beyond the chunk
+        # as one dense product
+        Zt = zbuf[: s * h].reshape((s, h))
+        a1 = s
+        while a1 > 0:
+            a0 = max(a1 - _CHUNK, 0)
+            w = a1 - a0
+            nJ = s - a1
+            T = np.zeros((w, h - a1))
+            for a in range(w):
+                for rr in range(m):
+                    T[a, nJ + rr] = Yt[a0 + a, rr]
+            if nJ > 0:
+                Lc = np.empty((w, nJ))
+                LcR = np.empty((w, m))
+                for a in range(w):
+                    off = Lp[c0 + a0 + a] - (a0 + a) - 1
+                    for c in range(nJ):
+                        Lc[a, c] = Lx[off + a1 + c]
+                    for rr in range(m):
+                        LcR[a, rr] = Lx[off + s + rr]
+                Zb = np.empty((nJ, h - a1))
+                ZR = np.empty((m, nJ))
+                for c in range(nJ):
+                    for r in range(h - a1):
+                        Zb[c, r] = Zt[a1 + c, a1 + r]
+                    for rr in range(m):
+                        ZR[rr, c] = Zt[a1 + c, s + rr]
+                T += np.dot(Lc, Zb)
+                if m > 0:
+                    T[:, :nJ] += np.dot(LcR, ZR)
+            for a in range(a1 - 1, a0 - 1, -1):
+                j = c0 + a
+                off = Lp[j] - a - 1          # L[r, a] = Lx[off + r], r > a
+                for r in range(a1, h):
+                    Zt[a, r] = -T[a - a0, r - a1]
+                for c in range(a + 1, a1):
+                    lca = Lx[off + c]
+                    for r in range(a1, h):
+                        Zt[a, r] -= Zt[c, r] * lca
+                for r in range(a1, s):
+                    Zt[r, a] = Zt[a, r]
+                # rows of the chunk: row bq of Zt holds Z[bq, c] for every c > a
+                for bq in range(a + 1, a1):
+                    acc = 0.0
+                    for r in range(a + 1, h):
+                        acc += Zt[bq, r] * Lx[off + r]
+                    Zt[a, bq] = -acc
+                    Zt[bq, a] = -acc
+                dj = 1.0 / D[j]
+                for r in range(a + 1, h):
+                    dj -= Lx[off + r] * Zt[a, r]
+                Zt[a, a] = dj
+                Zd[j] = dj
+                for r in range(a + 1, h):
+                    Zx[off + r] = Zt[a, r]
+            a1 = a0
+
+
+def transpose_pattern(Cp: np.ndarray, Ci: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The transpose of the CSC pattern (Cp, Ci) of a square matrix, rows sorted, as (Tp, Ti, take):
+    value q of the transpose is value ``take[q]`` of the original. For a symmetric matrix this turns
+    the upper triangle's CSC into the lower triangle's and back."""
+    n = len(Cp) - 1
+    Ci = np.asarray(Ci, dtype=np.int64)
+    cols = np.repeat(np.arange(n, dtype=np.int64), np.diff(Cp))
+    order = np.lexsort((cols, Ci))
+    Tp = np.searchsorted(Ci[order], np.arange(n + 1)).astype(np.int64)
+    return Tp, cols[order], order.astype(np.int64)
+
+
 class Factor:
-    """Symbolic analysis of a fixed symmetric pattern with numeric factorisation on demand.
+    """Symbolic analysis of a fixed symmetric pattern with numeric factorisation on demand
+    (supernodal kernels; the scalar ones above compute the same numbers).
 
     Parameters
     ----------
@@ -239,6 +564,8 @@ class Factor:
         self.Ci = np.asarray(Ci, dtype=np.int64)
         self.n = len(self.Cp) - 1
         self.parent, self.Lp, self.Li = symbolic(self.Cp, self.Ci)
+        self.snode = supernodes(self.parent, self.Lp)
+        self.lower_p, self.lower_i, self.lower_take = transpose_pattern(self.Cp, self.Ci)
         self.Lx = np.empty(len(self.Li))
         self.D = np.empty(self.n)
 
@@ -248,9 +575,11 @@ class Factor:
         return int(len(self.Li) + self.n)
 
     def factor(self, Cx: np.ndarray) -> bool:
-        """Numeric factorisation for the values ``Cx``; False if the matrix is not positive definite."""
-        return ldl_numeric(self.Cp, self.Ci, np.asarray(Cx, dtype=np.float64), self.parent, self.Lp, self.Li,
-                           self.Lx, self.D) == self.n
+        """Numeric factorisation for the values ``Cx`` (aligned with ``Ci``); False if the matrix is
+        not positive definite."""
+        lower = np.asarray(Cx, dtype=np.float64)[self.lower_take]
+        return ldl_supernodal(self.lower_p, self.lower_i, lower, self.snode, self.Lp, self.Li, self.Lx,
+                              self.D) == self.n
 
     def solve(self, b: np.ndarray) -> np.ndarray:
         x = np.array(b, dtype=np.float64)
@@ -267,10 +596,115 @@ class Factor:
         """(Zx, Zd): the inverse on L's strictly lower pattern (aligned with ``Li``) and its diagonal."""
         Zx = np.empty(len(self.Li))
         Zd = np.empty(self.n)
-        selected_inverse(self.Lp, self.Li, self.Lx, self.D, Zx, Zd)
+        selected_inverse_supernodal(self.snode, self.Lp, self.Li, self.Lx, self.D, Zx, Zd)
         return Zx, Zd
 
     def lower_matrix(self, Zx: np.ndarray, Zd: np.ndarray) -> sp.csc_matrix:
         """Values aligned with L's pattern as a lower-triangular sparse matrix (diagonal ``Zd``)."""
         cols = np.repeat(np.arange(self.n), np.diff(self.Lp))
         return (sp.csc_matrix((Zx, (self.Li, cols)), shape=(self.n, self.n)) + sp.diags(Zd)).tocsc()
+
+
+@numba.njit(cache=True)
+def postorder(parent):
+    """A postorder of the forest ``parent`` (-1 at roots): ``order[k]`` is the k-th node visited,
+    children (in increasing order) before their parent. Renumbering the unknowns this way leaves
+    the fill unchanged and puts every subtree, hence every chain, on consecutive columns."""
+    n = len(parent)
+    head = np.full(n, -1, dtype=np.int64)
+    nxt = np.full(n, -1, dtype=np.int64)
+    for j in range(n - 1, -1, -1):
+        p = parent[j]
+        if p >= 0:
+            nxt[j] = head[p]
+            head[p] = j
+    order = np.empty(n, dtype=np.int64)
+    stack = np.empty(n, dtype=np.int64)
+    k = 0
+    for root in range(n):
+        if parent[root] != -1:
+            continue
+        top = 0
+        stack[0] = root
+        while top >= 0:
+            v = stack[top]
+            c = head[v]
+            if c == -1:
+                order[k] = v
+                k += 1
+                top -= 1
+            else:
+                head[v] = nxt[c]
+                top += 1
+                stack[top] = c
+    return order
+
+
+@numba.njit(cache=True)
+def _amalgamate(snode, Lp, Li, parent, max_zero_fraction, small_width, small_zero_fraction):
+    n = len(Lp) - 1
+    n_s = len(snode) - 1
+    starts = np.empty(n_s + 1, dtype=np.int64)
+    last = np.empty(n_s, dtype=np.int64)     # original supernode whose rows below close each group
+    g = 0
+    starts[0] = 0
+    cur = 0
+    z = 0
+    for J in range(1, n_s + 1):
+        if J < n_s:
+            g0, g1 = snode[cur], snode[J]
+            p0, p1 = snode[J], snode[J + 1]
+            sG, sP = g1 - g0, p1 - p0
+            mG = Lp[g1] - Lp[g1 - 1]                     # rows below the group's last column
+            mP = Lp[p0 + 1] - Lp[p0] - (sP - 1)
+            if parent[g1 - 1] == p0:
+                extra = sG * (sP + mP - mG)
+                s = sG + sP
+                nnz = s * (s - 1) // 2 + s * mP
+                frac = (z + extra) / max(nnz, 1)
+                if frac <= max_zero_fraction or (s <= small_width and frac <= small_zero_fraction):
+                    z += extra
+                    continue
+        last[g] = J - 1
+        g += 1
+        starts[g] = snode[J] if J < n_s else n
+        cur = J
+        z = 0
+    starts = starts[: g + 1]
+    newLp = np.zeros(n + 1, dtype=np.int64)
+    for G in range(g):
+        c0, c1 = starts[G], starts[G + 1]
+        K = last[G]
+        k0 = snode[K]
+        m = Lp[k0 + 1] - Lp[k0] - (snode[K + 1] - k0 - 1)
+        for j in range(c0, c1):
+            newLp[j + 1] = newLp[j] + (c1 - 1 - j) + m
+    newLi = np.empty(newLp[n], dtype=np.int64)
+    for G in range(g):
+        c0, c1 = starts[G], starts[G + 1]
+        K = last[G]
+        k0 = snode[K]
+        rb = Lp[k0] + (snode[K + 1] - k0 - 1)
+        m = Lp[k0 + 1] - rb
+        for j in range(c0, c1):
+            q = newLp[j]
+            for r in range(j + 1, c1):
+                newLi[q] = r
+                q += 1
+            for b in range(m):
+                newLi[q] = Li[rb + b]
+                q += 1
+    return starts, newLp, newLi
+
+
+def amalgamate(snode: np.ndarray, Lp: np.ndarray, Li: np.ndarray, parent: np.ndarray,
+               max_zero_fraction: float = 0.05, small_width: int = 32, small_zero_fraction: float = 0.3):
+    """Relaxed supernodes: merge a supernode with the next one when the next starts at the parent
+    of its last column and the merged panel's stored zeros stay a small fraction of its entries
+    (``max_zero_fraction``, or ``small_zero_fraction`` for panels of at most ``small_width``
+    columns). Returns (snode, Lp, Li) of the enlarged pattern: it contains the original one, each
+    supernode's rows below it are those of its last merged part, so it is still closed under
+    elimination and the supernodal kernels give the same L, D and Z (zeros where the pattern grew)."""
+    return _amalgamate(np.asarray(snode, dtype=np.int64), np.asarray(Lp, dtype=np.int64),
+                       np.asarray(Li, dtype=np.int64), np.asarray(parent, dtype=np.int64),
+                       float(max_zero_fraction), int(small_width), float(small_zero_fraction))

@@ -5,7 +5,7 @@ One Op, five outputs: the log-likelihood and its gradients with respect to the r
 ``y - X b`` (missing cells 0), G, R and the stacked extra-effect covariances (n_c, t, t). The
 gradient outputs are what :meth:`SparseMMELogp.L_op` returns, so a NUTS gradient costs one kernel
 call (as in :mod:`ped2g.fit.marginal_likelihood_op`). The design's structural arrays (index maps,
-the pattern and elimination tree of the factor) are inputs of the Op, so they enter the model as
+the pattern and supernodes of the factor) are inputs of the Op, so they enter the model as
 ``pm.Data`` and never as constants compiled into the graph.
 """
 
@@ -86,10 +86,10 @@ def sparse_mme_logp(resid, G, R, covs, structure) -> pt.TensorVariable:
 
 
 def _kernel(op):
-    def sparse_mme(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci, Cj, parent, Lp, Li, c_to_l,
+    def sparse_mme(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci, Cj, snode, Lp, Li, c_to_l,
                    rec_pattern, rec_index, patterns, n_levels, const):
         value, d_resid, dG, dR, dcovs = mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp,
-                                                          Ci, Cj, parent, Lp, Li, c_to_l, rec_pattern, rec_index,
+                                                          Ci, Cj, snode, Lp, Li, c_to_l, rec_pattern, rec_index,
                                                           patterns, n_levels, const)
         return np.asarray(value), d_resid, dG, dR, dcovs
 

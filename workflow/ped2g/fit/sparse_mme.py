@@ -23,7 +23,7 @@ per level of each extra effect, in the order of ``FitData.random``); unknown ``(
 scalar ``block * t + k`` before the fill-reducing permutation. Every entry of ``C`` is a sum of
 *terms* ``coef x M_m[k, l]`` where the small matrices ``M_m`` are ``G^-1``, each ``C_c^-1`` and, per
 pattern of observed traits ``p``, ``(R_oo)^-1`` padded with zeros. :func:`build_design` lists these
-terms once per design (position in the upper triangle of the permuted ``C``, which entry of which
+terms once per design (position in the lower triangle of the permuted ``C``, which entry of which
 small matrix, coefficient), so each evaluation only fills values; the same list gives
 ``d log|C| / d M_m = sum coef x (C^-1 at the term's position)``.
 
@@ -40,7 +40,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from . import sparse_factor as sf
-from .sparse_factor import ldl_numeric, ldl_solve, selected_inverse
+from .sparse_factor import ldl_solve, ldl_supernodal, selected_inverse_supernodal
 
 LOG_2PI = math.log(2.0 * math.pi)
 
@@ -59,10 +59,10 @@ class Design:
     term_pos: np.ndarray
     term_midx: np.ndarray
     term_coef: np.ndarray
-    Cp: np.ndarray
-    Ci: np.ndarray
-    Cj: np.ndarray
-    parent: np.ndarray
+    Cp: np.ndarray              # lower triangle of the permuted C (diagonal included), CSC
+    Ci: np.ndarray              # row of each stored entry
+    Cj: np.ndarray              # column of each stored entry
+    snode: np.ndarray           # first column of each supernode of L, then n_unknowns
     Lp: np.ndarray
     Li: np.ndarray
     c_to_l: np.ndarray
@@ -82,13 +82,13 @@ class Design:
 
     def inputs(self) -> tuple:
         """The structural arrays in the order the kernels take them (after resid, G, R, covs)."""
-        return (self.term_pos, self.term_midx, self.term_coef, self.Cp, self.Ci, self.Cj, self.parent, self.Lp,
+        return (self.term_pos, self.term_midx, self.term_coef, self.Cp, self.Ci, self.Cj, self.snode, self.Lp,
                 self.Li, self.c_to_l, self.rec_pattern, self.rec_index, self.patterns, self.n_levels,
                 np.array([self.const]))
 
 
 #: Names of the structural inputs (``pm.Data`` names in the sparse engine's model).
-INPUT_NAMES = ("term_pos", "term_midx", "term_coef", "Cp", "Ci", "Cj", "parent", "Lp", "Li", "c_to_l",
+INPUT_NAMES = ("term_pos", "term_midx", "term_coef", "Cp", "Ci", "Cj", "snode", "Lp", "Li", "c_to_l",
                "rec_pattern", "rec_index", "patterns", "n_levels", "const")
 
 
@@ -149,6 +149,11 @@ def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
          (np.concatenate([Ainv.row, level_blocks, u_pair]), np.concatenate([Ainv.col, level_blocks, v_pair]))),
         shape=(n_b, n_b)).tocsc()
     perm_b = sf.fill_reducing_order(block_pattern)
+    # postorder of the block elimination tree (same fill; chains of blocks on consecutive columns)
+    Bu = sp.triu(block_pattern.tocsr()[perm_b][:, perm_b], format="csc")
+    Bu.sort_indices()
+    block_parent = sf.symbolic(Bu.indptr, Bu.indices)[0]
+    perm_b = perm_b[sf.postorder(block_parent)]
     perm = (perm_b[:, None] * t + np.arange(t)[None, :]).ravel()
     iperm = np.empty(n_u, dtype=np.int64)
     iperm[perm] = np.arange(n_u)
@@ -179,8 +184,9 @@ def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
     pcol = iperm[np.concatenate(cols)]
     midx = np.concatenate(midx).astype(np.int64)
     coef = np.concatenate(coef)
-    upper = prow <= pcol
-    prow, pcol, midx, coef = prow[upper], pcol[upper], midx[upper], coef[upper]
+    # the lower triangle: entry (max, min) of each term, keyed column-major
+    lower = prow >= pcol
+    prow, pcol, midx, coef = prow[lower], pcol[lower], midx[lower], coef[lower]
     ckey = pcol * n_u + prow
     ukeys = np.unique(ckey)
     pos = np.searchsorted(ukeys, ckey)
@@ -193,13 +199,15 @@ def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
     term_pos = (tkey // (n_mats * tt)).astype(np.int64)
     term_midx = (tkey % (n_mats * tt)).astype(np.int64)
 
-    parent, Lp, Li = sf.symbolic(Cp, Ci)
+    Up, Ui, _ = sf.transpose_pattern(Cp, Ci)
+    parent, Lp, Li = sf.symbolic(Up, Ui)
+    snode, Lp, Li = sf.amalgamate(sf.supernodes(parent, Lp), Lp, Li, parent)
     nnzL = len(Li)
     lkeys = np.repeat(np.arange(n_u, dtype=np.int64), np.diff(Lp)) * n_u + Li
     off = Ci != Cj
     c_to_l = nnzL + Cj.copy()
-    c_to_l[off] = np.searchsorted(lkeys, Ci[off] * n_u + Cj[off])
-    if np.any(lkeys[c_to_l[off]] != Ci[off] * n_u + Cj[off]):
+    c_to_l[off] = np.searchsorted(lkeys, Cj[off] * n_u + Ci[off])
+    if np.any(lkeys[c_to_l[off]] != Cj[off] * n_u + Ci[off]):
         raise AssertionError("pattern of C not contained in the pattern of L")
 
     rec_index = np.full((n_rec, n_gamma, t), -1, dtype=np.int64)
@@ -212,7 +220,7 @@ def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
     return Design(t=t, n_animals=n_a, n_levels=np.asarray(sizes, dtype=np.int64), block_offsets=offsets,
                   patterns=patterns.astype(np.int8), rec_pattern=rec_pattern, rec_index=rec_index,
                   term_pos=term_pos, term_midx=term_midx, term_coef=term_coef, Cp=Cp, Ci=Ci, Cj=Cj,
-                  parent=parent, Lp=Lp, Li=Li, c_to_l=c_to_l.astype(np.int64), perm=perm,
+                  snode=snode, Lp=Lp, Li=Li, c_to_l=c_to_l.astype(np.int64), perm=perm,
                   const=-0.5 * (n_obs * LOG_2PI + t * log_det_A), n_obs=n_obs, log_det_A=log_det_A)
 
 
@@ -331,7 +339,7 @@ def _right_hand_side(resid, mats, n_gamma, rec_pattern, rec_index, n_u):
 
 
 @numba.njit(cache=True)
-def mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci, Cj, parent, Lp, Li, c_to_l,
+def mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci, Cj, snode, Lp, Li, c_to_l,
                       rec_pattern, rec_index, patterns, n_levels, const):
     """(log L, d/d resid, d/dG, d/dR, d/dcovs); -inf and zeros where a matrix is not positive definite."""
     n_rec, t = resid.shape
@@ -347,7 +355,7 @@ def mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci,
     Cx = _assemble(mats, term_pos, term_midx, term_coef, len(Ci))
     Lx = np.empty(len(Li))
     D = np.empty(n_u)
-    if ldl_numeric(Cp, Ci, Cx, parent, Lp, Li, Lx, D) != n_u:
+    if ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D) != n_u:
         return fail
     rhs, quad = _right_hand_side(resid, mats, n_gamma, rec_pattern, rec_index, n_u)
     chat = ldl_solve(Lp, Li, Lx, D, rhs.copy())
@@ -363,11 +371,11 @@ def mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci,
         ld_r += pat_ld[rec_pattern[r]]
     value = const[0] - 0.5 * (ld_c + ld_gamma + ld_r + quad)
 
-    # gradient: T_m = d(log|C| + Q) / d M_m (upper entries counted for both triangles)
+    # gradient: T_m = d(log|C| + Q) / d M_m (off-diagonal stored entries counted for both triangles)
     nnzL = len(Li)
     Zx = np.empty(nnzL)
     Zd = np.empty(n_u)
-    selected_inverse(Lp, Li, Lx, D, Zx, Zd)
+    selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd)
     T = np.zeros((n_gamma + n_pat) * tt)
     for q in range(len(term_pos)):
         pos = term_pos[q]
@@ -431,7 +439,7 @@ def mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci,
 
 
 @numba.njit(cache=True)
-def mme_effects(resid, G, R, covs, noise, term_pos, term_midx, term_coef, Cp, Ci, Cj, parent, Lp, Li, c_to_l,
+def mme_effects(resid, G, R, covs, noise, term_pos, term_midx, term_coef, Cp, Ci, Cj, snode, Lp, Li, c_to_l,
                 rec_pattern, rec_index, patterns, n_levels, const):
     """Random effects given each draw s (permuted order), ``c^_s + L'^-1 D^-1/2 noise_s``.
 
@@ -452,7 +460,7 @@ def mme_effects(resid, G, R, covs, noise, term_pos, term_midx, term_coef, Cp, Ci
         if not ok:
             continue
         Cx = _assemble(mats, term_pos, term_midx, term_coef, len(Ci))
-        if ldl_numeric(Cp, Ci, Cx, parent, Lp, Li, Lx, D) != n_u:
+        if ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D) != n_u:
             continue
         rhs, _ = _right_hand_side(resid[s], mats, n_gamma, rec_pattern, rec_index, n_u)
         chat = ldl_solve(Lp, Li, Lx, D, rhs)
@@ -540,5 +548,5 @@ def coefficient_matrix(design: Design, G, R, covs=()) -> sp.csc_matrix:
         raise ValueError("a covariance matrix is not positive definite")
     Cx = _assemble(mats, design.term_pos, design.term_midx, design.term_coef, len(design.Ci))
     n = design.n_unknowns
-    U = sp.csc_matrix((Cx, design.Ci, design.Cp), shape=(n, n))
-    return (U + sp.triu(U, 1).T).tocsc()
+    lower = sp.csc_matrix((Cx, design.Ci, design.Cp), shape=(n, n))
+    return (lower + sp.tril(lower, -1).T).tocsc()
