@@ -16,7 +16,12 @@ on the pedigree's structure (benchmarks/sparse_likelihood.py). Breeding values a
 afterwards from their exact conditional distribution given each posterior draw,
 ``N(C^-1 r, C^-1)``, with the same factorisation.
 
-Not yet taken by ``model.engine: auto``; it runs when asked for by name.
+``model.engine: auto`` takes it (:meth:`SparseEngine.prefers`, docs/methods.md §2.9) when the design
+has extra random effects -- the marginal engine would sample every level of them by NUTS, which
+mixes orders of magnitude more slowly per second on field designs
+(benchmarks/field_design_benchmark.py) -- and when the marginal engine's dense eigendecomposition
+does not fit in memory. Without extra random effects, and while that fits, ``auto`` keeps the
+marginal engine.
 """
 
 from __future__ import annotations
@@ -156,7 +161,20 @@ class SparseEngine:
                       f"{design.factor_nnz:,} non-zeros in the factor")
 
     def prefers(self, data: FitData, model_config: dict) -> tuple[bool, str]:
-        return False, "the sparse engine is not yet chosen by 'auto' (ask for it with model.engine: sparse)"
+        """Whether ``auto`` takes it (module docstring): extra random effects, or a marginal engine
+        that cannot fit the data in memory. The text is the reason either way."""
+        from .marginal import applicable
+
+        if data.random:
+            names = ", ".join(eff.name for eff in data.random)
+            return True, (f"the design has extra random effects ({names}); the sparse engine integrates them "
+                          "out with the breeding values, where the marginal engine would sample each of "
+                          "their levels by NUTS")
+        ok, why = applicable(data, model_config, self.memory)
+        if not ok:
+            return True, f"the marginal engine does not apply ({why})"
+        return False, ("no extra random effects and the marginal engine's eigendecomposition fits in "
+                       "memory, so the marginal engine is taken")
 
     def build(self, data: FitData, model_config: dict):
         import time
