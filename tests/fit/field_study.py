@@ -74,12 +74,12 @@ def tables(seed: int = 7, **kw):
     return st.pedigree, phen, {"G": G, "R": R, **covs}
 
 
-def config(**model):
-    return validate({"traits": list(TRAITS), "fixed": {"sex": "categorical"}, "random": RANDOM,
-                     "model": model})
+def config(random=None, **model):
+    return validate({"traits": list(TRAITS), "fixed": {"sex": "categorical"},
+                     "random": RANDOM if random is None else random, "model": model})
 
 
-def design(seed: int = 7, model: dict | None = None, **kw):
+def design(seed: int = 7, model: dict | None = None, random: list | None = None, **kw):
     """(prepared FitData, validated config, truth dict in original units) of the study."""
     ped_raw, phen, truth = tables(seed, **kw)
     raw = ped_raw.fillna("").astype(str)
@@ -88,7 +88,7 @@ def design(seed: int = 7, model: dict | None = None, **kw):
     phen = phen.astype({"dam": str, "year": str}).fillna({"dam": ""})
     phen = phen.astype(object).where(phen.notna(), "").astype(str)
     phen.index = range(2, 2 + len(phen))
-    cfg = config(**(model or {}))
+    cfg = config(random, **(model or {}))
     data = prepare(cfg, phen, ped, "north")
     return data, cfg, truth
 
