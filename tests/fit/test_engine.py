@@ -1,10 +1,15 @@
-"""The engine choice follows model.engine and the marginal engine's limits."""
+"""The engine choice follows model.engine, the design and the engines' limits (docs/methods.md §2.9).
+
+Oracles: the rule as documented (a marginal engine beyond memory: sparse; otherwise marginal while
+it prefers itself; else latent) and exact arithmetic of the memory need
+(24 bytes x records^2 + a constant, docs/methods.md §2.5).
+"""
 
 import numpy as np
 import pytest
 
 from ped2g.errors import UserError
-from ped2g.fit import engine, marginal
+from ped2g.fit import engine, marginal, sparse
 from ped2g.fit.data import FitData
 from ped2g.pedigree.core import Pedigree
 
@@ -51,9 +56,60 @@ def test_marginal_engine_needs_its_eigendecomposition_to_fit_in_memory(monkeypat
     assert engine.choose(data, "auto")[0] == "marginal"
     monkeypatch.setattr(machine, "available_memory", lambda: need / marginal.MEMORY_SHARE * 0.99)
     name, _, reason = engine.choose(data, "auto")
-    assert name == "latent" and "need 1.1 GB" in reason and "eigendecomposition" in reason
+    # beyond the marginal engine's memory the sparse engine is taken, and the reason says why
+    assert name == "sparse" and "need 1.1 GB" in reason and "eigendecomposition" in reason
+    assert "marginal engine does not apply" in reason
+    # ...unless its own factor does not fit either: then the latent engine
+    monkeypatch.setattr(sparse, "BYTES_PER_FACTOR_NONZERO", 1e9)
+    name, _, reason = engine.choose(data, "auto")
+    assert name == "latent" and "sparse factor" in reason and "eigendecomposition" in reason
     with pytest.raises(UserError, match="model.engine' asks for 'marginal'.*need 1.1 GB"):
         engine.choose(data, "marginal")
     # where the available memory cannot be read, the engine is not refused on memory grounds
     monkeypatch.setattr(machine, "available_memory", lambda: None)
     assert engine.choose(data, "auto")[0] == "marginal"
+
+
+def test_extra_random_effects_keep_the_marginal_engine_within_memory(monkeypatch):
+    # The sparse engine was not faster per effective sample on the field design measured
+    # (benchmarks/README.md), so auto keeps the marginal engine there while it fits in memory.
+    import field_study
+    from ped2g import machine
+
+    data, cfg, _ = field_study.design(seed=2, animals=120, founders=20, phenotyped=60)
+    assert [e.name for e in data.random] == ["maternal", "permanent", "cohort"]
+    name, _, reason = engine.choose(data, "auto", cfg["model"])
+    assert name == "marginal" and "not sparse: the marginal engine fits in memory" in reason
+    # beyond the marginal engine's memory the same design goes to the sparse engine
+    need = marginal.memory_needed(data.n_records)
+    monkeypatch.setattr(machine, "available_memory", lambda: need / marginal.MEMORY_SHARE * 0.99)
+    name, eng, reason = engine.choose(data, "auto", cfg["model"])
+    assert name == "sparse" and isinstance(eng, sparse.SparseEngine)
+    assert "marginal engine does not apply" in reason and "non-zeros" in reason
+    # asked for by name, the sparse engine runs within memory too
+    monkeypatch.setattr(machine, "available_memory", lambda: None)
+    assert engine.choose(data, "sparse", cfg["model"])[0] == "sparse"
+
+
+def test_the_demo_keeps_the_marginal_engine():
+    # The demo's config has no extra random effects and its populations fit in memory many times
+    # over (at most a few hundred records each): auto keeps the marginal engine.
+    from pathlib import Path
+
+    from ped2g.config import load_config
+    from ped2g.fit.command import load_pedigree
+    from ped2g.fit.prepare import prepare
+    from ped2g.io import read_table
+
+    root = Path(__file__).resolve().parents[2]
+    config = load_config(root / "config" / "config.yaml")
+    assert config["random"] == [] and config["model"]["engine"] == "auto"
+    config["data"] = {**config["data"], "pedigree": str(root / config["data"]["pedigree"]),
+                      "phenotypes": str(root / config["data"]["phenotypes"])}
+    phen = read_table(config["data"]["phenotypes"], "phenotype table")
+    ped = load_pedigree(None, config)
+    for population in sorted(set(phen["population"])):
+        data = prepare(config, phen, ped, population)
+        name, _, reason = engine.choose(data, "auto", config["model"])
+        assert name == "marginal", (population, reason)
+        assert "not sparse: the marginal engine fits in memory" in reason

@@ -6,15 +6,17 @@ may keep what it computed for the population's design, as the marginal engine ke
 eigendecomposition). The fit stage (:mod:`ped2g.fit.pipeline`) and the refitting null
 (:mod:`ped2g.null.refit`) use engines only through this interface.
 
-Choosing: ``auto`` takes the marginal engine (breeding values integrated out; far better mixing of
-G per gradient) whenever it applies -- while its dense eigendecomposition fits in the memory this
-process has (:func:`ped2g.fit.marginal.memory_needed`) -- and prefers itself: the pre-rotated
-projections that every gradient touches (extra random-effect levels, and missing trait values
-with ``model.missing_values: nuts``) stay below :data:`ped2g.fit.marginal.AUTO_PROJECTION_CELLS`
-(beyond that each gradient is memory-bound and the marginal engine loses its advantage);
-otherwise the latent engine (linear cost in the number of animals, no dense matrices). The
-choice and its reason go into diagnostics.json. The sparse engine (every random effect integrated
-out through the sparse mixed-model equations) runs only when asked for by name.
+Choosing: ``auto`` tries the engines in the order of :data:`AUTO_ORDER` and takes the first that
+prefers itself and applies (docs/methods.md §2.9). The sparse engine (every random effect
+integrated out through the sparse mixed-model equations) comes first and prefers itself when the
+marginal engine cannot fit the data in memory. The marginal engine (breeding values integrated
+out; far better mixing of G per gradient than the latent engine) applies while its dense
+eigendecomposition fits in the memory this process has (:func:`ped2g.fit.marginal.memory_needed`)
+and prefers itself while the pre-rotated projections that every gradient touches stay below
+:data:`ped2g.fit.marginal.AUTO_PROJECTION_CELLS`; otherwise the latent engine (linear cost in the
+number of animals, no dense matrices). So a design that fits in memory (the demo, and field
+designs with extra random effects) keeps the marginal engine. The choice and its reason go into
+diagnostics.json.
 """
 
 from __future__ import annotations
@@ -28,9 +30,10 @@ from ..errors import UserError
 from .data import FitData
 
 #: Values of ``model.engine``; ``auto`` tries the engines in the order of :data:`AUTO_ORDER`.
-#: The sparse engine is listed last and does not prefer itself yet, so ``auto`` never takes it.
+#: The sparse engine is tried first: it prefers itself only beyond the marginal engine's memory
+#: (:meth:`ped2g.fit.sparse.SparseEngine.prefers`).
 ENGINES = ("auto", "marginal", "latent", "sparse")
-AUTO_ORDER = ("marginal", "latent", "sparse")
+AUTO_ORDER = ("sparse", "marginal", "latent")
 
 
 @dataclass
@@ -132,14 +135,17 @@ def choose(data: FitData, requested: str, model_config: dict | None = None) -> t
     passed = []
     for name in AUTO_ORDER:
         engine = get(name)
+        # prefers first: it is cheap, and an engine that is not wanted need not analyse the design
+        preferred, why_preferred = engine.prefers(data, model_config)
+        if not preferred:
+            passed.append((name, why_preferred))
+            continue
         ok, why = engine.applies(data, model_config)
-        if ok:
-            preferred, why_not = engine.prefers(data, model_config)
-            if preferred:
-                if not passed:
-                    return name, engine, f"auto: the {name} engine applies ({why})"
-                return name, engine, f"auto: the {passed[0][0]} engine does not apply ({passed[0][1]})"
-            why = why_not
-        passed.append((name, why))
+        if not ok:
+            passed.append((name, why))
+            continue
+        what = f"{why_preferred}; {why}" if why_preferred else f"the {name} engine applies ({why})"
+        skipped = "".join(f"; not {n}: {w}" for n, w in passed)
+        return name, engine, f"auto: {what}{skipped}"
     raise UserError(f"population '{data.population}': no engine can fit these data "
                     f"({'; '.join(w for _, w in passed)})")

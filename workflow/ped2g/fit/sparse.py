@@ -16,7 +16,12 @@ on the pedigree's structure (benchmarks/sparse_likelihood.py). Breeding values a
 afterwards from their exact conditional distribution given each posterior draw,
 ``N(C^-1 r, C^-1)``, with the same factorisation.
 
-Not yet taken by ``model.engine: auto``; it runs when asked for by name.
+``model.engine: auto`` takes it (:meth:`SparseEngine.prefers`, docs/methods.md §2.9) when the marginal
+engine cannot fit the data in memory. Extra random effects alone do not make ``auto`` take it: on
+an invented field design (benchmarks/field_design_benchmark.py, benchmarks/README.md) it did not
+beat the marginal engine in effective samples per second -- better mixing per draw, but each
+gradient cost about ten times the marginal engine's at 600 records -- so that clause waits for
+a faster factorisation and a new measurement.
 """
 
 from __future__ import annotations
@@ -156,7 +161,15 @@ class SparseEngine:
                       f"{design.factor_nnz:,} non-zeros in the factor")
 
     def prefers(self, data: FitData, model_config: dict) -> tuple[bool, str]:
-        return False, "the sparse engine is not yet chosen by 'auto' (ask for it with model.engine: sparse)"
+        """Whether ``auto`` takes it (module docstring): when the marginal engine cannot fit the data
+        in memory. The text is the reason either way."""
+        from .marginal import applicable
+
+        ok, why = applicable(data, model_config, self.memory)
+        if not ok:
+            return True, f"the marginal engine does not apply ({why})"
+        return False, ("the marginal engine fits in memory and was faster per effective sample on "
+                       "the designs measured (benchmarks/README.md)")
 
     def build(self, data: FitData, model_config: dict):
         import time

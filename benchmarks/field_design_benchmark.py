@@ -1,0 +1,182 @@
+"""The sparse engine against the marginal engine on a wild-population-style design (prints a table).
+
+Design (invented; tests/fit/field_study.py, built with the project's simulator): 3 traits, a
+pedigree of ``--animals`` animals in overlapping generations with 20% of parent links written as
+unknown (so about 20% unknown sires), ``--phenotyped`` animals with ``--records`` records each in
+successive years (repeated records), 12% of trait cells missing, a sex effect, and three extra
+random effects: maternal on the dam column (blank where the pedigree names no dam), permanent
+environment on the id column, cohort on the year column. Records are drawn from the model with
+known covariances (:func:`field_study.simulate`).
+
+Each engine is timed through everything a fit does before its summaries: building the model
+(sparse: ordering and symbolic factorisation; marginal: the eigendecomposition and pre-rotated
+designs), compiling it for nutpie (numba) and sampling. The marginal engine samples every extra
+random-effect level as a non-centred NUTS parameter and its missing cells as NUTS parameters
+(``model.missing_values: nuts``, so that it runs on nutpie and can be stopped by its wall-clock
+cap); a run stopped by ``--cap-*`` reports how many iterations it reached and the time the whole
+run would take at that pace.
+
+Columns: build, compile and sampling seconds; iterations reached of chains x (warmup + draws);
+gradient evaluations and core-milliseconds per gradient (sampling seconds x cores in use /
+gradients); divergences; min bulk and tail ESS and max R-hat over the distinct elements of G and
+of every extra covariance (Vehtari et al. 2021, as implemented in ArviZ); min bulk ESS per second
+of everything (build + compile + sampling).
+
+Usage (from the repository root)::
+
+    python benchmarks/field_design_benchmark.py --chains 4 --warmup 300 --draws 300 --cap-sparse 1500 --cap-marginal 600
+
+Timings depend on the machine and what else runs on it; quote the command and load average.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+ROOT = Path(__file__).resolve().parents[1]
+sys.path.insert(0, str(ROOT / "workflow"))
+sys.path.insert(0, str(ROOT / "tests" / "fit"))
+
+
+def _iterations(idata) -> int:
+    total = 0
+    for group in ("warmup_sample_stats", "sample_stats"):
+        if group in idata.groups():
+            total += int(np.isfinite(np.asarray(idata[group]["n_steps"].values, dtype=float)).sum())
+    return total
+
+
+def _total(idata, group: str, stat: str) -> int:
+    if group not in idata.groups():
+        return 0
+    return int(np.nansum(np.asarray(idata[group][stat].values, dtype=float)))
+
+
+def summary(idata, names: list[str]) -> dict[str, float]:
+    """Min bulk and tail ESS and max R-hat over the distinct elements of each named (t, t) matrix."""
+    import arviz as az
+
+    out = {"ess_bulk": np.inf, "ess_tail": np.inf, "rhat": 0.0}
+    per = {}
+    for name in names:
+        x = np.asarray(idata.posterior[name].values)
+        keep = int(np.min(np.sum(np.all(np.isfinite(x), axis=(-1, -2)), axis=1)))
+        x = x[:, :keep]
+        iu = np.tril_indices(x.shape[-1])
+        ds = az.convert_to_dataset({"v": x[..., iu[0], iu[1]]})
+        b = float(np.min(az.ess(ds, method="bulk")["v"].values))
+        t = float(np.min(az.ess(ds, method="tail")["v"].values))
+        r = float(np.max(az.rhat(ds)["v"].values))
+        per[name] = b
+        out["ess_bulk"], out["ess_tail"], out["rhat"] = min(out["ess_bulk"], b), min(out["ess_tail"], t), max(out["rhat"], r)
+    out["per"] = per
+    out["kept"] = keep
+    return out
+
+
+def run_engine(name: str, data, cfg, args, cap: float) -> dict:
+    import nutpie
+
+    from ped2g.fit import sample
+    from ped2g.fit.engine import get
+
+    model_config = {**cfg["model"], "missing_values": "nuts"} if name == "marginal" else cfg["model"]
+    eng = get(name)
+    start = time.perf_counter()
+    ok, why = eng.applies(data, model_config)
+    built = eng.build(data, model_config)
+    build_s = time.perf_counter() - start
+    names = ["G", "R", *[f"cov_{e.name}" for e in data.random]]
+    free = sum(int(np.prod(v.shape.eval())) if hasattr(v.shape, "eval") else 0 for v in built.model.free_RVs)
+    start = time.perf_counter()
+    with sample.numba_optimisation(built.numba_opt_level), sample.exact_numba_math():
+        compiled = nutpie.compile_pymc_model(built.model, backend="numba", var_names=names)
+    compile_s = time.perf_counter() - start
+    start = time.perf_counter()
+    sampler = nutpie.sample(compiled, chains=args.chains, tune=args.warmup, draws=args.draws, seed=args.seed,
+                            cores=args.cores, progress_bar=False, blocking=False, **(built.nutpie_options or {}))
+    stopped = False
+    try:
+        idata = sampler.wait(timeout=cap)
+    except TimeoutError:
+        idata = sampler.abort()
+        stopped = True
+    sample_s = time.perf_counter() - start
+    iters = _iterations(idata)
+    planned = args.chains * (args.warmup + args.draws)
+    steps = _total(idata, "sample_stats", "n_steps") + _total(idata, "warmup_sample_stats", "n_steps")
+    row = {"engine": name, "free": free, "build_s": build_s, "compile_s": compile_s, "sample_s": sample_s,
+           "iterations": iters, "planned": planned, "gradients": steps,
+           "core_ms_per_gradient": 1000 * sample_s * min(args.chains, args.cores) / max(steps, 1),
+           "divergences": _total(idata, "sample_stats", "diverging"), "stopped": stopped,
+           "total_s": build_s + compile_s + sample_s, "reason": why}
+    if stopped:
+        row["extrapolated_s"] = build_s + compile_s + sample_s * planned / max(iters, 1)
+    if "posterior" in idata.groups() and idata.posterior.sizes["draw"] >= 4:
+        s = summary(idata, names)
+        if s["kept"] >= 4:
+            row.update(ess_bulk=s["ess_bulk"], ess_tail=s["ess_tail"], rhat=s["rhat"], kept=s["kept"],
+                       per=s["per"], ess_per_s=s["ess_bulk"] / row["total_s"])
+    return row
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--animals", type=int, default=1500)
+    parser.add_argument("--founders", type=int, default=120)
+    parser.add_argument("--phenotyped", type=int, default=1000)
+    parser.add_argument("--records", type=int, default=2, help="records per phenotyped animal")
+    parser.add_argument("--years", type=int, default=9, help="breeding seasons (cohort levels: years + records)")
+    parser.add_argument("--chains", type=int, default=4)
+    parser.add_argument("--cores", type=int, default=2)
+    parser.add_argument("--warmup", type=int, default=300)
+    parser.add_argument("--draws", type=int, default=300)
+    parser.add_argument("--seed", type=int, default=1)
+    parser.add_argument("--engines", nargs="+", default=["sparse", "marginal"], choices=["sparse", "marginal"])
+    parser.add_argument("--cap-sparse", type=float, default=1800.0, help="wall-clock cap of sampling (s)")
+    parser.add_argument("--cap-marginal", type=float, default=600.0, help="wall-clock cap of sampling (s)")
+    args = parser.parse_args(argv)
+
+    import field_study
+
+    start = time.perf_counter()
+    data, cfg, truth = field_study.design(seed=args.seed, animals=args.animals, founders=args.founders,
+                                          phenotyped=args.phenotyped, records_per_animal=args.records,
+                                          years=args.years)
+    data = field_study.simulate(data, truth, np.random.default_rng(args.seed))
+    levels = ", ".join(f"{e.name} {e.n_levels} levels ({int((~e.known).sum())} records unknown)" for e in data.random)
+    print(f"design: {data.n_records} records of {int(data.phenotyped.sum())} animals, pedigree {data.pedigree.n} "
+          f"after pruning, {data.n_traits} traits, {data.missing.mean():.1%} cells missing, "
+          f"{int((data.pedigree.sire < 0).sum())} unknown sires, {levels}; simulated in "
+          f"{time.perf_counter() - start:.1f} s", flush=True)
+    print(f"load average at start: {' '.join(f'{x:.2f}' for x in os.getloadavg())}", flush=True)
+    rows = []
+    for name in args.engines:
+        cap = args.cap_sparse if name == "sparse" else args.cap_marginal
+        row = run_engine(name, data, cfg, args, cap)
+        row["load"] = os.getloadavg()
+        rows.append(row)
+        print(row, flush=True)
+    head = (f"{'engine':>8} {'build_s':>8} {'compile_s':>9} {'sample_s':>9} {'iters':>11} {'gradients':>9} "
+            f"{'core_ms/grad':>12} {'div':>4} {'ESS_bulk':>8} {'ESS_tail':>8} {'Rhat_max':>8} {'ESS/s':>8} "
+            f"{'total_s':>8}")
+    print(head)
+    for r in rows:
+        ess = (f"{r['ess_bulk']:8.0f} {r['ess_tail']:8.0f} {r['rhat']:8.3f} {r['ess_per_s']:8.4f}"
+               if "ess_bulk" in r else f"{'-':>8} {'-':>8} {'-':>8} {'-':>8}")
+        total = f"{r['total_s']:8.0f}" + (f"  stopped; whole run ~{r['extrapolated_s']:.0f} s" if r["stopped"] else "")
+        print(f"{r['engine']:>8} {r['build_s']:8.1f} {r['compile_s']:9.1f} {r['sample_s']:9.1f} "
+              f"{r['iterations']:>5}/{r['planned']:<5} {r['gradients']:9d} {r['core_ms_per_gradient']:12.2f} "
+              f"{r['divergences']:4d} {ess} {total}")
+    print(f"load average at end: {' '.join(f'{x:.2f}' for x in os.getloadavg())}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
