@@ -169,7 +169,7 @@ class Refitter:
     data
         The population's prepared data (:func:`ped2g.fit.prepare.prepare`).
     engine_name
-        ``marginal`` or ``latent``: the engine the observed fit ran (its diagnostics.json).
+        ``marginal``, ``latent`` or ``sparse``: the engine the observed fit ran (its diagnostics.json).
     config
         The validated config (``model``, ``sampling.seed``, ``compare.null_model.refit``).
     """

@@ -140,5 +140,6 @@ def run(args: argparse.Namespace) -> int:
              "ped2g_version": __version__}
     write_chunk(args.out, population, data.traits, replicates, results, attrs,
                 kind=PILOT_KIND if args.pilot else REFIT_KIND)
-    log.info("wrote %s (%d replicates) in %.1f s", args.out, len(results), time.perf_counter() - start)
+    log.info("wrote %s (%d %s) in %.1f s", args.out, len(results), "pilot refits" if args.pilot else "replicates",
+             time.perf_counter() - start)
     return 0
