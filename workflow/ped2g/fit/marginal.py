@@ -247,18 +247,15 @@ def build_model(data: FitData, model_config: dict, rot: Rotation | None = None):
 
     from . import augment
     from .marginal_likelihood_op import scaled_pair_logp
-    from .priors import covariance_prior, fixed_covariances, fixed_effects_prior
+    from .priors import covariance_prior, shared_priors
 
     rot = rot if rot is not None else rotation(data)
     mode = missing_mode(data, model_config)
     t = data.n_traits
     priors = with_defaults(model_config, "model")["priors"]
-    fixed = fixed_covariances(model_config, data.y_scale, data.traits)
     coords = {"trait": data.traits, "trait2": data.traits, "x": data.x_names}
     with pm.Model(coords=coords) as model:
-        G, _ = covariance_prior("G", t, priors, None if fixed is None else fixed["G"])
-        R, _ = covariance_prior("R", t, priors, None if fixed is None else fixed["R"])
-        beta = fixed_effects_prior(len(data.x_names), t, priors)
+        G, _, R, _, beta = shared_priors(data, model_config)
         lam = pm.Data("rot_lambda", rot.lam)
         rot_X = pm.Data("rot_X", rot.rot_X)
         total_missing = int(data.missing.sum())

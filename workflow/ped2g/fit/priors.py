@@ -124,3 +124,16 @@ def fixed_covariances(model_config: dict[str, Any], y_scale: np.ndarray,
             raise UserError(f"config key 'model.fixed_covariances.{key}' is not positive definite")
         out[key] = m / scale
     return out
+
+
+def shared_priors(data, model_config: dict[str, Any]) -> tuple[pt.TensorVariable, ...]:
+    """The priors every engine declares alike, in the current PyMC model (docs/methods.md §2.4):
+    ``G`` and ``R`` (fixed by ``model.fixed_covariances`` when given) with their Cholesky factors,
+    and the fixed effects ``beta`` of ``data``'s design. Returns ``(G, chol_G, R, chol_R, beta)``."""
+    t = data.n_traits
+    priors = with_defaults(model_config, "model")["priors"]
+    fixed = fixed_covariances(model_config, data.y_scale, data.traits)
+    G, chol_G = covariance_prior("G", t, priors, None if fixed is None else fixed["G"])
+    R, chol_R = covariance_prior("R", t, priors, None if fixed is None else fixed["R"])
+    beta = fixed_effects_prior(len(data.x_names), t, priors)
+    return G, chol_G, R, chol_R, beta

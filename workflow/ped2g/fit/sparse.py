@@ -53,18 +53,15 @@ def build_model(data: FitData, model_config: dict, design: sparse_mme.Design | N
     import pymc as pm
     import pytensor.tensor as pt
 
-    from .priors import covariance_prior, fixed_covariances, fixed_effects_prior
+    from .priors import covariance_prior, shared_priors
     from .sparse_likelihood_op import sparse_mme_logp
 
     design = design if design is not None else sparse_mme.design_for(data)
     t = data.n_traits
     priors = with_defaults(model_config, "model")["priors"]
-    fixed = fixed_covariances(model_config, data.y_scale, data.traits)
     coords = {"trait": data.traits, "trait2": data.traits, "x": data.x_names}
     with pm.Model(coords=coords) as model:
-        G, _ = covariance_prior("G", t, priors, None if fixed is None else fixed["G"])
-        R, _ = covariance_prior("R", t, priors, None if fixed is None else fixed["R"])
-        beta = fixed_effects_prior(len(data.x_names), t, priors)
+        G, _, R, _, beta = shared_priors(data, model_config)
         covs = [covariance_prior(f"cov_{eff.name}", t, priors)[0] for eff in data.random]
         covs_t = pt.stack(covs) if covs else pt.zeros((0, t, t))
         y = pm.Data("y", np.where(data.missing, 0.0, data.y))
