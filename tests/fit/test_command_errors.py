@@ -5,7 +5,6 @@ import pandas as pd
 import pytest
 import yaml
 
-from ped2g.cli import main
 from ped2g.fit.prepare import prepare
 from ped2g.config import validate
 from ped2g.pedigree.core import Pedigree
@@ -32,20 +31,10 @@ def write_study(tmp_path, phen_rows=None, config_extra=None):
 
 
 def run_fit(tmp_path, capsys, config, population="north"):
-    # The ped2g log handler keeps the stream it was created with; point it at pytest's capture
-    # for this call and back at the real stderr afterwards.
-    import logging
-    import sys
+    from cli_runner import run_cli
 
-    handlers = [h for h in logging.getLogger("ped2g").handlers if type(h) is logging.StreamHandler]
-    for handler in handlers:
-        handler.stream = sys.stderr
-    try:
-        status = main(["fit", "--config", str(config), "--population", population, "--out",
-                       str(tmp_path / "out"), "--no-progress"])
-    finally:
-        for handler in handlers:
-            handler.stream = sys.__stderr__
+    status = run_cli(["fit", "--config", str(config), "--population", population, "--out",
+                      str(tmp_path / "out"), "--no-progress"])
     err = capsys.readouterr().err.strip().splitlines()
     return status, err
 

@@ -9,8 +9,6 @@ status 1 and leaves no posterior.nc).
 """
 
 import json
-import logging
-import sys
 
 import numpy as np
 import pandas as pd
@@ -18,22 +16,14 @@ import pytest
 import xarray as xr
 import yaml
 
-from ped2g.cli import main
+from cli_runner import run_cli
 from ped2g.contracts.fit_folder import load_fit
 from ped2g.simulate.study import StudySettings, simulate_study
 
 pytestmark = pytest.mark.slow
 
 
-def _run(args):
-    handlers = [h for h in logging.getLogger("ped2g").handlers if type(h) is logging.StreamHandler]
-    for h in handlers:
-        h.stream = sys.stderr
-    try:
-        return main(args)
-    finally:
-        for h in handlers:
-            h.stream = sys.__stderr__
+_run = run_cli
 
 
 @pytest.fixture(scope="module")

@@ -9,15 +9,13 @@ refitting null compiles the sparse model once and swaps each replicate's records
 """
 
 import json
-import logging
-import sys
 
 import numpy as np
 import pytest
 import xarray as xr
 import yaml
 
-from ped2g.cli import main
+from cli_runner import run_cli
 from ped2g.contracts.fit_folder import check_fit_folder, load_fit
 from ped2g.contracts.refit_null import read_refits
 
@@ -26,15 +24,7 @@ import field_study
 pytestmark = pytest.mark.slow
 
 
-def _run(args):
-    handlers = [h for h in logging.getLogger("ped2g").handlers if type(h) is logging.StreamHandler]
-    for h in handlers:
-        h.stream = sys.stderr
-    try:
-        return main(args)
-    finally:
-        for h in handlers:
-            h.stream = sys.__stderr__
+_run = run_cli
 
 
 def test_sparse_fit_and_refit_on_a_field_design(tmp_path, capsys):

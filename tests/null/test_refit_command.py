@@ -78,23 +78,12 @@ def test_compare_refuses_fewer_replicates_than_the_rule_needs():
     (["--pilot"], "compare: {null_model: {pilot_replicates: 0}}\n", "no pilot refits to run"),
 ])
 def test_pilot_options_that_do_not_fit_the_config_are_one_line(tmp_path, capsys, extra, config_text, words):
-    import logging
-    import sys
-
-    from ped2g.cli import main
+    from cli_runner import run_cli
 
     config = tmp_path / "config.yaml"
     config.write_text("traits: [wing, tarsus]\n" + config_text)
-    # the ped2g log handler keeps the stream it was created with: point it at pytest's capture
-    handlers = [h for h in logging.getLogger("ped2g").handlers if type(h) is logging.StreamHandler]
-    for handler in handlers:
-        handler.stream = sys.stderr
-    try:
-        status = main(["null-refit", "--config", str(config), "--fits", str(tmp_path / "nofit"), "--population",
-                       "a", "--out", str(tmp_path / "out.nc"), *extra])
-    finally:
-        for handler in handlers:
-            handler.stream = sys.__stderr__
+    status = run_cli(["null-refit", "--config", str(config), "--fits", str(tmp_path / "nofit"), "--population",
+                      "a", "--out", str(tmp_path / "out.nc"), *extra])
     err = capsys.readouterr().err.strip().splitlines()
     errors = [ln for ln in err if "error:" in ln]
     assert status == 2 and len(errors) == 1 and words in errors[0], err
