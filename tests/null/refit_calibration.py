@@ -33,6 +33,7 @@ from __future__ import annotations
 
 import argparse
 import copy
+import sys
 import time
 from pathlib import Path
 
@@ -49,6 +50,8 @@ from ped2g.contracts.fit_folder import FitSet
 from ped2g.rng import generator
 
 ROOT = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(ROOT / "tests"))
+from demo_findings import designed_findings  # noqa: E402  (tests/ holds the shared checks)
 
 
 def demo_design(config_path: Path = ROOT / "config" / "config.yaml"):
@@ -105,11 +108,15 @@ def recovery_rows(rep, G_true: np.ndarray, R_true: np.ndarray, traits: list[str]
 
 
 def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int, study: int,
-            truth: dict | None = None, pilot: int = 0) -> pd.DataFrame:
+            truth: dict | None = None, pilot: int = 0, demo_truth: dict | None = None,
+            run_seed: int = 1) -> pd.DataFrame:
     """Fit one simulated study, build its refitting null, and return every compare row (and, with
     ``truth`` = {population: (G, R)}, the fits' recovery rows in ``analyse.recovery``). With
     ``pilot`` > 0 the shared G is bias-corrected from that many pilot refits per population, as
-    the workflow does (:func:`ped2g.null.refit.bias_corrected_G`)."""
+    the workflow does (:func:`ped2g.null.refit.bias_corrected_G`). With ``demo_truth`` (the demo's
+    truth file, when the study was simulated with its G matrices) the demo-findings test's checks
+    on this study are left in ``analyse.findings``. ``run_seed`` (the script's ``--seed``) keeps
+    the null's streams of runs with different seeds apart (seed 1 gives the streams it always did)."""
     pops = list(data)
     observed = {p: refitters[p].refit(Y[p], f"calibration:{study}:{p}") for p in pops}
     if truth is not None:
@@ -117,7 +124,7 @@ def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int,
                             for p in pops for r in recovery_rows(observed[p], *truth[p], data[p].traits)]
     G0 = shared_G([observed[p].G.mean(axis=0) for p in pops])
     params = {p: design_parameters(data[p], observed[p].means) for p in pops}
-    seed = int(config["sampling"]["seed"]) + 1000 * study
+    seed = int(config["sampling"]["seed"]) + 1000 * study + 1_000_000 * (run_seed - 1)
     if pilot > 0:
         pilots = [refitters[p].refit(simulate_records(data[p], G0, params[p], generator(seed, "null_pilot", p, k)),
                                      replicate_name(p, k, "null_pilot") + f":{study}").G.mean(axis=0)
@@ -146,6 +153,9 @@ def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int,
         shared_G=G0, attrs={})
     # the share of p <= 0.05 needs no Holm-reachable replicate count: allow fewer replicates
     result = compare(fits, None, config, refits=null, check_replicates=False)
+    if demo_truth is not None:
+        analyse.findings = dict(designed_findings(result.tables["tensor"], result.loadings, result.tables["gmax"],
+                                                  demo_truth), study=study)
     rows = pd.concat(result.tables.values(), ignore_index=True)
     rows = rows[rows["p_value"].notna()].copy()
     rows["study"] = study
@@ -153,24 +163,28 @@ def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int,
 
 
 def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicates: int,
-        seed: int = 1, progress=print, with_null: bool = True, pilot: int = 0) -> pd.DataFrame:
+        seed: int = 1, progress=print, with_null: bool = True, pilot: int = 0,
+        demo_truth: dict | None = None) -> pd.DataFrame:
     """Simulate and analyse ``studies`` studies on one design; every tested row of every study
     (none with ``with_null=False``, which only fits each study).
 
     The fits' recovery of the true G and h2 (one row per study, population and parameter) is left
-    in ``run.recovery``."""
+    in ``run.recovery``; with ``demo_truth``, the demo-findings checks per study in
+    ``run.findings``."""
     config = copy.deepcopy(config)
     config["checks"]["on_failure"] = "flag"
     refitters = {p: Refitter(d, "marginal", config) for p, d in data.items()}
-    out, recovery = [], []
+    out, recovery, findings = [], [], []
     truth = {p: (Gs[p], params[p].R) for p in data}
     for s in range(studies):
         start = time.perf_counter()
         Y = {p: simulate_records(d, Gs[p], params[p], generator(seed, "calibration", s, p))
              for p, d in data.items()}
         if with_null:
-            out.append(analyse(refitters, data, Y, config, replicates, s, truth, pilot))
+            out.append(analyse(refitters, data, Y, config, replicates, s, truth, pilot, demo_truth, seed))
             recovery += analyse.recovery
+            if demo_truth is not None:
+                findings.append(analyse.findings)
         else:
             for p in data:
                 fit = refitters[p].refit(Y[p], f"recovery:{s}:{p}")
@@ -178,6 +192,7 @@ def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicat
                              for r in recovery_rows(fit, *truth[p], data[p].traits)]
         progress(f"study {s + 1} of {studies} in {time.perf_counter() - start:.0f} s")
     run.recovery = pd.DataFrame(recovery)
+    run.findings = pd.DataFrame(findings)
     return pd.concat(out, ignore_index=True) if out else pd.DataFrame()
 
 
@@ -189,6 +204,16 @@ def recovery_table(recovery: pd.DataFrame) -> pd.DataFrame:
     return pd.DataFrame({"fits": g.size(), "truth_mean": g["truth"].mean(), "bias": g["bias"].mean(),
                          "bias_in_sd": g["z"].mean(), "hpd90_coverage": g["hpd_covers"].mean(),
                          "et90_coverage": g["et_covers"].mean()}).reset_index()
+
+
+def findings_table(findings: pd.DataFrame) -> str:
+    """The share of studies in which each check of the demo-findings test holds (its power)."""
+    checks = [c for c in findings.columns if c != "study"]
+    lines = [f"checks of tests/workflow/test_demo_findings.py over {len(findings)} studies (share holding):"]
+    lines += [f"  {c}: {int(findings[c].sum())} of {len(findings)}" for c in checks]
+    every = findings[checks].all(axis=1)
+    lines.append(f"  all at once: {int(every.sum())} of {len(findings)}")
+    return "\n".join(lines)
 
 
 def share_table(rows: pd.DataFrame, level: float = 0.05) -> pd.DataFrame:
@@ -246,6 +271,9 @@ def main() -> None:
         print(share_table(rows).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
         print(overall(rows))
         recovery = Path(str(args.tables).replace(".csv", "") + "_recovery.csv")
+        found = Path(str(args.tables).replace(".csv", "") + "_findings.csv")
+        if found.exists():
+            print(findings_table(pd.read_csv(found)))
         if recovery.exists():
             print(recovery_table(pd.read_csv(recovery)).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
         return
@@ -271,16 +299,21 @@ def main() -> None:
         print(recovery_summary(rec))
         return
     pilot = int(cfg["compare"]["null_model"]["pilot_replicates"] if args.pilot is None else args.pilot)
-    rows = run(data, cfg, Gs, params, args.studies, args.replicates, args.seed, pilot=pilot)
+    rows = run(data, cfg, Gs, params, args.studies, args.replicates, args.seed, pilot=pilot,
+               demo_truth=truth if args.truth else None)
     if args.out:
         rows.to_csv(args.out, index=False)
         run.recovery.to_csv(str(args.out).replace(".csv", "") + "_recovery.csv", index=False)
+        if args.truth:
+            run.findings.to_csv(str(args.out).replace(".csv", "") + "_findings.csv", index=False)
     print(f"{args.studies} studies x {args.replicates} null replicates, "
           f"{'the demo truth (power)' if args.truth else 'one shared G (calibration)'}, "
           f"{pilot} pilot refits per population for the shared G's bias correction, "
           f"{time.perf_counter() - start:.0f} s")
     print(share_table(rows).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
     print(overall(rows))
+    if args.truth:
+        print(findings_table(run.findings))
     print(f"recovery of the fits ({chains['chains']} chain(s) x ({chains['warmup']} + {chains['draws']}) each; "
           "90% intervals):")
     print(recovery_table(run.recovery).to_string(index=False, float_format=lambda x: f"{x:.3f}"))

@@ -61,17 +61,20 @@ def test_demo_study_has_the_promised_shape():
     pops = truth["populations"]
     assert [p["design"] for p in pops.values()] == ["reference", "reduced", "rotated"]
     assert len(truth["traits"]) == 4
+    # resources_demo/README.md: about 840 skinks per islet in the pedigree, 600 of them measured
     for p in pops.values():
-        assert 600 <= p["animals_in_true_pedigree"] <= 800
-        assert 450 <= p["phenotyped_animals"] <= 550
+        assert 750 <= p["animals_in_true_pedigree"] <= 950
+        assert 550 <= p["phenotyped_animals"] <= 650
         assert all(v > 0 for v in p["mean"].values())
-        assert all(0.25 <= v <= 0.6 for v in p["heritability"].values())
+        assert all(0.3 <= v <= 0.75 for v in p["heritability"].values())
     # the G matrices really differ: compare on the reference scale (numpy eigh)
     ref, red, rot = (np.array(p["G_reference_scale"]) for p in pops.values())
     lam_ref, vec_ref = np.linalg.eigh(ref)
     assert np.linalg.eigvalsh(rot) == pytest.approx(lam_ref, rel=1e-4)
     assert abs(np.linalg.eigh(rot)[1][:, -1] @ vec_ref[:, -1]) < 0.8  # leading axis turned
-    assert vec_ref[:, -2] @ red @ vec_ref[:, -2] == pytest.approx(0.2 * lam_ref[-2], rel=1e-4)
+    kept = truth["settings"]["reduction"]  # resources_demo/README.md: "keeps only 10%"
+    assert kept == 0.1
+    assert vec_ref[:, -2] @ red @ vec_ref[:, -2] == pytest.approx(kept * lam_ref[-2], rel=1e-4)
 
 
 @pytest.mark.parametrize("args, message", [

@@ -16,28 +16,30 @@ first command does, and checks that
   it has a larger posterior-mean angle between g_max vectors than any pair that does not;
 * against the refitting null (the workflow's default): the leading eigentensor's variance is a
   supported difference (Holm-adjusted p at or below compare.alpha), the reduced population's
-  deviation along the axis above has p at or below 0.05 (at present a strict expected failure,
-  p = 0.07: see DEMO_AT_ITS_POWER_LIMIT), the angle between the rotated
+  deviation along the axis above has p at or below 0.05, the angle between the rotated
   population's g_max and the reference population's has p at or below 0.05, and the g_max angle
   of the reference and the reduced population -- equal in truth (the reduction is along another
   axis) -- is not flagged (p above 0.05). "At or below" is the reading rule's comparison
   (ped2g.compare.calibrated.at_or_below): a Monte Carlo p-value k / (R + 1) has level exactly
-  alpha when rejected at p <= alpha (Davison & Hinkley 1997, section 4.2 [M]).
+  alpha when rejected at p <= alpha (Davison & Hinkley 1997, section 4.2 [M]);
+* the report's findings at a glance name the reduced and the rotated population;
+* the report's truth markers are the true values and lie inside the plotted intervals at the
+  nominal rate.
 
-The demo's 500 records per population give these tests modest power (tests/null/
-refit_calibration.py --truth measures it); the demo's numbers are fixed by its seed.
+The checks are those of tests/demo_findings.py; `python tests/null/refit_calibration.py --truth`
+measures how often each holds over studies simulated at the demo's design (its power; README,
+"Calibration and power"). The demo's own numbers are fixed by its seed.
 """
 
 from __future__ import annotations
 
 import shutil
 
-import numpy as np
 import pandas as pd
 import pytest
-import scipy.linalg
 import yaml
 
+from demo_findings import gmax_pairs, population_with, reduced_axis_rows
 from ped2g.compare.calibrated import at_or_below
 from workflow_helpers import ROOT, snakemake
 
@@ -57,51 +59,19 @@ def demo(tmp_path_factory):
     return folder, truth
 
 
-def _population_with(truth, design):
-    names = [p for p, v in truth["populations"].items() if v["design"] == design]
-    assert len(names) == 1, f"the demo should have one '{design}' population"
-    return names[0]
+def _tables(folder):
+    read = lambda name: pd.read_csv(folder / "results" / "compare" / f"{name}.csv")  # noqa: E731
+    return read("tensor"), read("loadings"), read("gmax")
 
 
 def _reduced_axis_rows(folder, truth):
-    """The tensor rows of every population's variance along the leading eigentensor's eigenvector
-    closest to the true direction of reduction, and that cosine."""
-    traits = truth["traits"]
-    reduced = _population_with(truth, "reduced")
-    reference = _population_with(truth, "reference")
-    g_red = np.array(truth["populations"][reduced]["G_variance_standardised"])
-    g_ref = np.array(truth["populations"][reference]["G_variance_standardised"])
-    ratios, vectors = scipy.linalg.eigh(g_red, g_ref)
-    direction = vectors[:, 0] / np.linalg.norm(vectors[:, 0])
-    loadings = pd.read_csv(folder / "results/compare/loadings.csv")
-    vecs = loadings[(loadings.reference == "eigentensor_vector") & (loadings.axis == 1)]
-    cosines = {}
-    for j, rows in vecs.groupby("axis2"):
-        v = rows.set_index("trait").loc[traits, "value"].to_numpy()
-        cosines[int(j)] = abs(v @ direction) / np.linalg.norm(v)
-    best = max(cosines, key=cosines.get)
-    tensor = pd.read_csv(folder / "results/compare/tensor.csv")
-    rows = tensor[(tensor.statistic == "vector_variance") & (tensor.axis == 1)
-                  & (tensor.axis2 == best)].set_index("population")
-    return rows, cosines[best]
+    tensor, loadings, _ = _tables(folder)
+    return reduced_axis_rows(tensor, loadings, truth)
 
 
-# With the bias-corrected shared G (compare.null_model.pilot_replicates: 10, the default since it
-# measured closer to an exact test: tests/null/refit_calibration.py, README "Calibration and
-# power"), the demo's reduced population's deviation along the reduced axis has p = 7/100; with
-# the uncorrected null it had 5/100. At 99 replicates the Monte Carlo SE of a p near 0.05 is
-# 0.022: the demo's 500 records per population put this designed difference at the edge of what
-# they can show. Kept as a strict expected failure (the demo's numbers are fixed by its seed, so
-# it passes unexpectedly only if they change) until the demo is sized to show it with margin.
-DEMO_AT_ITS_POWER_LIMIT = pytest.mark.xfail(
-    strict=True, reason="the demo's reduced population: p = 0.07 against the bias-corrected null "
-                        "(0.05 against the uncorrected one); the demo is at its power limit here")
-
-
-@DEMO_AT_ITS_POWER_LIMIT
 def test_reduced_population_stands_out_beyond_estimation_noise(demo):
     folder, truth = demo
-    reduced = _population_with(truth, "reduced")
+    reduced = population_with(truth, "reduced")
     rows, _ = _reduced_axis_rows(folder, truth)
     # calibrated: the reduced population stands out along that axis beyond estimation noise
     assert at_or_below(rows.loc[reduced, "p_value"], 0.05), rows[["mean", "p_value", "p_adjusted"]]
@@ -109,33 +79,27 @@ def test_reduced_population_stands_out_beyond_estimation_noise(demo):
 
 def test_reduced_population_shows_in_the_leading_eigentensor(demo):
     folder, truth = demo
-    reduced = _population_with(truth, "reduced")
+    reduced = population_with(truth, "reduced")
     rows, cosine = _reduced_axis_rows(folder, truth)
     assert cosine > 0.8, cosine
     along = rows["mean"]
     assert set(along.index) == set(truth["populations"])
     assert along.idxmin() == reduced, along.to_dict()
-    tensor = pd.read_csv(folder / "results/compare/tensor.csv")
+    tensor = _tables(folder)[0]
     leading = tensor[(tensor.statistic == "variance") & (tensor.axis == 1)].iloc[0]
     assert at_or_below(leading["p_adjusted"], 0.05) and bool(leading["supported"]), leading
 
 
 def test_rotated_population_shows_the_largest_gmax_angle(demo):
     folder, truth = demo
-    rotated = _population_with(truth, "rotated")
-    gmax = pd.read_csv(folder / "results/compare/gmax.csv")
-    pairs = gmax[gmax.statistic == "angle_between"]
-    assert len(pairs) == 3
-    with_rotated = pairs[(pairs.population == rotated) | (pairs.population2 == rotated)]["mean"]
-    without = pairs[(pairs.population != rotated) & (pairs.population2 != rotated)]
-    assert with_rotated.min() > without["mean"].max(), pairs[["population", "population2", "mean"]]
+    gmax = _tables(folder)[2]
+    assert len(gmax[gmax.statistic == "angle_between"]) == 3
+    with_rotated, turned, without = gmax_pairs(gmax, truth)
+    assert len(with_rotated) == 2 and len(turned) == 1 and len(without) == 1
+    assert with_rotated.min() > without["mean"].max(), (with_rotated, without["mean"])
     # calibrated: the rotated g_max against the reference's is beyond estimation noise, while the
     # angle of the two populations whose g_max is the same in truth is not flagged
-    reference = _population_with(truth, "reference")
-    turned = pairs[pairs.population.isin([rotated, reference]) & pairs.population2.isin([rotated, reference])]
-    assert len(turned) == 1 and at_or_below(turned["p_value"].iloc[0], 0.05), \
-        pairs[["population", "population2", "p_value"]]
-    assert len(without) == 1
+    assert at_or_below(turned["p_value"].iloc[0], 0.05), turned[["population", "population2", "p_value"]]
     assert without["p_value"].iloc[0] > 0.05 and not bool(without["supported"].iloc[0]), without
 
 
@@ -163,7 +127,7 @@ def test_the_findings_summary_names_the_rotated_population(demo):
     # "not supported": here the rotated population's g_max (the reduced population's variance:
     # test_the_findings_summary_names_the_reduced_population).
     folder, truth = demo
-    rotated = _population_with(truth, "rotated")
+    rotated = population_with(truth, "rotated")
     text, sentences = _findings_sentences(folder)
     about_rotated = [s for s in sentences if rotated in s]
     assert about_rotated, text
@@ -179,12 +143,41 @@ def _findings_sentences(folder):
     return text, re.split(r"(?<=\.) (?=[A-Za-z])", text)
 
 
-@DEMO_AT_ITS_POWER_LIMIT
 def test_the_findings_summary_names_the_reduced_population(demo):
     # named either as a supported difference or as a lead (raw p at or below alpha, labelled "not
-    # supported"): with p = 0.07 it is neither (see DEMO_AT_ITS_POWER_LIMIT)
+    # supported")
     folder, truth = demo
-    reduced = _population_with(truth, "reduced")
+    reduced = population_with(truth, "reduced")
     text, sentences = _findings_sentences(folder)
     about_reduced = [s for s in sentences if reduced in s and "genetic variance" in s and "less" in s]
     assert about_reduced, text
+
+
+def test_truth_markers_lie_inside_the_plotted_intervals(demo):
+    # The report draws a truth marker beside every interval that has a true value (the demo's
+    # truth.yaml sits beside its phenotypes): the eigenvalues of each G and every population's
+    # variance along the fixed axes. The markers must be the true values -- the eigenvalues of each
+    # population's true G on the compared (variance-standardised) scale, exact up to the truth
+    # file's six significant digits -- and lie inside the plotted HPD intervals at the nominal rate:
+    # at most the number of misses that a calibrated interval exceeds with probability 0.01
+    # (binomial quantile, scipy.stats.binom).
+    import numpy as np
+    import scipy.stats
+
+    folder, truth = demo
+    config = yaml.safe_load((folder / "config.yaml").read_text(encoding="utf-8"))
+    mass = float(config["compare"]["interval_mass"])
+    tables = folder / "results" / "report" / "tables"
+    eigen = pd.read_csv(tables / "eigenvalues.csv")
+    assert set(eigen["population"]) == set(truth["populations"])
+    for pop, rows in eigen.groupby("population"):
+        G = np.array(truth["populations"][pop]["G_variance_standardised"], dtype=float)
+        expected = np.sort(np.linalg.eigvalsh(G))[::-1][: len(rows)]
+        np.testing.assert_allclose(rows.sort_values("axis")["true_value"], expected, rtol=1e-4)
+    along = pd.read_csv(tables / "variance_along_axes.csv")
+    assert along["true_value"].notna().all() and len(along) >= 2 * len(truth["populations"])
+    rows = pd.concat([eigen, along], ignore_index=True)
+    inside = (rows["hpd_lower"] <= rows["true_value"]) & (rows["true_value"] <= rows["hpd_upper"])
+    allowed = int(scipy.stats.binom.ppf(0.99, len(rows), 1 - mass))
+    assert (~inside).sum() <= allowed, rows.loc[~inside, ["population", "axis", "hpd_lower", "hpd_upper",
+                                                           "true_value"]]

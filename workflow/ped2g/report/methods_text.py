@@ -317,8 +317,8 @@ def shared_G_text(refit: dict[str, Any]) -> str:
 #: What simulation says about single G elements at a few hundred records (measured, see README).
 RECOVERY_CAUTION = (
     "Each population's posterior of G is shrunk towards the prior when its data are few. Measured on "
-    "90 simulated fits at the demo's design (500 records per population, 4 traits, 10% missing "
-    "values, true genetic correlations up to 0.6; tests/null/refit_calibration.py --truth "
+    "90 simulated fits at a demo-like design (500 records per population, 4 traits, heritabilities "
+    "0.40-0.45, 10% missing values, true genetic correlations up to 0.6; tests/null/refit_calibration.py --truth "
     "--recovery-only, 2 chains x 1,000 draws, the default LKJ(1) prior): posterior means of the "
     "genetic covariances were pulled towards zero by 0.19 posterior SDs on average, variances and "
     "heritabilities by 0.10 SD; 90% equal-tailed intervals covered the true G variances, covariances "

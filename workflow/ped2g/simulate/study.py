@@ -89,7 +89,7 @@ class StudySettings:
         Phenotypic SD of each trait as a fraction of its mean, in the first population.
     heritability : tuple of float, optional
         Narrow-sense heritability of each trait in the reference design. Default: evenly from
-        0.45 down to 0.40.
+        0.60 down to 0.55.
     genetic_correlation, residual_correlation : float
         ρ of the correlation structures ρ^|k−l| (neighbouring traits in the list correlate most).
     reduction : float
@@ -149,18 +149,18 @@ class StudySettings:
     heritability: tuple[float, ...] | None = None
     genetic_correlation: float = 0.6
     residual_correlation: float = 0.3
-    reduction: float = 0.2
+    reduction: float = 0.1
     reduced_axis: int = 1
     rotation_degrees: float = 45.0
     sex_effect: float = 0.5
     G: Mapping[str, Any] | None = field(default=None, compare=False)
     R: Any = field(default=None, compare=False)
-    animals: int = 700
+    animals: int = 840
     founders: int = 60
     years: int = 10
     max_breeding_age: int = 3
     breeding_males: float = 0.5
-    phenotyped: int = 500
+    phenotyped: int = 600
     records_per_animal: int = 1
     permanent_fraction: float = 0.0
     brood_fraction: float = 0.0
@@ -215,7 +215,7 @@ class StudySettings:
         if self.heritability is not None:
             return np.asarray(self.heritability, dtype=float)
         t = len(self.traits)
-        return np.array([0.45]) if t == 1 else np.linspace(0.45, 0.40, t)
+        return np.array([0.6]) if t == 1 else np.linspace(0.60, 0.55, t)
 
 
 def _validate(s: StudySettings) -> None:
@@ -486,8 +486,8 @@ def simulate_study(settings: StudySettings | None = None, seed: int = DEMO_SEED)
     Parameters
     ----------
     settings : StudySettings, optional
-        Sizes and features; the defaults make the demo study (3 populations of 700 animals,
-        500 phenotyped, 4 traits). For a small, fast study in a test, e.g.
+        Sizes and features; the defaults make the demo study (3 populations of 840 animals,
+        600 phenotyped, 4 traits). For a small, fast study in a test, e.g.
         ``StudySettings(populations=("a", "b"), traits=("x", "y"), animals=120, founders=20,
         years=4, phenotyped=90)``.
     seed : int
@@ -711,7 +711,7 @@ ASSUMPTIONS = [
     "Records: y = intercept + sex_effect*[male] + breeding value (+ brood + permanent effects when present) + residual, all normal; residuals independent between records.",
     "G, R and P are in original units; heritability = diag(G)/diag(P); mean = intercept + sex_effect/2 (a 50:50 sex ratio).",
     "G_reference_scale is G divided by the reference phenotypic SDs (phenotypic_cv times the first population's female means); the designed differences (reduced, rotated) are exact on this scale. G_variance_standardised divides by each population's own phenotypic SDs and G_mean_standardised by its own means, so on those scales the differences also include the changed scaling.",
-    "A posterior that misses these values is not by itself a failure: with ~500 phenotyped animals per population, G is estimated with wide uncertainty.",
+    "A posterior that misses these values is not by itself a failure: with {phenotyped} phenotyped animals per population, G is estimated with wide uncertainty.",
 ]
 
 
@@ -735,6 +735,6 @@ def _truth(s: StudySettings, seed: int, params: dict, pop_truth: dict, features:
         "traits": list(s.traits),
         "populations": pop_truth,
         "data_features": features,
-        "assumptions": ASSUMPTIONS,
+        "assumptions": [a.format(phenotyped=s.phenotyped) for a in ASSUMPTIONS],
         "settings": settings,
     }
