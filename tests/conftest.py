@@ -2,10 +2,12 @@
 the tests out for pytest-xdist.
 
 The README's test command runs the tests on every core (pyproject.toml: ``-n auto --dist
-loadgroup --no-loadscope-reorder``). Each test file is one unit of work, so its module fixtures
-are built once; the files that share a session fixture form one unit, so it is built once too;
-and the longest units are queued first, so that no worker is left with a long one at the end.
-``pytest -n 0`` runs everything in one process in the same order.
+loadfile --no-loadscope-reorder``). The scheduler below (``pytest_xdist_make_scheduler``) makes
+each test file one unit of work, so its module fixtures are built once, and puts the files that
+share an expensive session fixture into one unit (``SHARED_SESSION_FILES``), so it is built
+once too; the hook below queues the longest units first (``LONGEST_FIRST``), so that no worker
+is left with a long one at the end. ``pytest -n 0`` runs everything in one process in the same
+order.
 """
 
 import sys
@@ -15,12 +17,18 @@ import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-# Session fixtures that are expensive to build (a whole workflow run, a whole report): every test
-# using one runs on the worker that built it.
-SHARED_SESSION_FIXTURES = ("tiny_local_run", "built_report")
+# Files whose tests use an expensive session fixture (a whole workflow run, a whole report), by
+# that fixture: they run on one worker, which builds it once. Collection fails, naming the file,
+# if a test uses one of these fixtures from a file not listed here (the SLURM test asks for the
+# local run at run time, so it is listed by hand).
+SHARED_SESSION_FILES = {
+    "tiny_local_run": ("tests/workflow/test_workflow_run.py", "tests/workflow/test_workflow_slurm.py"),
+    "built_report": ("tests/report/test_report.py", "tests/report/test_chromium.py"),
+}
+_UNIT_OF_FILE = {path: fixture for fixture, paths in SHARED_SESSION_FILES.items() for path in paths}
 
-# Units measured longest in a serial run of the suite (pytest --durations), longest first;
-# every other file follows in collection order.
+# Units measured longest in a run of the suite (pytest --durations), longest first; every
+# other file follows in collection order.
 LONGEST_FIRST = (
     "tests/workflow/test_demo_findings.py",
     "tiny_local_run",
@@ -28,26 +36,37 @@ LONGEST_FIRST = (
     "tests/null/test_refit_calibration.py",
     "tests/fit/test_sparse_field_run.py",
     "tests/fit/test_sparse_engine.py",
-    "tests/fit/test_latent_vs_marginal.py",
     "tests/fit/test_command_run.py",
+    "tests/fit/test_latent_vs_marginal.py",
 )
 
 
-def work_unit(item: pytest.Item) -> str:
-    """The xdist group of a test: the group it is marked with (a file whose fixtures ask for a
-    shared one at run time says so), else a shared session fixture it uses, else its file."""
-    marked = item.get_closest_marker("xdist_group")
-    if marked is not None:
-        return str(marked.args[0] if marked.args else marked.kwargs.get("name", "default"))
-    shared = [name for name in SHARED_SESSION_FIXTURES if name in item.fixturenames]
-    return shared[0] if shared else item.nodeid.split("::")[0]
+def work_unit(nodeid: str) -> str:
+    """The unit of work of a test: the shared session fixture of its file, else its file."""
+    path = nodeid.split("::")[0]
+    return _UNIT_OF_FILE.get(path, path)
 
 
 @pytest.hookimpl(tryfirst=True)
 def pytest_collection_modifyitems(config, items):
-    rank = {unit: i for i, unit in enumerate(LONGEST_FIRST)}
-    units = {item.nodeid: work_unit(item) for item in items}
-    items.sort(key=lambda item: rank.get(units[item.nodeid], len(rank)))  # stable: files keep their order
     for item in items:
-        if item.get_closest_marker("xdist_group") is None:
-            item.add_marker(pytest.mark.xdist_group(units[item.nodeid]))
+        path = item.nodeid.split("::")[0]
+        for fixture in SHARED_SESSION_FILES:
+            if fixture in item.fixturenames and _UNIT_OF_FILE.get(path) != fixture:
+                raise pytest.UsageError(f"{path} uses the session fixture {fixture!r}: add it to "
+                                        "SHARED_SESSION_FILES in tests/conftest.py")
+    rank = {unit: i for i, unit in enumerate(LONGEST_FIRST)}
+    items.sort(key=lambda item: rank.get(work_unit(item.nodeid), len(rank)))  # stable within a unit
+
+
+@pytest.hookimpl(optionalhook=True)
+def pytest_xdist_make_scheduler(config, log):
+    from xdist.scheduler import LoadScopeScheduling
+
+    class WorkUnitScheduling(LoadScopeScheduling):
+        """xdist's per-file scheduling, with the files of SHARED_SESSION_FILES as one unit."""
+
+        def _split_scope(self, nodeid: str) -> str:
+            return work_unit(nodeid)
+
+    return WorkUnitScheduling(config, log)

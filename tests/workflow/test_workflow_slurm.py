@@ -33,9 +33,9 @@ import yaml
 
 from workflow_helpers import ROOT, make_study, snakemake
 
-# the fixture below asks for tiny_local_run only when SLURM answers, so it is not among the
-# tests' declared fixtures: the group keeps them on the worker that builds it (tests/conftest.py)
-pytestmark = [pytest.mark.slow, pytest.mark.xdist_group("tiny_local_run")]
+# the fixture below asks for tiny_local_run only when SLURM answers: tests/conftest.py lists this
+# file with the ones that share that run, so the run is built once
+pytestmark = pytest.mark.slow
 
 POPULATIONS = ["north", "south"]
 ACCOUNT = os.environ.get("PED2G_SLURM_ACCOUNT", "ped2g-ci")
