@@ -29,7 +29,7 @@ exactly in one of two ways (``model.missing_values``):
   projections are small.
 
 ``auto`` takes ``nuts`` while the projections have at most :data:`AUTO_JOINT_CELLS` cells and
-``gibbs`` above (on the demo's islets of 500 records, the Gibbs route left one trait's variance
+``gibbs`` above (on the demo's former islets of 500 records, the Gibbs route left one trait's variance
 at bulk ESS 303 and tail ESS 118 where the joint route passed the checks; at n = 8,000 the joint
 route cannot finish).
 
