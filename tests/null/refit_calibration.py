@@ -164,9 +164,12 @@ def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int,
 
 def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicates: int,
         seed: int = 1, progress=print, with_null: bool = True, pilot: int = 0,
-        demo_truth: dict | None = None) -> pd.DataFrame:
-    """Simulate and analyse ``studies`` studies on one design; every tested row of every study
-    (none with ``with_null=False``, which only fits each study).
+        demo_truth: dict | None = None, first: int = 0, checkpoint=None) -> pd.DataFrame:
+    """Simulate and analyse studies ``first`` .. ``first + studies - 1`` on one design; every tested
+    row of every study (none with ``with_null=False``, which only fits each study). Study ``s`` draws
+    from the same streams whatever ``first`` is, so a run split over processes gives the rows of
+    one long run. ``checkpoint(rows, recovery, findings)``, if given, is called after every study
+    with everything so far, so an interrupted run keeps its finished studies.
 
     The fits' recovery of the true G and h2 (one row per study, population and parameter) is left
     in ``run.recovery``; with ``demo_truth``, the demo-findings checks per study in
@@ -176,7 +179,7 @@ def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicat
     refitters = {p: Refitter(d, "marginal", config) for p, d in data.items()}
     out, recovery, findings = [], [], []
     truth = {p: (Gs[p], params[p].R) for p in data}
-    for s in range(studies):
+    for s in range(first, first + studies):
         start = time.perf_counter()
         Y = {p: simulate_records(d, Gs[p], params[p], generator(seed, "calibration", s, p))
              for p, d in data.items()}
@@ -190,7 +193,10 @@ def run(data: dict, config: dict, Gs: dict, params: dict, studies: int, replicat
                 fit = refitters[p].refit(Y[p], f"recovery:{s}:{p}")
                 recovery += [dict(r, population=p, study=s, rhat_max=fit.rhat_max, ess_bulk_min=fit.ess_bulk_min)
                              for r in recovery_rows(fit, *truth[p], data[p].traits)]
-        progress(f"study {s + 1} of {studies} in {time.perf_counter() - start:.0f} s")
+        progress(f"study {s + 1} ({s + 1 - first} of {studies}) in {time.perf_counter() - start:.0f} s")
+        if checkpoint is not None:
+            checkpoint(pd.concat(out, ignore_index=True) if out else pd.DataFrame(),
+                       pd.DataFrame(recovery), pd.DataFrame(findings))
     run.recovery = pd.DataFrame(recovery)
     run.findings = pd.DataFrame(findings)
     return pd.concat(out, ignore_index=True) if out else pd.DataFrame()
@@ -254,6 +260,9 @@ def main() -> None:
     parser.add_argument("--replicates", type=int, default=39)
     parser.add_argument("--truth", action="store_true", help="simulate with the demo's true G matrices (power)")
     parser.add_argument("--seed", type=int, default=1)
+    parser.add_argument("--first-study", type=int, default=0,
+                        help="index of the first study (split one run over processes: --first-study 0 "
+                             "--studies 10 and --first-study 10 --studies 10 give the rows of --studies 20)")
     parser.add_argument("--out", default=None, help="CSV of every tested row")
     parser.add_argument("--recovery-only", action="store_true", help="fit the studies without a null")
     parser.add_argument("--chains", type=int, default=None, help="chains per fit (default: the refits')")
@@ -277,6 +286,15 @@ def main() -> None:
         if recovery.exists():
             print(recovery_table(pd.read_csv(recovery)).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
         return
+    def save(rows: pd.DataFrame, recovery: pd.DataFrame, findings: pd.DataFrame) -> None:
+        stem = str(args.out).replace(".csv", "")
+        if len(rows):
+            rows.to_csv(args.out, index=False)
+        recovery.to_csv(stem + "_recovery.csv", index=False)
+        if len(findings):
+            findings.to_csv(stem + "_findings.csv", index=False)
+
+    checkpoint = save if args.out else None
     data, cfg, truth = demo_design()
     cfg = validate({**cfg, "compare": {**cfg["compare"], "null_model": {**cfg["compare"]["null_model"]}}})
     for key in ("chains", "warmup", "draws"):
@@ -288,7 +306,7 @@ def main() -> None:
     Gs, params = true_parameters(data, truth, shared=not args.truth)
     start = time.perf_counter()
     if args.recovery_only:
-        run(data, cfg, Gs, params, args.studies, 0, args.seed, with_null=False)
+        run(data, cfg, Gs, params, args.studies, 0, args.seed, with_null=False, first=args.first_study)
         rec = run.recovery
         if args.out:
             rec.to_csv(args.out, index=False)
@@ -300,12 +318,9 @@ def main() -> None:
         return
     pilot = int(cfg["compare"]["null_model"]["pilot_replicates"] if args.pilot is None else args.pilot)
     rows = run(data, cfg, Gs, params, args.studies, args.replicates, args.seed, pilot=pilot,
-               demo_truth=truth if args.truth else None)
+               demo_truth=truth if args.truth else None, first=args.first_study, checkpoint=checkpoint)
     if args.out:
-        rows.to_csv(args.out, index=False)
-        run.recovery.to_csv(str(args.out).replace(".csv", "") + "_recovery.csv", index=False)
-        if args.truth:
-            run.findings.to_csv(str(args.out).replace(".csv", "") + "_findings.csv", index=False)
+        save(rows, run.recovery, run.findings)
     print(f"{args.studies} studies x {args.replicates} null replicates, "
           f"{'the demo truth (power)' if args.truth else 'one shared G (calibration)'}, "
           f"{pilot} pilot refits per population for the shared G's bias correction, "
