@@ -9,6 +9,8 @@ record, 10% of trait values missing at random, a sex effect) is fitted by
   data; PyMC's NUTS);
 * ``marginal_nuts``: the same with the missing cells as NUTS parameters (nutpie), for comparison;
 * ``latent``: breeding values sampled through the pedigree recursion (ped2g.fit.latent);
+* ``sparse``: breeding values integrated out through the sparse mixed-model equations
+  (ped2g.fit.sparse; setup = ordering and symbolic factorisation), missing cells dropped exactly;
 * ``dense``: the same latent model through a dense Cholesky factor of A (baseline; setup = forming
   and factorising A), skipped above ``--dense-max-n``;
 * ``gibbs``: blocked Gibbs sampling on Henderson's mixed model equations with inverse-Wishart
@@ -44,7 +46,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-ENGINES = ("marginal", "marginal_nuts", "latent", "dense", "gibbs")
+ENGINES = ("marginal", "marginal_nuts", "latent", "sparse", "dense", "gibbs")
 DEFAULT_ENGINES = ("marginal", "latent", "dense", "gibbs")
 
 
@@ -206,10 +208,11 @@ def run_marginal_gibbs(data, args) -> dict:
 def run_nuts(engine: str, data, args) -> dict:
     import nutpie
 
-    from ped2g.fit import latent, marginal, sample
+    from ped2g.fit import latent, marginal, sample, sparse, sparse_mme
 
     model_config = _model_config("nuts")
     setup = 0.0
+    module = {"marginal": marginal, "sparse": sparse}.get(engine, latent)
     if engine == "marginal":
         prepared = _marginal_rotation(data, model_config)
         if isinstance(prepared, str):
@@ -220,6 +223,12 @@ def run_nuts(engine: str, data, args) -> dict:
     elif engine == "latent":
         model = latent.build_model(data, model_config)
         note = ""
+    elif engine == "sparse":
+        start = time.perf_counter()
+        design = sparse_mme.design_for(data)
+        setup = time.perf_counter() - start
+        model = sparse.build_model(data, model_config, design)
+        note = f"{design.n_unknowns:,} unknowns, {design.factor_nnz:,} non-zeros in the factor"
     else:
         from benchmarks.baselines import dense_latent
 
@@ -228,7 +237,6 @@ def run_nuts(engine: str, data, args) -> dict:
                             f"and O(n^3) work (--dense-max-n {args.dense_max_n})"}
         model, setup = dense_latent.build_model(data, model_config)
         note = "setup = form and factor dense A"
-    module = marginal if engine == "marginal" else latent
     options = dict(getattr(module, "NUTPIE_OPTIONS", {}))
     with sample.numba_optimisation(getattr(module, "NUMBA_OPT_LEVEL", None)), sample.exact_numba_math():
         start = time.perf_counter()
