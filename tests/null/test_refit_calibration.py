@@ -57,3 +57,20 @@ def test_p_values_are_uniform_under_a_shared_G(rows, method, statistic):
     assert ((p > 0) & (p < 1)).all()
     result = scipy.stats.kstest(p, "uniform")
     assert result.pvalue > 0.001, (method, statistic, np.sort(per_study["p_value"].to_numpy()))
+
+
+def test_clustered_se_reduces_to_the_binomial_se_and_ignores_duplicated_rows():
+    """The calibration script's study-clustered SE (tests/null/refit_calibration.py): with one row
+    per study it is the usual SE of a proportion, sqrt(p (1 - p) / (S - 1)) (exact identity), and
+    copying every study's row k times (rows of a study perfectly dependent) must not shrink it, as
+    a binomial SE over the rows would by sqrt(k)."""
+    import pandas as pd
+    from refit_calibration import clustered_se
+
+    hit = pd.Series([1, 0, 0, 1, 0, 0, 0, 0, 0, 1] * 2, dtype=float)
+    study = pd.Series(np.arange(20))
+    p = hit.mean()
+    assert clustered_se(hit, study) == pytest.approx(np.sqrt(p * (1 - p) / 19), rel=1e-12)
+    k = 3
+    assert clustered_se(pd.Series(np.repeat(hit.to_numpy(), k)), pd.Series(np.repeat(study.to_numpy(), k))) \
+        == pytest.approx(clustered_se(hit, study), rel=1e-12)
