@@ -99,14 +99,17 @@ def run_engine(name: str, data, cfg, args, cap: float) -> dict:
         compiled = nutpie.compile_pymc_model(built.model, backend="numba", var_names=names)
     compile_s = time.perf_counter() - start
     start = time.perf_counter()
-    sampler = nutpie.sample(compiled, chains=args.chains, tune=args.warmup, draws=args.draws, seed=args.seed,
-                            cores=args.cores, progress_bar=False, blocking=False, **(built.nutpie_options or {}))
-    stopped = False
-    try:
-        idata = sampler.wait(timeout=cap)
-    except TimeoutError:
-        idata = sampler.abort()
-        stopped = True
+    # the BLAS threads the fit stage gives each chain (ped2g.fit.sample.blas_threads)
+    with sample.blas_thread_limit(args.blas_threads or sample.blas_threads(min(args.chains, args.cores))):
+        sampler = nutpie.sample(compiled, chains=args.chains, tune=args.warmup, draws=args.draws, seed=args.seed,
+                                cores=args.cores, progress_bar=False, blocking=False,
+                                **(built.nutpie_options or {}))
+        stopped = False
+        try:
+            idata = sampler.wait(timeout=cap)
+        except TimeoutError:
+            idata = sampler.abort()
+            stopped = True
     sample_s = time.perf_counter() - start
     iters = _iterations(idata)
     planned = args.chains * (args.warmup + args.draws)
@@ -138,6 +141,8 @@ def main(argv=None) -> int:
     parser.add_argument("--warmup", type=int, default=300)
     parser.add_argument("--draws", type=int, default=300)
     parser.add_argument("--seed", type=int, default=1)
+    parser.add_argument("--blas-threads", type=int, default=None,
+                        help="BLAS threads while sampling (default: the fit stage's, CPUs / parallel chains)")
     parser.add_argument("--engines", nargs="+", default=["sparse", "marginal"], choices=["sparse", "marginal"])
     parser.add_argument("--cap-sparse", type=float, default=1800.0, help="wall-clock cap of sampling (s)")
     parser.add_argument("--cap-marginal", type=float, default=600.0, help="wall-clock cap of sampling (s)")

@@ -243,14 +243,16 @@ def run_nuts(engine: str, data, args) -> dict:
         compiled = nutpie.compile_pymc_model(model, backend="numba", var_names=["G"])
         compile_s = time.perf_counter() - start
     start = time.perf_counter()
-    sampler = nutpie.sample(compiled, chains=args.chains, tune=args.warmup, draws=args.draws,
-                            seed=args.seed, cores=args.cores, progress_bar=False, blocking=False,
-                            target_accept=args.target_accept, **options)
-    try:
-        idata = sampler.wait(timeout=args.nuts_budget)
-    except TimeoutError:
-        idata = sampler.abort()
-        note = (note + "; " if note else "") + f"stopped by --nuts-budget {args.nuts_budget:.0f} s"
+    # the BLAS threads the fit stage gives each chain (ped2g.fit.sample.blas_threads)
+    with sample.blas_thread_limit(sample.blas_threads(min(args.chains, args.cores))):
+        sampler = nutpie.sample(compiled, chains=args.chains, tune=args.warmup, draws=args.draws,
+                                seed=args.seed, cores=args.cores, progress_bar=False, blocking=False,
+                                target_accept=args.target_accept, **options)
+        try:
+            idata = sampler.wait(timeout=args.nuts_budget)
+        except TimeoutError:
+            idata = sampler.abort()
+            note = (note + "; " if note else "") + f"stopped by --nuts-budget {args.nuts_budget:.0f} s"
     sample_s = time.perf_counter() - start
     steps = _total(idata, "sample_stats", "n_steps") + _total(idata, "warmup_sample_stats", "n_steps")
     divergences = _total(idata, "sample_stats", "diverging")

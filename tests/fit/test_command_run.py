@@ -38,9 +38,9 @@ def study(tmp_path_factory):
     cfg = {"data": {"pedigree": str(root / "ped.csv"), "phenotypes": str(root / "phen.csv")},
            "traits": ["mass", "wing", "tail"], "fixed": {"sex": "categorical"},
            "random": [{"name": "brood", "column": "brood"}, {"name": "permanent", "column": "id"}],
-           # the Gibbs route for missing values, with extra random effects (auto would sample these
-           # few missing cells by NUTS)
-           "model": {"missing_values": "gibbs"},
+           # the marginal engine's Gibbs route for missing values, with extra random effects (auto
+           # would take the sparse engine for these effects, and sample few missing cells by NUTS)
+           "model": {"engine": "marginal", "missing_values": "gibbs"},
            "sampling": {"chains": 2, "warmup": 150, "draws": 150, "seed": 4},
            "checks": {"on_failure": "flag"}}
     (root / "config.yaml").write_text(yaml.safe_dump(cfg))

@@ -1,9 +1,11 @@
 """The engine choice follows model.engine, the design and the engines' limits (docs/methods.md §2.9).
 
-Oracles: the rule as documented (a marginal engine beyond memory: sparse; otherwise marginal while
-it prefers itself; else latent) and exact arithmetic of the memory need
+Oracles: the rule as documented (extra random effects, or a marginal engine beyond memory: sparse
+where its factor fits; otherwise marginal while it prefers itself; else latent) and exact arithmetic of the memory need
 (24 bytes x records^2 + a constant, docs/methods.md §2.5).
 """
+
+import dataclasses
 
 import numpy as np
 import pytest
@@ -70,25 +72,33 @@ def test_marginal_engine_needs_its_eigendecomposition_to_fit_in_memory(monkeypat
     assert engine.choose(data, "auto")[0] == "marginal"
 
 
-def test_extra_random_effects_keep_the_marginal_engine_within_memory(monkeypatch):
-    # The sparse engine was not faster per effective sample on the field design measured
-    # (benchmarks/README.md), so auto keeps the marginal engine there while it fits in memory.
+def test_extra_random_effects_take_the_sparse_engine(monkeypatch):
+    # The sparse engine integrates every extra level out; on the field design measured it finished
+    # sooner per effective sample than the marginal engine sampling each level (benchmarks/README.md),
+    # so auto takes it for extra random effects, within memory or beyond the marginal engine's.
     import field_study
     from ped2g import machine
 
     data, cfg, _ = field_study.design(seed=2, animals=120, founders=20, phenotyped=60)
     assert [e.name for e in data.random] == ["maternal", "permanent", "cohort"]
-    name, _, reason = engine.choose(data, "auto", cfg["model"])
-    assert name == "marginal" and "not sparse: the marginal engine fits in memory" in reason
-    # beyond the marginal engine's memory the same design goes to the sparse engine
+    name, eng, reason = engine.choose(data, "auto", cfg["model"])
+    assert name == "sparse" and isinstance(eng, sparse.SparseEngine)
+    assert "maternal, permanent, cohort" in reason and "integrated out" in reason and "non-zeros" in reason
+    # the same records without the extra effects keep the marginal engine, and the reason says why
+    plain = dataclasses.replace(data, random=[])
+    name, _, reason = engine.choose(plain, "auto", cfg["model"])
+    assert name == "marginal" and "not sparse: without extra random effects" in reason
+    # beyond the marginal engine's memory the design goes to the sparse engine, saying so
     need = marginal.memory_needed(data.n_records)
     monkeypatch.setattr(machine, "available_memory", lambda: need / marginal.MEMORY_SHARE * 0.99)
     name, eng, reason = engine.choose(data, "auto", cfg["model"])
-    assert name == "sparse" and isinstance(eng, sparse.SparseEngine)
-    assert "marginal engine does not apply" in reason and "non-zeros" in reason
-    # asked for by name, the sparse engine runs within memory too
+    assert name == "sparse" and "marginal engine does not apply" in reason
+    # ...and if its factor does not fit either, to the latent engine
+    monkeypatch.setattr(sparse, "BYTES_PER_FACTOR_NONZERO", 1e12)
+    assert engine.choose(data, "auto", cfg["model"])[0] == "latent"
+    # asked for by name, the marginal engine still runs a design with extra effects
     monkeypatch.setattr(machine, "available_memory", lambda: None)
-    assert engine.choose(data, "sparse", cfg["model"])[0] == "sparse"
+    assert engine.choose(data, "marginal", cfg["model"])[0] == "marginal"
 
 
 def test_the_demo_keeps_the_marginal_engine():
@@ -112,4 +122,4 @@ def test_the_demo_keeps_the_marginal_engine():
         data = prepare(config, phen, ped, population)
         name, _, reason = engine.choose(data, "auto", config["model"])
         assert name == "marginal", (population, reason)
-        assert "not sparse: the marginal engine fits in memory" in reason
+        assert "not sparse: without extra random effects the marginal engine fits in memory" in reason

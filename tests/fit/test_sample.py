@@ -58,6 +58,30 @@ def test_engine_sampler_options_reach_nutpie():
     assert abs(female.mean() - SOLUTIONS["E1"]["WWG"][1]) < 4 * mcse + 5e-4
 
 
+def test_blas_threads_share_the_cpus_between_parallel_chains(monkeypatch):
+    # Chains that sample at once share the CPUs: with 2 CPUs two chains get one BLAS thread each
+    # (the oversubscription measured in benchmarks/README.md), one chain keeps both, and never 0.
+    monkeypatch.setattr(sample, "available_cpus", lambda: 2)
+    assert [sample.blas_threads(c) for c in (1, 2, 4)] == [2, 1, 1]
+    monkeypatch.setattr(sample, "available_cpus", lambda: 8)
+    assert [sample.blas_threads(c) for c in (1, 2, 4, 0)] == [8, 4, 2, 8]
+
+
+def test_blas_thread_limit_holds_inside_and_is_lifted_after():
+    # Read back through threadpoolctl (the general-purpose library that sets it): every BLAS
+    # library loaded here (numpy's and scipy's OpenBLAS in a pip install) runs one thread inside.
+    import scipy.linalg  # noqa: F401  (loads scipy's BLAS too)
+    from threadpoolctl import threadpool_info
+
+    before = {i["filepath"]: i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas"}
+    assert before, "no BLAS library is loaded"
+    with sample.blas_thread_limit(1):
+        inside = {i["filepath"]: i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas"}
+    after = {i["filepath"]: i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas"}
+    assert set(inside.values()) == {1}
+    assert after == before
+
+
 def test_numba_optimisation_level_is_set_inside_and_restored(monkeypatch):
     from numba.core import config as numba_config
 

@@ -8,15 +8,16 @@ eigendecomposition). The fit stage (:mod:`ped2g.fit.pipeline`) and the refitting
 
 Choosing: ``auto`` tries the engines in the order of :data:`AUTO_ORDER` and takes the first that
 prefers itself and applies (docs/methods.md §2.9). The sparse engine (every random effect
-integrated out through the sparse mixed-model equations) comes first and prefers itself when the
-marginal engine cannot fit the data in memory. The marginal engine (breeding values integrated
-out; far better mixing of G per gradient than the latent engine) applies while its dense
-eigendecomposition fits in the memory this process has (:func:`ped2g.fit.marginal.memory_needed`)
-and prefers itself while the pre-rotated projections that every gradient touches stay below
-:data:`ped2g.fit.marginal.AUTO_PROJECTION_CELLS`; otherwise the latent engine (linear cost in the
-number of animals, no dense matrices). So a design that fits in memory (the demo, and field
-designs with extra random effects) keeps the marginal engine. The choice and its reason go into
-diagnostics.json.
+integrated out through the sparse mixed-model equations) comes first and prefers itself for designs
+with extra random effects (maternal, permanent-environment, cohort, ...) and whenever the marginal
+engine cannot fit the data in memory; it applies while its factor fits. The marginal engine
+(breeding values integrated out; far better mixing of G per gradient than the latent engine)
+applies while its dense eigendecomposition fits in the memory this process has
+(:func:`ped2g.fit.marginal.memory_needed`) and prefers itself while the pre-rotated projections that
+every gradient touches stay below :data:`ped2g.fit.marginal.AUTO_PROJECTION_CELLS`; otherwise the
+latent engine (linear cost in the number of animals, no dense matrices). So a design without extra
+random effects that fits in memory (the demo) keeps the marginal engine. The choice and its reason
+go into diagnostics.json.
 """
 
 from __future__ import annotations
@@ -30,8 +31,8 @@ from ..errors import UserError
 from .data import FitData
 
 #: Values of ``model.engine``; ``auto`` tries the engines in the order of :data:`AUTO_ORDER`.
-#: The sparse engine is tried first: it prefers itself only beyond the marginal engine's memory
-#: (:meth:`ped2g.fit.sparse.SparseEngine.prefers`).
+#: The sparse engine is tried first: it prefers itself for extra random effects and beyond the
+#: marginal engine's memory (:meth:`ped2g.fit.sparse.SparseEngine.prefers`).
 ENGINES = ("auto", "marginal", "latent", "sparse")
 AUTO_ORDER = ("sparse", "marginal", "latent")
 

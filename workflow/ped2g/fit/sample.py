@@ -313,6 +313,30 @@ def compile_nutpie(model, numba_opt_level: int | None = None):
         return nutpie.compile_pymc_model(model, backend="numba")
 
 
+def blas_threads(parallel_chains: int) -> int:
+    """BLAS threads per chain when ``parallel_chains`` chains sample at once: the process's CPUs
+    shared out, at least one.
+
+    nutpie runs its chains as threads of one process, and every gradient's dense products (the
+    sparse engine's supernodal panels, the marginal engine's projections) call the BLAS bundled
+    with numpy and scipy, which by default starts one thread per CPU for each call. With two
+    chains on two CPUs that makes four busy threads on two cores: on the invented field design of
+    benchmarks/field_design_benchmark.py one sparse gradient took 69 ms in each of two concurrent
+    processes against 23.5 ms alone, and 26-27 ms with one BLAS thread each (benchmarks/README.md).
+    """
+    return max(1, available_cpus() // max(1, int(parallel_chains)))
+
+
+@contextmanager
+def blas_thread_limit(threads: int):
+    """Limit the BLAS libraries loaded in this process to ``threads`` threads while inside
+    (threadpoolctl; the previous limits come back on exit)."""
+    from threadpoolctl import threadpool_limits
+
+    with threadpool_limits(limits=int(threads), user_api="blas"):
+        yield
+
+
 def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
         compiled=None, nutpie_options: dict[str, Any] | None = None,
         extra_steps: list | None = None, numba_opt_level: int | None = None,
@@ -363,7 +387,8 @@ def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
     label = progress_label or f"population {population}"
     tracker = (ProgressLog(log, label, chains, warmup, draws, progress_interval)
                if log is not None and not bar else None)
-    with numba_optimisation(numba_opt_level), exact_numba_math():
+    info["blas_threads"] = blas_threads(cores)
+    with numba_optimisation(numba_opt_level), exact_numba_math(), blas_thread_limit(info["blas_threads"]):
         idata = _sample(model, info, chains, warmup, draws, cores, seed, target_accept, bar,
                         compiled, nutpie_options, extra_steps, tracker)
     grads = (_count(idata, "sample_stats", "n_steps")

@@ -16,12 +16,13 @@ on the pedigree's structure (benchmarks/sparse_likelihood.py). Breeding values a
 afterwards from their exact conditional distribution given each posterior draw,
 ``N(C^-1 r, C^-1)``, with the same factorisation.
 
-``model.engine: auto`` takes it (:meth:`SparseEngine.prefers`, docs/methods.md §2.9) when the marginal
-engine cannot fit the data in memory. Extra random effects alone do not make ``auto`` take it: on
-an invented field design (benchmarks/field_design_benchmark.py, benchmarks/README.md) it did not
-beat the marginal engine in effective samples per second -- better mixing per draw, but each
-gradient cost about ten times the marginal engine's at 600 records -- so that clause waits for
-a faster factorisation and a new measurement.
+``model.engine: auto`` takes it (:meth:`SparseEngine.prefers`, docs/methods.md §2.9) for every
+design with extra random effects (maternal, permanent-environment, cohort, ...), and for any design
+the marginal engine cannot fit in memory. On the invented field design of
+benchmarks/field_design_benchmark.py (benchmarks/README.md) it samples 36 parameters where the
+marginal engine samples every extra level and missing cell (about 5,100), takes a third of the
+gradients per iteration and finishes sooner; without extra random effects the marginal engine's
+cheaper gradient wins and ``auto`` keeps it.
 """
 
 from __future__ import annotations
@@ -158,15 +159,21 @@ class SparseEngine:
                       f"{design.factor_nnz:,} non-zeros in the factor")
 
     def prefers(self, data: FitData, model_config: dict) -> tuple[bool, str]:
-        """Whether ``auto`` takes it (module docstring): when the marginal engine cannot fit the data
-        in memory. The text is the reason either way."""
+        """Whether ``auto`` takes it (module docstring): for extra random effects, which it integrates
+        out instead of sampling every level, and when the marginal engine cannot fit the data in
+        memory. The text is the reason either way."""
         from .marginal import applicable
 
         ok, why = applicable(data, model_config, self.memory)
         if not ok:
             return True, f"the marginal engine does not apply ({why})"
-        return False, ("the marginal engine fits in memory and was faster per effective sample on "
-                       "the designs measured (benchmarks/README.md)")
+        if data.random:
+            levels = sum(int(e.n_levels) for e in data.random)
+            return True, (f"the extra random effects ({', '.join(e.name for e in data.random)}; {levels:,} levels) "
+                          "are integrated out here instead of sampled level by level (faster per effective "
+                          "sample on the field design measured, benchmarks/README.md)")
+        return False, ("without extra random effects the marginal engine fits in memory and is faster per "
+                       "effective sample (benchmarks/README.md)")
 
     def build(self, data: FitData, model_config: dict):
         import time
