@@ -21,8 +21,10 @@ design with extra random effects (maternal, permanent-environment, cohort, ...),
 the marginal engine cannot fit in memory. On the invented field design of
 benchmarks/field_design_benchmark.py (benchmarks/README.md) it samples 36 parameters where the
 marginal engine samples every extra level and missing cell (about 5,100), takes half the
-gradients per iteration and gave 46 times the effective samples per second; without extra random
-effects the marginal engine's cheaper gradient wins and ``auto`` keeps it.
+gradients per iteration and gave 46 times the effective samples per second. Without extra random
+effects ``auto`` keeps the marginal engine, whose gradient costs O(records x traits^2) after one
+eigendecomposition (not yet measured side by side with this engine; benchmarks/fit_benchmark.py
+``--engines marginal_nuts sparse`` does it).
 """
 
 from __future__ import annotations
@@ -172,8 +174,8 @@ class SparseEngine:
             return True, (f"the extra random effects ({', '.join(e.name for e in data.random)}; {levels:,} levels) "
                           "are integrated out here instead of sampled level by level (faster per effective "
                           "sample on the field design measured, benchmarks/README.md)")
-        return False, ("without extra random effects the marginal engine fits in memory and is faster per "
-                       "effective sample (benchmarks/README.md)")
+        return False, ("without extra random effects the marginal engine fits in memory and its gradient is "
+                       "far cheaper (O(records x traits^2) after one eigendecomposition)")
 
     def build(self, data: FitData, model_config: dict):
         import time
