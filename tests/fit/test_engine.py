@@ -1,8 +1,8 @@
 """The engine choice follows model.engine, the design and the engines' limits (docs/methods.md §2.9).
 
 Oracles: the rule as documented (extra random effects, or a marginal engine beyond memory: sparse
-where its factor fits; otherwise marginal while it prefers itself; else latent) and exact arithmetic of the memory need
-(24 bytes x records^2 + a constant, docs/methods.md §2.5).
+where its factor fits; otherwise marginal while it prefers itself; else latent) and exact
+arithmetic of the memory need (24 bytes x records^2 + a constant, docs/methods.md §2.5).
 """
 
 import dataclasses

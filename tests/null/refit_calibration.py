@@ -303,6 +303,7 @@ def main() -> None:
         if recovery.exists():
             print(recovery_table(pd.read_csv(recovery)).to_string(index=False, float_format=lambda x: f"{x:.3f}"))
         return
+
     def save(rows: pd.DataFrame, recovery: pd.DataFrame, findings: pd.DataFrame) -> None:
         stem = str(args.out).replace(".csv", "")
         if len(rows):
