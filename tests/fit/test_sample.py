@@ -82,6 +82,32 @@ def test_blas_thread_limit_holds_inside_and_is_lifted_after():
     assert after == before
 
 
+def _blas_threads_of_a_fresh_process(queue):
+    import numpy  # noqa: F401  (loads numpy's BLAS in this new process)
+    from threadpoolctl import threadpool_info
+
+    queue.put(sorted({i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas"}))
+
+
+def test_blas_thread_limit_reaches_chain_processes_started_fresh():
+    # PyMC forks its chain processes on Linux (the limit is inherited) but starts them fresh on
+    # macOS (forkserver), where the BLAS is loaded anew: the limit must then come through the
+    # environment. A spawned process, which shares nothing with this one, reads it back.
+    import multiprocessing
+
+    ctx = multiprocessing.get_context("spawn")
+    queue = ctx.Queue()
+    before = {name: os.environ.get(name) for name in sample.BLAS_THREAD_VARIABLES}
+    with sample.blas_thread_limit(1):
+        child = ctx.Process(target=_blas_threads_of_a_fresh_process, args=(queue,))
+        child.start()
+        threads = queue.get(timeout=120)
+        child.join()
+    assert threads == [1]
+    for name in sample.BLAS_THREAD_VARIABLES:      # and the variables are restored after
+        assert os.environ.get(name) == before[name]
+
+
 def test_numba_optimisation_level_is_set_inside_and_restored(monkeypatch):
     from numba.core import config as numba_config
 

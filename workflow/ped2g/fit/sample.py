@@ -22,7 +22,7 @@ import logging
 import os
 import sys
 import time
-from contextlib import contextmanager
+from contextlib import ExitStack, contextmanager
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -329,12 +329,26 @@ def blas_threads(parallel_chains: int) -> int:
 
 @contextmanager
 def blas_thread_limit(threads: int):
-    """Limit the BLAS libraries loaded in this process to ``threads`` threads while inside
-    (threadpoolctl; the previous limits come back on exit)."""
+    """Limit BLAS to ``threads`` threads while inside, here and in chain processes started inside.
+
+    The libraries loaded in this process are limited through threadpoolctl. Chain processes that
+    PyMC forks inherit that limit; processes started fresh (the forkserver and spawn methods,
+    PyMC's choice on macOS) load their BLAS anew and read it from the environment variables set
+    here (``OPENBLAS_NUM_THREADS``, ``OMP_NUM_THREADS``, ``MKL_NUM_THREADS``). The previous limits
+    and variables come back on exit."""
     from threadpoolctl import threadpool_limits
 
-    with threadpool_limits(limits=int(threads), user_api="blas"):
+    value = str(int(threads))
+    with ExitStack() as stack:
+        for name in BLAS_THREAD_VARIABLES:
+            stack.enter_context(_environment(name, value))
+        stack.enter_context(threadpool_limits(limits=int(threads), user_api="blas"))
         yield
+
+
+#: Environment variables through which the BLAS builds of numpy and scipy (OpenBLAS, MKL, or an
+#: OpenMP build) take their thread count when a process loads them.
+BLAS_THREAD_VARIABLES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
 
 
 def run(model, sampling: dict[str, Any], population: str, progress: bool = True,
