@@ -25,7 +25,10 @@ studies without a null, to measure the fits' bias and interval coverage with oth
 or priors, for example::
 
     python tests/null/refit_calibration.py --truth --recovery-only --studies 30 \
-        --chains 2 --warmup 500 --draws 1000 --lkj-eta 1 The slow test
+        --chains 2 --warmup 500 --draws 1000 --lkj-eta 1
+
+``--shared-g`` runs only the observed fits and the pilots, and compares how elongated the null's
+shared G is (leading eigenvalue's share, mean autonomy) with the truth. The slow test
 (tests/null/test_refit_calibration.py) runs a tiny design.
 """
 
@@ -107,6 +110,64 @@ def recovery_rows(rep, G_true: np.ndarray, R_true: np.ndarray, traits: list[str]
     return rows
 
 
+def null_shared_G(refitters: dict, data: dict, observed: dict, config: dict, study: int, pilot: int,
+                  run_seed: int = 1) -> tuple[np.ndarray, np.ndarray, dict, int]:
+    """The refitting null's shared G for one study, as the workflow makes it: the mean of the
+    observed posterior-mean G matrices (``G_bar``) and, with ``pilot`` > 0, its bias-corrected form
+    from that many pilot refits per population (:func:`ped2g.null.refit.bias_corrected_G`).
+    Returns (G_bar, the shared G, design parameters per population, the null's seed)."""
+    pops = list(data)
+    G_bar = shared_G([observed[p].G.mean(axis=0) for p in pops])
+    params = {p: design_parameters(data[p], observed[p].means) for p in pops}
+    seed = int(config["sampling"]["seed"]) + 1000 * study + 1_000_000 * (run_seed - 1)
+    G0 = G_bar
+    if pilot > 0:
+        pilots = [refitters[p].refit(simulate_records(data[p], G_bar, params[p], generator(seed, "null_pilot", p, k)),
+                                     replicate_name(p, k, "null_pilot") + f":{study}").G.mean(axis=0)
+                  for p in pops for k in range(pilot)]
+        G0 = bias_corrected_G(G_bar, pilots)
+    return G_bar, G0, params, seed
+
+
+def elongation(G: np.ndarray, sd: np.ndarray, skewers: int = 2000) -> dict[str, float]:
+    """How elongated ``G`` is on the scale of the phenotypic SDs ``sd``: the leading eigenvalue's
+    share of the trace and the mean autonomy over random unit gradients (ped2g's own
+    :func:`ped2g.compare.evolvability.evolvability_means`)."""
+    from ped2g.compare.evolvability import evolvability_means
+
+    Gs = np.asarray(G, dtype=float) / np.outer(sd, sd)
+    lam = np.linalg.eigvalsh(Gs)
+    B = np.random.default_rng(0).standard_normal((skewers, len(sd)))
+    B /= np.linalg.norm(B, axis=1, keepdims=True)
+    return {"leading_share": float(lam[-1] / lam.sum()),
+            "autonomy": float(evolvability_means(Gs[None, None], B)["autonomy"][0, 0])}
+
+
+def shared_G_study(data: dict, config: dict, Gs: dict, params: dict, studies: int, pilot: int,
+                   seed: int = 1, first: int = 0, progress=print) -> pd.DataFrame:
+    """The elongation of the truth, of each observed posterior-mean G, of ``G_bar`` and of the
+    bias-corrected shared G on studies ``first`` .. ``first + studies - 1`` (the streams of
+    :func:`run`): does the null simulate from a G as elongated as the truth? Only the observed
+    fits and the pilots are run, not the null's refits."""
+    config = copy.deepcopy(config)
+    config["checks"]["on_failure"] = "flag"
+    refitters = {p: Refitter(d, "marginal", config) for p, d in data.items()}
+    pops = list(data)
+    rows = []
+    for s in range(first, first + studies):
+        Y = {p: simulate_records(d, Gs[p], params[p], generator(seed, "calibration", s, p)) for p, d in data.items()}
+        observed = {p: refitters[p].refit(Y[p], f"calibration:{s}:{p}") for p in pops}
+        G_bar, G0, _, _ = null_shared_G(refitters, data, observed, config, s, pilot, seed)
+        sd = np.sqrt(np.diag(Gs[pops[0]] + params[pops[0]].R))
+        mats = {"truth": Gs[pops[0]], "G_bar": G_bar, "shared G": G0,
+                **{f"observed ({p})": observed[p].G.mean(axis=0) for p in pops}}
+        measured = {k: elongation(M, sd) for k, M in mats.items()}
+        rows += [{"study": s, "matrix": k.split(" (")[0], **m} for k, m in measured.items()]
+        progress(f"study {s + 1}: shared G's leading share {measured['shared G']['leading_share']:.3f} "
+                 f"(truth {measured['truth']['leading_share']:.3f})")
+    return pd.DataFrame(rows)
+
+
 def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int, study: int,
             truth: dict | None = None, pilot: int = 0, demo_truth: dict | None = None,
             run_seed: int = 1) -> pd.DataFrame:
@@ -122,14 +183,7 @@ def analyse(refitters: dict, data: dict, Y: dict, config: dict, replicates: int,
     if truth is not None:
         analyse.recovery = [dict(r, population=p, study=study)
                             for p in pops for r in recovery_rows(observed[p], *truth[p], data[p].traits)]
-    G0 = shared_G([observed[p].G.mean(axis=0) for p in pops])
-    params = {p: design_parameters(data[p], observed[p].means) for p in pops}
-    seed = int(config["sampling"]["seed"]) + 1000 * study + 1_000_000 * (run_seed - 1)
-    if pilot > 0:
-        pilots = [refitters[p].refit(simulate_records(data[p], G0, params[p], generator(seed, "null_pilot", p, k)),
-                                     replicate_name(p, k, "null_pilot") + f":{study}").G.mean(axis=0)
-                  for p in pops for k in range(pilot)]
-        G0 = bias_corrected_G(G0, pilots)
+    _, G0, params, seed = null_shared_G(refitters, data, observed, config, study, pilot, run_seed)
     reps = {p: [refitters[p].refit(simulate_records(data[p], G0, params[p],
                                                     generator(seed, "null_refit", p, r)),
                                    replicate_name(p, r) + f":{study}") for r in range(replicates)]
@@ -289,6 +343,9 @@ def main() -> None:
     parser.add_argument("--pilot", type=int, default=None,
                         help="pilot refits per population for the shared G's bias correction "
                              "(default: compare.null_model.pilot_replicates of the demo config; 0: none)")
+    parser.add_argument("--shared-g", action="store_true",
+                        help="only measure how elongated the null's shared G is against the truth (observed "
+                             "fits and pilots, no refits)")
     parser.add_argument("--tables", default=None, metavar="CSV",
                         help="only print the tables of a CSV written by an earlier run with --out")
     args = parser.parse_args()
@@ -335,6 +392,15 @@ def main() -> None:
         print(recovery_summary(rec))
         return
     pilot = int(cfg["compare"]["null_model"]["pilot_replicates"] if args.pilot is None else args.pilot)
+    if args.shared_g:
+        table = shared_G_study(data, cfg, Gs, params, args.studies, pilot, args.seed, args.first_study)
+        if args.out:
+            table.to_csv(args.out, index=False)
+        summary = table.groupby("matrix", sort=False)[["leading_share", "autonomy"]].agg(["mean", "std"])
+        print(f"elongation on the phenotypic-SD scale over {args.studies} studies ({pilot} pilots per population), "
+              f"{time.perf_counter() - start:.0f} s; mean and SD over studies (observed: over studies and populations)")
+        print(summary.to_string(float_format=lambda x: f"{x:.3f}"))
+        return
     rows = run(data, cfg, Gs, params, args.studies, args.replicates, args.seed, pilot=pilot,
                demo_truth=truth if args.truth else None, first=args.first_study, checkpoint=checkpoint)
     if args.out:

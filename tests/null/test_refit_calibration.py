@@ -74,3 +74,21 @@ def test_clustered_se_reduces_to_the_binomial_se_and_ignores_duplicated_rows():
     k = 3
     assert clustered_se(pd.Series(np.repeat(hit.to_numpy(), k)), pd.Series(np.repeat(study.to_numpy(), k))) \
         == pytest.approx(clustered_se(hit, study), rel=1e-12)
+
+
+def test_elongation_gives_the_leading_share_and_the_closed_form_mean_autonomy():
+    # Exact identity (derived here, not recalled): for G = diag(l1, l2) and a unit gradient at angle
+    # theta, 1/a = (c^2/l1 + s^2/l2)(c^2 l1 + s^2 l2) = 1 + k sin^2(2 theta)/4 with k = (r - 1)^2/r,
+    # r = l1/l2, and the mean of 1/(1 + b sin^2 phi) over a uniform angle is 1/sqrt(1 + b)
+    # (a standard integral), so the mean autonomy is 2 sqrt(l1 l2)/(l1 + l2). The function averages
+    # over 2,000 random gradients, so the check allows 4 Monte Carlo SEs.
+    from refit_calibration import elongation
+
+    sd = np.array([2.0, 0.5])                        # the phenotypic SDs undo the scale exactly
+    for l1, l2 in [(4.0, 1.0), (1.0, 1.0), (9.0, 0.5)]:
+        G = np.diag([l1, l2]) * np.outer(sd, sd)
+        out = elongation(G, sd)
+        assert out["leading_share"] == pytest.approx(max(l1, l2) / (l1 + l2), rel=1e-12)
+        theta = np.random.default_rng(0).uniform(0, 2 * np.pi, 2000)
+        a = 1 / ((np.cos(theta) ** 2 / l1 + np.sin(theta) ** 2 / l2) * (np.cos(theta) ** 2 * l1 + np.sin(theta) ** 2 * l2))
+        assert out["autonomy"] == pytest.approx(2 * np.sqrt(l1 * l2) / (l1 + l2), abs=4 * a.std() / np.sqrt(2000) + 1e-12)
