@@ -261,6 +261,20 @@ def _column_supernode(snode, n):
 
 
 @numba.njit(cache=True)
+def _widths(snode, Lp):
+    """(max s, max m) over supernodes (s columns, m rows below): the bounds of the dense work
+    arrays, which are allocated once per call rather than once per supernode (at 10^5 animals,
+    allocating them per supernode cost more page faults than the arithmetic took)."""
+    maxs = 1
+    maxm = 1
+    for J in range(len(snode) - 1):
+        w = snode[J + 1] - snode[J]
+        maxs = max(maxs, w)
+        maxm = max(maxm, Lp[snode[J] + 1] - Lp[snode[J]] - (w - 1))
+    return maxs, maxm
+
+
+@numba.njit(cache=True)
 def _panel_sizes(snode, Lp):
     """(max s*(s+m), max m*m) over supernodes (s columns, m rows below)."""
     big = 0
@@ -293,6 +307,12 @@ def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
     col_sn = _column_supernode(snode, n)
     big, _ = _panel_sizes(snode, Lp)
     buf = np.zeros(max(big, 1))
+    maxs, maxm = _widths(snode, Lp)
+    maxh = maxs + maxm
+    bt_buf = np.empty(maxs * maxm)                     # L_rows,K'          (sK x rem)
+    bd_buf = np.empty(maxs * max(maxs, _CHUNK))        # L_JK D_K (nj x sK); the chunk's (nT x w)
+    u_buf = np.empty(maxs * maxh)                      # their products     (nj x rem; nT x h - a1)
+    b_buf = np.empty(_CHUNK * maxh)                    # the chunk's rows   (w x h - a1)
     relmap = np.empty(n, dtype=np.int64)
     head = np.full(n_s, -1, dtype=np.int64)
     nxt = np.full(n_s, -1, dtype=np.int64)
@@ -330,15 +350,16 @@ def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
             nj = q2 - q
             if sK * nj * rem >= _DENSE_PRODUCT:
                 # one BLAS product: U = (L_JK D_K) L_rows,K'
-                Bt = np.empty((sK, rem))
-                BD = np.empty((nj, sK))
+                Bt = bt_buf[: sK * rem].reshape((sK, rem))
+                BD = bd_buf[: nj * sK].reshape((nj, sK))
                 for c in range(sK):
                     off = Lp[k0 + c] + (sK - 1 - c) + q
                     for r in range(rem):
                         Bt[c, r] = Lx[off + r]
                     for cc in range(nj):
                         BD[cc, c] = Lx[off + cc] * D[k0 + c]
-                U = np.dot(BD, Bt)
+                U = u_buf[: nj * rem].reshape((nj, rem))
+                np.dot(BD, Bt, U)
                 for cc in range(nj):
                     col = Li[kb + q + cc] - c0
                     for r in range(cc, rem):
@@ -382,15 +403,16 @@ def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
             nT = s - a1
             if nT > 0:
                 w = a1 - a0
-                B = np.empty((w, h - a1))
-                BD = np.empty((nT, w))
+                B = b_buf[: w * (h - a1)].reshape((w, h - a1))
+                BD = bd_buf[: nT * w].reshape((nT, w))
                 for a in range(w):
                     da = D[c0 + a0 + a]
                     for r in range(h - a1):
                         B[a, r] = P[a0 + a, a1 + r]
                     for c in range(nT):
                         BD[c, a] = B[a, c] * da
-                U = np.dot(BD, B)
+                U = u_buf[: nT * (h - a1)].reshape((nT, h - a1))
+                np.dot(BD, B, U)
                 for c in range(nT):
                     for r in range(c, h - a1):
                         P[a1 + c, a1 + r] -= U[c, r]
@@ -429,6 +451,14 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
         maxm = max(maxm, Lp[snode[J] + 1] - Lp[snode[J]] - (s - 1))
     ybuf = np.zeros(maxs * maxm)
     posf = np.empty(maxm, dtype=np.int64)
+    maxh = maxs + maxm
+    lr_buf = np.empty(maxs * maxm)                     # L_R,J'             (s x m)
+    t_buf = np.empty(_CHUNK * maxh)                    # the chunk's sums   (w x h - a1)
+    p_buf = np.empty(_CHUNK * maxh)                    # a product added to them
+    lc_buf = np.empty(_CHUNK * maxs)                   # (w x nJ)
+    lcr_buf = np.empty(_CHUNK * maxm)                  # (w x m)
+    zb_buf = np.empty(maxs * maxh)                     # (nJ x h - a1)
+    zr_buf = np.empty(maxm * maxs)                     # (m x nJ)
     for J in range(n_s - 1, -1, -1):
         c0, c1 = snode[J], snode[J + 1]
         s = c1 - c0
@@ -463,12 +493,12 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
         # Yt[a, :] = Z_RR L_R,a
         Yt = ybuf[: s * m].reshape((s, m))
         if s * m * m >= _DENSE_PRODUCT:
-            LR = np.empty((s, m))
+            LR = lr_buf[: s * m].reshape((s, m))
             for a in range(s):
                 lo = rbase + (Lp[c0 + a] - Lp[c0]) - a
                 for q in range(m):
                     LR[a, q] = Lx[lo + q]
-            Yt[:, :] = np.dot(LR, Zrr)
+            np.dot(LR, Zrr, Yt)
         else:
             for a in range(s):
                 lo = rbase + (Lp[c0 + a] - Lp[c0]) - a
@@ -486,29 +516,34 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
             a0 = max(a1 - _CHUNK, 0)
             w = a1 - a0
             nJ = s - a1
-            T = np.zeros((w, h - a1))
+            T = t_buf[: w * (h - a1)].reshape((w, h - a1))
+            T[:, :] = 0.0
             for a in range(w):
                 for rr in range(m):
                     T[a, nJ + rr] = Yt[a0 + a, rr]
             if nJ > 0:
-                Lc = np.empty((w, nJ))
-                LcR = np.empty((w, m))
+                Lc = lc_buf[: w * nJ].reshape((w, nJ))
+                LcR = lcr_buf[: w * m].reshape((w, m))
                 for a in range(w):
                     off = Lp[c0 + a0 + a] - (a0 + a) - 1
                     for c in range(nJ):
                         Lc[a, c] = Lx[off + a1 + c]
                     for rr in range(m):
                         LcR[a, rr] = Lx[off + s + rr]
-                Zb = np.empty((nJ, h - a1))
-                ZR = np.empty((m, nJ))
+                Zb = zb_buf[: nJ * (h - a1)].reshape((nJ, h - a1))
+                ZR = zr_buf[: m * nJ].reshape((m, nJ))
                 for c in range(nJ):
                     for r in range(h - a1):
                         Zb[c, r] = Zt[a1 + c, a1 + r]
                     for rr in range(m):
                         ZR[rr, c] = Zt[a1 + c, s + rr]
-                T += np.dot(Lc, Zb)
+                Pr = p_buf[: w * (h - a1)].reshape((w, h - a1))
+                np.dot(Lc, Zb, Pr)
+                T += Pr
                 if m > 0:
-                    T[:, :nJ] += np.dot(LcR, ZR)
+                    Pn = p_buf[: w * nJ].reshape((w, nJ))
+                    np.dot(LcR, ZR, Pn)
+                    T[:, :nJ] += Pn
             for a in range(a1 - 1, a0 - 1, -1):
                 j = c0 + a
                 off = Lp[j] - a - 1          # L[r, a] = Lx[off + r], r > a
