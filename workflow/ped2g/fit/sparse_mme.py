@@ -40,6 +40,7 @@ import numpy as np
 import scipy.sparse as sp
 
 from . import sparse_factor as sf
+from .kernel_cache import forget_if_changed
 from .sparse_factor import ldl_solve, ldl_supernodal, selected_inverse_supernodal
 
 LOG_2PI = math.log(2.0 * math.pi)
@@ -476,6 +477,10 @@ def mme_effects(resid, G, R, covs, noise, term_pos, term_midx, term_coef, Cp, Ci
             out[s, q] = chat[q] + x[q]
         good[s] = True
     return out, good
+
+
+# These kernels call sparse_factor's: numba's cache alone would keep its old code after it changes.
+forget_if_changed([mme_logp_and_grad, mme_effects], [__file__, sf.__file__])
 
 
 # ------------------------------------------------------------------------------------------------
