@@ -58,6 +58,15 @@ def _total(idata, group: str, stat: str) -> int:
     return int(np.nansum(np.asarray(idata[group][stat].values, dtype=float)))
 
 
+def _option(text: str) -> tuple[str, object]:
+    import yaml
+
+    key, sep, value = text.partition("=")
+    if not sep or not key:
+        raise argparse.ArgumentTypeError(f"expected KEY=VALUE, got {text!r}")
+    return key, yaml.safe_load(value)
+
+
 def summary(idata, names: list[str]) -> dict[str, float]:
     """Min bulk and tail ESS and max R-hat over the distinct elements of each named (t, t) matrix."""
     import arviz as az
@@ -103,7 +112,7 @@ def run_engine(name: str, data, cfg, args, cap: float) -> dict:
     with sample.blas_thread_limit(args.blas_threads or sample.blas_threads(min(args.chains, args.cores))):
         sampler = nutpie.sample(compiled, chains=args.chains, tune=args.warmup, draws=args.draws, seed=args.seed,
                                 cores=args.cores, progress_bar=False, blocking=False,
-                                **(built.nutpie_options or {}))
+                                **{**(built.nutpie_options or {}), **dict(args.nutpie)})
         stopped = False
         try:
             idata = sampler.wait(timeout=cap)
@@ -118,7 +127,8 @@ def run_engine(name: str, data, cfg, args, cap: float) -> dict:
            "iterations": iters, "planned": planned, "gradients": steps,
            "core_ms_per_gradient": 1000 * sample_s * min(args.chains, args.cores) / max(steps, 1),
            "divergences": _total(idata, "sample_stats", "diverging"), "stopped": stopped,
-           "total_s": build_s + compile_s + sample_s, "reason": why}
+           "total_s": build_s + compile_s + sample_s, "reason": why,
+           "nutpie_options": {**(built.nutpie_options or {}), **dict(args.nutpie)}}
     if stopped:
         row["extrapolated_s"] = build_s + compile_s + sample_s * planned / max(iters, 1)
     if "posterior" in idata.groups() and idata.posterior.sizes["draw"] >= 4:
@@ -146,6 +156,9 @@ def main(argv=None) -> int:
     parser.add_argument("--engines", nargs="+", default=["sparse", "marginal"], choices=["sparse", "marginal"])
     parser.add_argument("--cap-sparse", type=float, default=1800.0, help="wall-clock cap of sampling (s)")
     parser.add_argument("--cap-marginal", type=float, default=600.0, help="wall-clock cap of sampling (s)")
+    parser.add_argument("--nutpie", type=_option, action="append", default=[], metavar="KEY=VALUE",
+                        help="extra keyword for nutpie.sample, over the engine's own (YAML value; repeatable), "
+                             "e.g. low_rank_modified_mass_matrix=true")
     args = parser.parse_args(argv)
 
     import field_study
