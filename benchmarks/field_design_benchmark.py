@@ -26,6 +26,9 @@ Usage (from the repository root)::
 
     python benchmarks/field_design_benchmark.py --chains 4 --warmup 300 --draws 300 --cap-sparse 1500 --cap-marginal 600
 
+``--nutpie KEY=VALUE`` adds a keyword for ``nutpie.sample`` over the engine's own, for example
+``--nutpie low_rank_modified_mass_matrix=true`` (measured in benchmarks/README.md: not adopted).
+
 Timings depend on the machine and what else runs on it; quote the command and load average.
 """
 
