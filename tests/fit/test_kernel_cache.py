@@ -9,12 +9,10 @@ control below shows that on the numba installed here.
 
 from __future__ import annotations
 
+import ast
 import subprocess
 import sys
-import textwrap
 from pathlib import Path
-
-import pytest
 
 WORKFLOW = Path(__file__).resolve().parents[2] / "workflow"
 
@@ -49,7 +47,7 @@ def _run(root: Path) -> tuple[int, list[str]]:
                          cwd=root, capture_output=True, text=True, check=True,
                          env={"PYTHONPATH": f"{root}:{WORKFLOW}", "PATH": "/usr/bin:/bin"})
     value, emptied = out.stdout.split("\n")[:2]
-    return int(value), eval(emptied)
+    return int(value), ast.literal_eval(emptied)
 
 
 def _change_callee(root: Path) -> None:

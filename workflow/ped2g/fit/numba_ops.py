@@ -3,9 +3,9 @@ kernels), so that nutpie's and PyTensor's numba backends compile them natively."
 
 from __future__ import annotations
 
-import hashlib
 from collections.abc import Callable
-from pathlib import Path
+
+from .kernel_cache import source_digest
 
 
 def register_kernel(op_type: type, source_file: str | list[str], make: Callable) -> None:
@@ -20,7 +20,7 @@ def register_kernel(op_type: type, source_file: str | list[str], make: Callable)
     from pytensor.link.numba.dispatch.basic import numba_njit, register_funcify_default_op_cache_key
 
     files = [source_file] if isinstance(source_file, str) else list(source_file)
-    source_hash = int(hashlib.sha256(b"".join(Path(f).read_bytes() for f in files)).hexdigest()[:12], 16)
+    source_hash = int(source_digest(files)[:12], 16)
 
     @register_funcify_default_op_cache_key(op_type)
     def numba_funcify(op, node=None, **kwargs):

@@ -443,12 +443,7 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
     big, bigr = _panel_sizes(snode, Lp)
     zbuf = np.zeros(max(big, 1))
     rbuf = np.zeros(max(bigr, 1))
-    maxs = 1
-    maxm = 1
-    for J in range(n_s):
-        s = snode[J + 1] - snode[J]
-        maxs = max(maxs, s)
-        maxm = max(maxm, Lp[snode[J] + 1] - Lp[snode[J]] - (s - 1))
+    maxs, maxm = _widths(snode, Lp)
     ybuf = np.zeros(maxs * maxm)
     posf = np.empty(maxm, dtype=np.int64)
     maxh = maxs + maxm
