@@ -26,6 +26,14 @@ Usage (from the repository root)::
 
     python benchmarks/field_design_benchmark.py --chains 4 --warmup 300 --draws 300 --cap-sparse 1500 --cap-marginal 600
 
+``--engines gibbs`` adds the blocked Gibbs candidate (benchmarks/baselines/field_gibbs.py: every
+level drawn at once from one sparse factorisation per iteration, then each covariance and the fixed
+effects given the levels), ``--chains`` chains of ``--gibbs-warmup`` + ``--gibbs-draws`` iterations
+on ``--cores`` processes; its "gradients" column counts factorisations (iterations).
+
+``--time-calls`` prints the median time of one log-likelihood with its gradient and of one draw of
+every level (``sparse_mme.effects``) on this design, alone and with one BLAS thread (50 calls each).
+
 ``--nutpie KEY=VALUE`` adds a keyword for ``nutpie.sample`` over the engine's own, for example
 ``--nutpie low_rank_modified_mass_matrix=true`` (measured in benchmarks/README.md: not adopted).
 
@@ -45,6 +53,7 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "workflow"))
 sys.path.insert(0, str(ROOT / "tests" / "fit"))
+sys.path.insert(0, str(ROOT))
 
 
 def _iterations(idata) -> int:
@@ -142,6 +151,78 @@ def run_engine(name: str, data, cfg, args, cap: float) -> dict:
     return row
 
 
+def _gibbs_chain(job) -> object:
+    from benchmarks.baselines.field_gibbs import BlockGibbs
+
+    data, model_config, draws, warmup, seed, budget = job
+    return BlockGibbs(data, model_config).run(draws, warmup, np.random.default_rng(seed), time_budget=budget)
+
+
+def run_gibbs(data, cfg, args) -> dict:
+    """The blocked Gibbs candidate: ``args.chains`` chains on ``args.cores`` processes."""
+    import multiprocessing
+
+    import arviz as az
+
+    from ped2g.fit import sparse_mme
+    from ped2g.fit.sample import blas_thread_limit
+
+    start = time.perf_counter()
+    design = sparse_mme.design_for(data)
+    build_s = time.perf_counter() - start
+    seeds = np.random.SeedSequence(args.seed).generate_state(args.chains)
+    jobs = [(data, cfg["model"], args.gibbs_draws, args.gibbs_warmup, int(s), args.cap_gibbs) for s in seeds]
+    start = time.perf_counter()
+    with blas_thread_limit(1), multiprocessing.get_context("fork").Pool(min(args.chains, args.cores)) as pool:
+        chains = pool.map(_gibbs_chain, jobs)
+    sample_s = time.perf_counter() - start
+    keep = min(len(c.G) for c in chains)
+    post = {"G": np.stack([c.G[:keep] for c in chains]), "R": np.stack([c.R[:keep] for c in chains])}
+    for k, eff in enumerate(data.random):
+        post[f"cov_{eff.name}"] = np.stack([c.covs[:keep, k] for c in chains])
+    idata = az.from_dict(posterior=post)
+    iters = sum(c.iterations for c in chains)
+    planned = args.chains * (args.gibbs_warmup + args.gibbs_draws)
+    acceptance = {k: round(float(np.mean([c.acceptance[k] for c in chains])), 3) for k in chains[0].acceptance}
+    row = {"engine": "gibbs", "free": design.n_unknowns, "build_s": build_s, "compile_s": 0.0, "sample_s": sample_s,
+           "iterations": iters, "planned": planned, "gradients": iters,
+           "core_ms_per_gradient": 1000 * sample_s * min(args.chains, args.cores) / max(iters, 1),
+           "divergences": 0, "stopped": iters < planned, "total_s": build_s + sample_s,
+           "reason": f"blocked Gibbs, covariance acceptance {acceptance}", "nutpie_options": {}}
+    if row["stopped"]:
+        row["extrapolated_s"] = build_s + sample_s * planned / max(iters, 1)
+    s = summary(idata, list(post))
+    row.update(ess_bulk=s["ess_bulk"], ess_tail=s["ess_tail"], rhat=s["rhat"], kept=s["kept"], per=s["per"],
+               ess_per_s=s["ess_bulk"] / row["total_s"])
+    return row
+
+
+def time_calls(data, calls: int = 50) -> None:
+    from ped2g.fit import sparse_mme
+    from ped2g.fit.sample import blas_thread_limit
+
+    design = sparse_mme.design_for(data)
+    t = data.n_traits
+    G, R = 0.3 * np.eye(t), 0.4 * np.eye(t)
+    covs = np.array([0.1 * np.eye(t)] * len(data.random)).reshape(-1, t, t)
+    resid = np.where(data.missing, 0.0, data.y)
+    rng = np.random.default_rng(0)
+    jobs = {"log L + gradient": lambda: sparse_mme.logp_and_grad(design, resid, G, R, covs),
+            "level draw": lambda: sparse_mme.effects(design, resid[None], G[None], R[None],
+                                                     covs[None] if len(covs) else None,
+                                                     rng.standard_normal((1, design.n_unknowns)))}
+    with blas_thread_limit(1):
+        for name, job in jobs.items():
+            job()
+            times = []
+            for _ in range(calls):
+                start = time.perf_counter()
+                job()
+                times.append(time.perf_counter() - start)
+            print(f"{name}: median {1000 * np.median(times):.2f} ms, min {1000 * min(times):.2f} ms "
+                  f"({calls} calls, {design.n_unknowns:,} unknowns)", flush=True)
+
+
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--animals", type=int, default=1500)
@@ -156,9 +237,13 @@ def main(argv=None) -> int:
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--blas-threads", type=int, default=None,
                         help="BLAS threads while sampling (default: the fit stage's, CPUs / parallel chains)")
-    parser.add_argument("--engines", nargs="+", default=["sparse", "marginal"], choices=["sparse", "marginal"])
+    parser.add_argument("--engines", nargs="+", default=["sparse", "marginal"], choices=["sparse", "marginal", "gibbs"])
+    parser.add_argument("--gibbs-warmup", type=int, default=500, help="burn-in iterations per Gibbs chain")
+    parser.add_argument("--gibbs-draws", type=int, default=5000, help="kept iterations per Gibbs chain")
+    parser.add_argument("--cap-gibbs", type=float, default=1800.0, help="wall-clock cap of each Gibbs chain (s)")
     parser.add_argument("--cap-sparse", type=float, default=1800.0, help="wall-clock cap of sampling (s)")
     parser.add_argument("--cap-marginal", type=float, default=600.0, help="wall-clock cap of sampling (s)")
+    parser.add_argument("--time-calls", action="store_true", help="time one gradient and one level draw, then stop")
     parser.add_argument("--nutpie", type=_option, action="append", default=[], metavar="KEY=VALUE",
                         help="extra keyword for nutpie.sample, over the engine's own (YAML value; repeatable), "
                              "e.g. low_rank_modified_mass_matrix=true")
@@ -177,10 +262,15 @@ def main(argv=None) -> int:
           f"{int((data.pedigree.sire < 0).sum())} unknown sires, {levels}; simulated in "
           f"{time.perf_counter() - start:.1f} s", flush=True)
     print(f"load average at start: {' '.join(f'{x:.2f}' for x in os.getloadavg())}", flush=True)
+    if args.time_calls:
+        time_calls(data)
+        return 0
     rows = []
     for name in args.engines:
-        cap = args.cap_sparse if name == "sparse" else args.cap_marginal
-        row = run_engine(name, data, cfg, args, cap)
+        if name == "gibbs":
+            row = run_gibbs(data, cfg, args)
+        else:
+            row = run_engine(name, data, cfg, args, args.cap_sparse if name == "sparse" else args.cap_marginal)
         row["load"] = os.getloadavg()
         rows.append(row)
         print(row, flush=True)

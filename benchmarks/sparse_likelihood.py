@@ -12,6 +12,10 @@ process's peak resident memory so far (sizes run in the order given, so give the
 Usage (from the repository root)::
 
     python benchmarks/sparse_likelihood.py --animals 1000 10000 100000 --traits 4 --max-records 50000
+
+``--level-draw`` adds the time of one draw of every random-effect level from N(C^-1 r, C^-1)
+(``sparse_mme.effects``: factorisation, solve and a triangular solve with noise), the unit of work
+of a blocked Gibbs iteration (benchmarks/baselines/field_gibbs.py).
 """
 
 from __future__ import annotations
@@ -75,11 +79,12 @@ def main(argv=None) -> int:
     parser.add_argument("--traits", type=int, default=4)
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--max-records", type=int, default=None)
+    parser.add_argument("--level-draw", action="store_true", help="also time one draw of all levels")
     args = parser.parse_args(argv)
     t = args.traits
     rng = np.random.default_rng(0)
     print(f"{'animals':>8} {'records':>8} {'unknowns':>9} {'nnz(C)':>11} {'nnz(L)':>12} {'design s':>9} "
-          f"{'logL+grad s':>12} {'supernodes':>10} {'peak MB':>8}")
+          f"{'logL+grad s':>12} {'supernodes':>10} {'peak MB':>8}" + (f" {'draw s':>8}" if args.level_draw else ""))
     for n in args.animals:
         design, observed, build_s = simulated_design(n, t, max_records=args.max_records)
         G = 0.4 * np.eye(t) + 0.1
@@ -93,10 +98,21 @@ def main(argv=None) -> int:
             value = sparse_mme.logp_and_grad(design, resid, G, R, covs)[0]
             times.append(time.perf_counter() - start)
         assert np.isfinite(value)
+        draw = ""
+        if args.level_draw:
+            args_draw = (design, resid[None], G[None], R[None], np.array(covs)[None])
+            sparse_mme.effects(*args_draw, rng.standard_normal((1, design.n_unknowns)))
+            draws = []
+            for _ in range(args.repeats):
+                noise = rng.standard_normal((1, design.n_unknowns))
+                start = time.perf_counter()
+                sparse_mme.effects(*args_draw, noise)
+                draws.append(time.perf_counter() - start)
+            draw = f" {min(draws):>8.3f}"
         nnz_c = 2 * len(design.Ci) - design.n_unknowns
         print(f"{n:>8} {len(observed):>8} {design.n_unknowns:>9} {nnz_c:>11,} {design.factor_nnz:>12,} "
               f"{build_s:>9.2f} {min(times):>12.3f} {len(design.snode) - 1:>10,} "
-              f"{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:>8.0f}", flush=True)
+              f"{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:>8.0f}{draw}", flush=True)
     return 0
 
 
