@@ -313,6 +313,7 @@ def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
     bd_buf = np.empty(maxs * max(maxs, _CHUNK))        # L_JK D_K (nj x sK); the chunk's (nT x w)
     u_buf = np.empty(maxs * maxh)                      # their products     (nj x rem; nT x h - a1)
     b_buf = np.empty(_CHUNK * maxh)                    # the chunk's rows   (w x h - a1)
+    ci_buf = np.empty(_CHUNK * _CHUNK)                 # inverse of the chunk's unit lower block
     relmap = np.empty(n, dtype=np.int64)
     head = np.full(n_s, -1, dtype=np.int64)
     nxt = np.full(n_s, -1, dtype=np.int64)
@@ -383,39 +384,73 @@ def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
                 nxt[K] = head[Jn]
                 head[Jn] = K
             K = nextK
-        # dense LDL' of the panel, in chunks of columns: inside a chunk column by column, then the
-        # chunk's update of the panel's later columns as one BLAS product
+        # dense LDL' of the panel, in chunks of columns: the chunk's own w x w block column by
+        # column; its rows below by one BLAS product with the inverse of that block (when large
+        # enough, else column by column); then the chunk's update of the panel's later columns as
+        # one BLAS product
         a1 = 0
         while a1 < s:
             a0 = a1
             a1 = min(a0 + _CHUNK, s)
+            w = a1 - a0
+            below = (a1 - a0) * (a1 - a0) * (h - a1) >= _DENSE_PRODUCT
+            stop = a1 if below else h
             for a in range(a0, a1):
                 d = P[a, a]
                 if not d > 0.0:
                     return c0 + a
                 D[c0 + a] = d
-                for r in range(a + 1, h):
+                for r in range(a + 1, stop):
                     P[a, r] /= d
                 for c in range(a + 1, a1):
                     f = P[a, c] * d
-                    for r in range(c, h):
+                    for r in range(c, stop):
                         P[c, r] -= P[a, r] * f
+            if below:
+                # rows r >= a1 of the chunk's columns: L[r, chunk] = M[r, chunk] Lc^-T D^-1, with
+                # Lc the chunk's unit lower block (Lc[x, y] = P[a0 + y, a0 + x]) and M the panel
+                # as the earlier chunks left it
+                Ci_ = ci_buf[: w * w].reshape((w, w))
+                for x in range(w):
+                    for y in range(x):
+                        v = -P[a0 + y, a0 + x]
+                        for z in range(y + 1, x):
+                            v -= P[a0 + z, a0 + x] * Ci_[z, y]
+                        Ci_[x, y] = v
+                    Ci_[x, x] = 1.0
+                    for y in range(x + 1, w):
+                        Ci_[x, y] = 0.0
+                nr = h - a1
+                Bm = b_buf[: w * nr].reshape((w, nr))
+                for a in range(w):
+                    for r in range(nr):
+                        Bm[a, r] = P[a0 + a, a1 + r]
+                X = u_buf[: w * nr].reshape((w, nr))
+                np.dot(Ci_, Bm, X)
+                for a in range(w):
+                    inv_d = 1.0 / D[c0 + a0 + a]
+                    for r in range(nr):
+                        P[a0 + a, a1 + r] = X[a, r] * inv_d
             nT = s - a1
             if nT > 0:
-                w = a1 - a0
-                B = b_buf[: w * (h - a1)].reshape((w, h - a1))
+                nr = h - a1
+                Bt = b_buf[: nr * w].reshape((nr, w))         # Bt[r, a] = L[a1 + r, a0 + a]
                 BD = bd_buf[: nT * w].reshape((nT, w))
-                for a in range(w):
-                    da = D[c0 + a0 + a]
-                    for r in range(h - a1):
-                        B[a, r] = P[a0 + a, a1 + r]
-                    for c in range(nT):
-                        BD[c, a] = B[a, c] * da
-                U = u_buf[: nT * (h - a1)].reshape((nT, h - a1))
-                np.dot(BD, B, U)
+                for r in range(nr):
+                    for a in range(w):
+                        Bt[r, a] = P[a0 + a, a1 + r]
                 for c in range(nT):
-                    for r in range(c, h - a1):
-                        P[a1 + c, a1 + r] -= U[c, r]
+                    for a in range(w):
+                        BD[c, a] = Bt[c, a] * D[c0 + a0 + a]
+                # later columns a block at a time, each from its diagonal down (the lower
+                # triangle only, not the whole square)
+                for b0 in range(0, nT, _CHUNK):
+                    b1 = min(b0 + _CHUNK, nT)
+                    U = u_buf[: (b1 - b0) * (nr - b0)].reshape((b1 - b0, nr - b0))
+                    np.dot(BD[b0:b1], Bt[b0:].T, U)
+                    for c in range(b0, b1):
+                        for r in range(c, nr):
+                            P[a1 + c, a1 + r] -= U[c - b0, r - b0]
         for a in range(s):
             off = Lp[c0 + a] - a - 1
             for r in range(a + 1, h):
@@ -454,6 +489,9 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
     lcr_buf = np.empty(_CHUNK * maxm)                  # (w x m)
     zb_buf = np.empty(maxs * maxh)                     # (nJ x h - a1)
     zr_buf = np.empty(maxm * maxs)                     # (m x nJ)
+    ci_buf = np.empty(_CHUNK * _CHUNK)                 # inverse of the chunk's unit lower block
+    s_buf = np.empty(_CHUNK * _CHUNK)                  # L[beyond, chunk]' Z[beyond, chunk]
+    lrow_buf = np.empty(_CHUNK * maxh)                 # L[beyond, chunk]'  (w x h - a1)
     for J in range(n_s - 1, -1, -1):
         c0, c1 = snode[J], snode[J + 1]
         s = c1 - c0
@@ -539,31 +577,78 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
                     Pn = p_buf[: w * nJ].reshape((w, nJ))
                     np.dot(LcR, ZR, Pn)
                     T[:, :nJ] += Pn
-            for a in range(a1 - 1, a0 - 1, -1):
-                j = c0 + a
-                off = Lp[j] - a - 1          # L[r, a] = Lx[off + r], r > a
-                for r in range(a1, h):
-                    Zt[a, r] = -T[a - a0, r - a1]
-                for c in range(a + 1, a1):
-                    lca = Lx[off + c]
-                    for r in range(a1, h):
-                        Zt[a, r] -= Zt[c, r] * lca
-                for r in range(a1, s):
-                    Zt[r, a] = Zt[a, r]
-                # rows of the chunk: row bq of Zt holds Z[bq, c] for every c > a
-                for bq in range(a + 1, a1):
-                    acc = 0.0
+            nr = h - a1
+            if w * w * nr >= _DENSE_PRODUCT:
+                # The chunk's rows beyond it at once: with Lc the chunk's unit lower block,
+                # Z[r, chunk] = -Lc^-T T[:, r] for every r >= a1 (one product with Lc's inverse);
+                # then S = L[beyond, chunk]' Z[beyond, chunk], so that the chunk's own block and
+                # diagonal need only sums inside the chunk
+                Ci_ = ci_buf[: w * w].reshape((w, w))
+                for x in range(w):
+                    for y in range(x):
+                        offy = Lp[c0 + a0 + y] - (a0 + y) - 1
+                        v = -Lx[offy + a0 + x]
+                        for z in range(y + 1, x):
+                            offz = Lp[c0 + a0 + z] - (a0 + z) - 1
+                            v -= Lx[offz + a0 + x] * Ci_[z, y]
+                        Ci_[x, y] = v
+                    Ci_[x, x] = 1.0
+                    for y in range(x + 1, w):
+                        Ci_[x, y] = 0.0
+                Zc = p_buf[: w * nr].reshape((w, nr))
+                np.dot(Ci_.T, T, Zc)
+                Lrow = lrow_buf[: w * nr].reshape((w, nr))
+                for a in range(w):
+                    off = Lp[c0 + a0 + a] - (a0 + a) - 1
+                    for r in range(nr):
+                        Zt[a0 + a, a1 + r] = -Zc[a, r]
+                        Lrow[a, r] = Lx[off + a1 + r]
+                    for r in range(a1, s):
+                        Zt[r, a0 + a] = Zt[a0 + a, r]
+                S_ = s_buf[: w * w].reshape((w, w))
+                np.dot(Lrow, Zc.T, S_)                 # S[a, b] = -sum_r L[r, a] Z[r, b]
+                for a in range(a1 - 1, a0 - 1, -1):
+                    j = c0 + a
+                    off = Lp[j] - a - 1
+                    for bq in range(a + 1, a1):
+                        acc = -S_[a - a0, bq - a0]
+                        for r in range(a + 1, a1):
+                            acc += Zt[bq, r] * Lx[off + r]
+                        Zt[a, bq] = -acc
+                        Zt[bq, a] = -acc
+                    dj = 1.0 / D[j] + S_[a - a0, a - a0]
+                    for r in range(a + 1, a1):
+                        dj -= Lx[off + r] * Zt[a, r]
+                    Zt[a, a] = dj
+                    Zd[j] = dj
                     for r in range(a + 1, h):
-                        acc += Zt[bq, r] * Lx[off + r]
-                    Zt[a, bq] = -acc
-                    Zt[bq, a] = -acc
-                dj = 1.0 / D[j]
-                for r in range(a + 1, h):
-                    dj -= Lx[off + r] * Zt[a, r]
-                Zt[a, a] = dj
-                Zd[j] = dj
-                for r in range(a + 1, h):
-                    Zx[off + r] = Zt[a, r]
+                        Zx[off + r] = Zt[a, r]
+            else:
+                for a in range(a1 - 1, a0 - 1, -1):
+                    j = c0 + a
+                    off = Lp[j] - a - 1          # L[r, a] = Lx[off + r], r > a
+                    for r in range(a1, h):
+                        Zt[a, r] = -T[a - a0, r - a1]
+                    for c in range(a + 1, a1):
+                        lca = Lx[off + c]
+                        for r in range(a1, h):
+                            Zt[a, r] -= Zt[c, r] * lca
+                    for r in range(a1, s):
+                        Zt[r, a] = Zt[a, r]
+                    # rows of the chunk: row bq of Zt holds Z[bq, c] for every c > a
+                    for bq in range(a + 1, a1):
+                        acc = 0.0
+                        for r in range(a + 1, h):
+                            acc += Zt[bq, r] * Lx[off + r]
+                        Zt[a, bq] = -acc
+                        Zt[bq, a] = -acc
+                    dj = 1.0 / D[j]
+                    for r in range(a + 1, h):
+                        dj -= Lx[off + r] * Zt[a, r]
+                    Zt[a, a] = dj
+                    Zd[j] = dj
+                    for r in range(a + 1, h):
+                        Zx[off + r] = Zt[a, r]
             a1 = a0
 
 
