@@ -290,6 +290,22 @@ def _panel_sizes(snode, Lp):
     return big, bigr
 
 
+@numba.njit(cache=True)
+def _unit_lower_inverse(Lc, out):
+    """``out`` = the inverse of the unit lower triangular matrix whose entries below the diagonal are
+    those of ``Lc`` (its diagonal and upper triangle are not read), by forward substitution."""
+    w = Lc.shape[0]
+    for x in range(w):
+        for y in range(x):
+            v = -Lc[x, y]
+            for z in range(y + 1, x):
+                v -= Lc[x, z] * out[z, y]
+            out[x, y] = v
+        out[x, x] = 1.0
+        for y in range(x + 1, w):
+            out[x, y] = 0.0
+
+
 @numba.njit(cache=True, fastmath=_SUMS)
 def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
     """``C = L D L'`` a supernode at a time (left-looking): ``C`` here is the *lower* triangle
@@ -313,7 +329,8 @@ def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
     bd_buf = np.empty(maxs * max(maxs, _CHUNK))        # L_JK D_K (nj x sK); the chunk's (nT x w)
     u_buf = np.empty(maxs * maxh)                      # their products     (nj x rem; nT x h - a1)
     b_buf = np.empty(_CHUNK * maxh)                    # the chunk's rows   (w x h - a1)
-    ci_buf = np.empty(_CHUNK * _CHUNK)                 # inverse of the chunk's unit lower block
+    lc_buf = np.empty(_CHUNK * _CHUNK)                 # the chunk's unit lower block (below its diagonal)
+    ci_buf = np.empty(_CHUNK * _CHUNK)                 # its inverse
     relmap = np.empty(n, dtype=np.int64)
     head = np.full(n_s, -1, dtype=np.int64)
     nxt = np.full(n_s, -1, dtype=np.int64)
@@ -410,16 +427,12 @@ def ldl_supernodal(Cp, Ci, Cx, snode, Lp, Li, Lx, D):
                 # rows r >= a1 of the chunk's columns: L[r, chunk] = M[r, chunk] Lc^-T D^-1, with
                 # Lc the chunk's unit lower block (Lc[x, y] = P[a0 + y, a0 + x]) and M the panel
                 # as the earlier chunks left it
-                Ci_ = ci_buf[: w * w].reshape((w, w))
+                Lc = lc_buf[: w * w].reshape((w, w))
                 for x in range(w):
                     for y in range(x):
-                        v = -P[a0 + y, a0 + x]
-                        for z in range(y + 1, x):
-                            v -= P[a0 + z, a0 + x] * Ci_[z, y]
-                        Ci_[x, y] = v
-                    Ci_[x, x] = 1.0
-                    for y in range(x + 1, w):
-                        Ci_[x, y] = 0.0
+                        Lc[x, y] = P[a0 + y, a0 + x]
+                Ci_ = ci_buf[: w * w].reshape((w, w))
+                _unit_lower_inverse(Lc, Ci_)
                 nr = h - a1
                 Bm = b_buf[: w * nr].reshape((w, nr))
                 for a in range(w):
@@ -489,7 +502,8 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
     lcr_buf = np.empty(_CHUNK * maxm)                  # (w x m)
     zb_buf = np.empty(maxs * maxh)                     # (nJ x h - a1)
     zr_buf = np.empty(maxm * maxs)                     # (m x nJ)
-    ci_buf = np.empty(_CHUNK * _CHUNK)                 # inverse of the chunk's unit lower block
+    lg_buf = np.empty(_CHUNK * _CHUNK)                 # the chunk's unit lower block (below its diagonal)
+    ci_buf = np.empty(_CHUNK * _CHUNK)                 # its inverse
     s_buf = np.empty(_CHUNK * _CHUNK)                  # L[beyond, chunk]' Z[beyond, chunk]
     lrow_buf = np.empty(_CHUNK * maxh)                 # L[beyond, chunk]'  (w x h - a1)
     for J in range(n_s - 1, -1, -1):
@@ -583,18 +597,13 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
                 # Z[r, chunk] = -Lc^-T T[:, r] for every r >= a1 (one product with Lc's inverse);
                 # then S = L[beyond, chunk]' Z[beyond, chunk], so that the chunk's own block and
                 # diagonal need only sums inside the chunk
+                Lg = lg_buf[: w * w].reshape((w, w))
+                for y in range(w):
+                    offy = Lp[c0 + a0 + y] - (a0 + y) - 1
+                    for x in range(y + 1, w):
+                        Lg[x, y] = Lx[offy + a0 + x]
                 Ci_ = ci_buf[: w * w].reshape((w, w))
-                for x in range(w):
-                    for y in range(x):
-                        offy = Lp[c0 + a0 + y] - (a0 + y) - 1
-                        v = -Lx[offy + a0 + x]
-                        for z in range(y + 1, x):
-                            offz = Lp[c0 + a0 + z] - (a0 + z) - 1
-                            v -= Lx[offz + a0 + x] * Ci_[z, y]
-                        Ci_[x, y] = v
-                    Ci_[x, x] = 1.0
-                    for y in range(x + 1, w):
-                        Ci_[x, y] = 0.0
+                _unit_lower_inverse(Lg, Ci_)
                 Zc = p_buf[: w * nr].reshape((w, nr))
                 np.dot(Ci_.T, T, Zc)
                 Lrow = lrow_buf[: w * nr].reshape((w, nr))
