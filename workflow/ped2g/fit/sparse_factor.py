@@ -592,11 +592,12 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
                     np.dot(LcR, ZR, Pn)
                     T[:, :nJ] += Pn
             nr = h - a1
-            if w * w * nr >= _DENSE_PRODUCT:
-                # The chunk's rows beyond it at once: with Lc the chunk's unit lower block,
-                # Z[r, chunk] = -Lc^-T T[:, r] for every r >= a1 (one product with Lc's inverse);
-                # then S = L[beyond, chunk]' Z[beyond, chunk], so that the chunk's own block and
-                # diagonal need only sums inside the chunk
+            blas = w * w * nr >= _DENSE_PRODUCT
+            S_ = s_buf[: w * w].reshape((w, w))
+            if blas:
+                # The chunk's rows beyond it at once: with Lg the chunk's unit lower block,
+                # Z[r, chunk] = -Lg^-T T[:, r] for every r >= a1 (one product with Lg's inverse);
+                # then S = -L[beyond, chunk]' Z[beyond, chunk] is one more product
                 Lg = lg_buf[: w * w].reshape((w, w))
                 for y in range(w):
                     offy = Lp[c0 + a0 + y] - (a0 + y) - 1
@@ -614,28 +615,13 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
                         Lrow[a, r] = Lx[off + a1 + r]
                     for r in range(a1, s):
                         Zt[r, a0 + a] = Zt[a0 + a, r]
-                S_ = s_buf[: w * w].reshape((w, w))
-                np.dot(Lrow, Zc.T, S_)                 # S[a, b] = -sum_r L[r, a] Z[r, b]
-                for a in range(a1 - 1, a0 - 1, -1):
-                    j = c0 + a
-                    off = Lp[j] - a - 1
-                    for bq in range(a + 1, a1):
-                        acc = -S_[a - a0, bq - a0]
-                        for r in range(a + 1, a1):
-                            acc += Zt[bq, r] * Lx[off + r]
-                        Zt[a, bq] = -acc
-                        Zt[bq, a] = -acc
-                    dj = 1.0 / D[j] + S_[a - a0, a - a0]
-                    for r in range(a + 1, a1):
-                        dj -= Lx[off + r] * Zt[a, r]
-                    Zt[a, a] = dj
-                    Zd[j] = dj
-                    for r in range(a + 1, h):
-                        Zx[off + r] = Zt[a, r]
-            else:
-                for a in range(a1 - 1, a0 - 1, -1):
-                    j = c0 + a
-                    off = Lp[j] - a - 1          # L[r, a] = Lx[off + r], r > a
+                np.dot(Lrow, Zc.T, S_)
+            for a in range(a1 - 1, a0 - 1, -1):
+                j = c0 + a
+                off = Lp[j] - a - 1          # L[r, a] = Lx[off + r], r > a
+                if not blas:
+                    # the same, column by column: Z[a, r >= a1], then S[a, b] for the chunk's
+                    # columns b >= a (rows b > a are done)
                     for r in range(a1, h):
                         Zt[a, r] = -T[a - a0, r - a1]
                     for c in range(a + 1, a1):
@@ -644,20 +630,26 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
                             Zt[a, r] -= Zt[c, r] * lca
                     for r in range(a1, s):
                         Zt[r, a] = Zt[a, r]
-                    # rows of the chunk: row bq of Zt holds Z[bq, c] for every c > a
-                    for bq in range(a + 1, a1):
+                    for bq in range(a, a1):
                         acc = 0.0
-                        for r in range(a + 1, h):
+                        for r in range(a1, h):
                             acc += Zt[bq, r] * Lx[off + r]
-                        Zt[a, bq] = -acc
-                        Zt[bq, a] = -acc
-                    dj = 1.0 / D[j]
-                    for r in range(a + 1, h):
-                        dj -= Lx[off + r] * Zt[a, r]
-                    Zt[a, a] = dj
-                    Zd[j] = dj
-                    for r in range(a + 1, h):
-                        Zx[off + r] = Zt[a, r]
+                        S_[a - a0, bq - a0] = -acc
+                # rows of the chunk (row bq of Zt holds Z[bq, c] for every c > a): the sums over
+                # the rows beyond the chunk are -S, those inside it remain
+                for bq in range(a + 1, a1):
+                    acc = -S_[a - a0, bq - a0]
+                    for r in range(a + 1, a1):
+                        acc += Zt[bq, r] * Lx[off + r]
+                    Zt[a, bq] = -acc
+                    Zt[bq, a] = -acc
+                dj = 1.0 / D[j] + S_[a - a0, a - a0]
+                for r in range(a + 1, a1):
+                    dj -= Lx[off + r] * Zt[a, r]
+                Zt[a, a] = dj
+                Zd[j] = dj
+                for r in range(a + 1, h):
+                    Zx[off + r] = Zt[a, r]
             a1 = a0
 
 
