@@ -31,6 +31,8 @@ level drawn at once from one sparse factorisation per iteration, then each covar
 effects given the levels), ``--chains`` chains of ``--gibbs-warmup`` + ``--gibbs-draws`` iterations
 on ``--cores`` processes; its "gradients" column counts factorisations (iterations).
 
+``--random cohort`` (any of maternal, permanent, cohort) fits only those extra effects.
+
 ``--time-calls`` prints the median time of one log-likelihood with its gradient and of one draw of
 every level (``sparse_mme.effects``) on this design, alone and with one BLAS thread (50 calls each).
 
@@ -243,6 +245,8 @@ def main(argv=None) -> int:
     parser.add_argument("--cap-gibbs", type=float, default=1800.0, help="wall-clock cap of each Gibbs chain (s)")
     parser.add_argument("--cap-sparse", type=float, default=1800.0, help="wall-clock cap of sampling (s)")
     parser.add_argument("--cap-marginal", type=float, default=600.0, help="wall-clock cap of sampling (s)")
+    parser.add_argument("--random", nargs="+", default=["maternal", "permanent", "cohort"],
+                        choices=["maternal", "permanent", "cohort"], help="the extra random effects in the model")
     parser.add_argument("--time-calls", action="store_true", help="time one gradient and one level draw, then stop")
     parser.add_argument("--nutpie", type=_option, action="append", default=[], metavar="KEY=VALUE",
                         help="extra keyword for nutpie.sample, over the engine's own (YAML value; repeatable), "
@@ -254,7 +258,8 @@ def main(argv=None) -> int:
     start = time.perf_counter()
     data, cfg, truth = field_study.design(seed=args.seed, animals=args.animals, founders=args.founders,
                                           phenotyped=args.phenotyped, records_per_animal=args.records,
-                                          years=args.years)
+                                          years=args.years,
+                                          random=[e for e in field_study.RANDOM if e["name"] in args.random])
     data = field_study.simulate(data, truth, np.random.default_rng(args.seed))
     levels = ", ".join(f"{e.name} {e.n_levels} levels ({int((~e.known).sum())} records unknown)" for e in data.random)
     print(f"design: {data.n_records} records of {int(data.phenotyped.sum())} animals, pedigree {data.pedigree.n} "
