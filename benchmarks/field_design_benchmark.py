@@ -36,6 +36,9 @@ on ``--cores`` processes; its "gradients" column counts factorisations (iteratio
 ``--time-calls`` prints the median time of one log-likelihood with its gradient and of one draw of
 every level (``sparse_mme.effects``) on this design, alone and with one BLAS thread (50 calls each).
 
+NUTS runs at nutpie's default target acceptance of 0.8 unless ``--nutpie target_accept=X`` says
+otherwise; the fit stage's default (``sampling.target_accept``) is 0.9.
+
 ``--nutpie KEY=VALUE`` adds a keyword for ``nutpie.sample`` over the engine's own, for example
 ``--nutpie low_rank_modified_mass_matrix=true`` (measured in benchmarks/README.md: not adopted).
 

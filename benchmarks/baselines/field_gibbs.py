@@ -12,7 +12,7 @@ iteration updates, in turn:
 2. the missing trait cells of each record from their normal distribution given its observed cells,
    the levels, the fixed effects and R (data augmentation, so that step 3 sees complete residuals);
 3. each covariance matrix (G from ``U' A^-1 U``, each extra effect's from ``U_c' U_c``, R from the
-   complete residuals) by :func:`draw_covariance`: independence Metropolis-Hastings whose proposal
+   complete residuals) by :class:`CovarianceStep`: independence Metropolis-Hastings whose proposal
    is the covariance's exact conditional distribution under a reference inverse-Wishart prior and
    whose acceptance ratio is the ratio of the model's prior (half-normal or half-t standard
    deviations with an LKJ correlation, :func:`log_prior_density`) to the reference prior, so the
@@ -25,6 +25,11 @@ Every step draws from an exact conditional distribution or leaves it invariant, 
 targets the model's posterior with no tuning; warm-up is burn-in only. Step 1 and the missing-cell
 draws are the classic data-augmentation scheme (Garcia-Cortes & Sorensen 1996 [M] for drawing all
 levels by solving the equations with a perturbed right-hand side; Sorensen & Gianola 2002 [M]).
+
+Measured against the sparse engine on the field design of benchmarks/field_design_benchmark.py
+(``--engines gibbs``; benchmarks/README.md): G and the permanent-environment covariance mix
+slowly given the levels, and it gave 0.30 effective samples per second against the sparse
+engine's 1.04, so the workflow does not use it.
 """
 
 from __future__ import annotations
