@@ -148,6 +148,8 @@ def run_engine(name: str, data, cfg, args, cap: float) -> dict:
            "nutpie_options": {**(built.nutpie_options or {}), **dict(args.nutpie)}}
     if stopped:
         row["extrapolated_s"] = build_s + compile_s + sample_s * planned / max(iters, 1)
+    if args.save:
+        idata.to_netcdf(f"{args.save}.{name}.nc")
     if "posterior" in idata.groups() and idata.posterior.sizes["draw"] >= 4:
         s = summary(idata, names)
         if s["kept"] >= 4:
@@ -250,6 +252,8 @@ def main(argv=None) -> int:
     parser.add_argument("--cap-marginal", type=float, default=600.0, help="wall-clock cap of sampling (s)")
     parser.add_argument("--random", nargs="+", default=["maternal", "permanent", "cohort"],
                         choices=["maternal", "permanent", "cohort"], help="the extra random effects in the model")
+    parser.add_argument("--save", default=None, metavar="PREFIX",
+                        help="write each NUTS engine's draws and sampler statistics to PREFIX.<engine>.nc")
     parser.add_argument("--time-calls", action="store_true", help="time one gradient and one level draw, then stop")
     parser.add_argument("--nutpie", type=_option, action="append", default=[], metavar="KEY=VALUE",
                         help="extra keyword for nutpie.sample, over the engine's own (YAML value; repeatable), "
