@@ -161,8 +161,9 @@ def run_engine(name: str, data, cfg, args, cap: float) -> dict:
 def _gibbs_chain(job) -> object:
     from benchmarks.baselines.field_gibbs import BlockGibbs
 
-    data, model_config, draws, warmup, seed, budget = job
-    return BlockGibbs(data, model_config).run(draws, warmup, np.random.default_rng(seed), time_budget=budget)
+    data, model_config, design, draws, warmup, seed, budget = job
+    return BlockGibbs(data, model_config, design).run(draws, warmup, np.random.default_rng(seed),
+                                                      time_budget=budget)
 
 
 def run_gibbs(data, cfg, args) -> dict:
@@ -178,7 +179,7 @@ def run_gibbs(data, cfg, args) -> dict:
     design = sparse_mme.design_for(data)
     build_s = time.perf_counter() - start
     seeds = np.random.SeedSequence(args.seed).generate_state(args.chains)
-    jobs = [(data, cfg["model"], args.gibbs_draws, args.gibbs_warmup, int(s), args.cap_gibbs) for s in seeds]
+    jobs = [(data, cfg["model"], design, args.gibbs_draws, args.gibbs_warmup, int(s), args.cap_gibbs) for s in seeds]
     start = time.perf_counter()
     with blas_thread_limit(1), multiprocessing.get_context("fork").Pool(min(args.chains, args.cores)) as pool:
         chains = pool.map(_gibbs_chain, jobs)
@@ -259,6 +260,8 @@ def main(argv=None) -> int:
                         help="extra keyword for nutpie.sample, over the engine's own (YAML value; repeatable), "
                              "e.g. low_rank_modified_mass_matrix=true")
     args = parser.parse_args(argv)
+    if args.save and not Path(args.save).resolve().parent.is_dir():
+        parser.error(f"--save {args.save}: folder {Path(args.save).resolve().parent} does not exist")
 
     import field_study
 

@@ -39,6 +39,7 @@ import time
 from dataclasses import dataclass, field
 
 import numpy as np
+from benchmarks.baselines.gibbs import _impute
 from ped2g.config import with_defaults
 from ped2g.fit import sparse_mme
 from ped2g.fit.data import FitData
@@ -158,7 +159,8 @@ class CovarianceStep:
 # ------------------------------------------------------------------------------------------------
 
 class _Patterns:
-    """Index sets of each pattern of observed traits (for the missing-cell and fixed-effect steps)."""
+    """Records of each pattern of observed traits, with their observed and missing traits and X'X
+    (for the fixed-effect step)."""
 
     def __init__(self, missing: np.ndarray, X: np.ndarray):
         pats, inverse = np.unique(missing, axis=0, return_inverse=True)
@@ -223,20 +225,6 @@ class BlockGibbs:
             out[known] += blocks[self.offsets[1 + c] + level[known]]
         return out
 
-    def _impute(self, E: np.ndarray, R: np.ndarray, rng: np.random.Generator) -> None:
-        """Missing cells of the residuals E (in place) from their normal given the observed cells."""
-        for rows, m, o, _ in self.patterns.groups:
-            if not len(m):
-                continue
-            if len(o):
-                K = np.linalg.solve(R[np.ix_(o, o)], R[np.ix_(o, m)]).T
-                mean = E[np.ix_(rows, o)] @ K.T
-                cov = R[np.ix_(m, m)] - K @ R[np.ix_(o, m)]
-            else:
-                mean, cov = 0.0, R[np.ix_(m, m)]
-            L = np.linalg.cholesky(0.5 * (cov + cov.T))
-            E[np.ix_(rows, m)] = mean + rng.standard_normal((len(rows), len(m))) @ L.T
-
     def _draw_beta(self, Y: np.ndarray, R: np.ndarray, rng: np.random.Generator) -> np.ndarray:
         """Fixed effects (p, t) given ``Y = y - W u`` (observed cells) and R: normal with precision
         ``I / fixed_sd^2 + sum_r (x_r x_r') (x) P_r`` (``P_r``: inverse of R over record r's
@@ -295,7 +283,7 @@ class BlockGibbs:
                 S_G = U.T @ (self.Ainv @ U)
                 G = steps["G"].draw(G, 0.5 * (S_G + S_G.T), len(U), rng)
                 E = (self.y0 - self.X @ beta - location) * self.observed
-                self._impute(E, R, rng)
+                _impute(E, np.zeros_like(E), self.missing, R, rng)    # residuals: mean 0
                 R = steps["R"].draw(R, E.T @ E, len(E), rng)
             for c, eff in enumerate(self.data.random):
                 Uc = blocks[self.offsets[1 + c]:self.offsets[2 + c]]
