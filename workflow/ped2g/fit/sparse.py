@@ -7,7 +7,9 @@ and the covariance matrices comes from one sparse ``L D L'`` factorisation of He
 coefficient matrix per evaluation, and its gradient from the selected inverse of that matrix
 (:mod:`ped2g.fit.sparse_mme`, wrapped as one PyTensor Op in
 :mod:`ped2g.fit.sparse_likelihood_op`). What NUTS samples: G, R, each extra effect's covariance
-(priors of :mod:`ped2g.fit.priors`) and the fixed effects ``beta`` -- kept as parameters rather
+(priors of :mod:`ped2g.fit.priors`, through signed scales and canonical partial correlations, so
+that a variance whose posterior reaches zero does not leave NUTS a long tail of its log-SD) and
+the fixed effects ``beta`` -- kept as parameters rather
 than integrated out, as in the marginal engine. Missing trait cells simply drop out (each record
 contributes ``(R_oo)^-1`` of its observed traits), so no missing-value step is needed.
 
@@ -65,8 +67,8 @@ def build_model(data: FitData, model_config: dict, design: sparse_mme.Design | N
     priors = with_defaults(model_config, "model")["priors"]
     coords = {"trait": data.traits, "trait2": data.traits, "x": data.x_names}
     with pm.Model(coords=coords) as model:
-        G, _, R, _, beta = shared_priors(data, model_config)
-        covs = [covariance_prior(f"cov_{eff.name}", t, priors)[0] for eff in data.random]
+        G, _, R, _, beta = shared_priors(data, model_config, signed_sd=True)
+        covs = [covariance_prior(f"cov_{eff.name}", t, priors, signed_sd=True)[0] for eff in data.random]
         covs_t = pt.stack(covs) if covs else pt.zeros((0, t, t))
         y = pm.Data("y", np.where(data.missing, 0.0, data.y))
         X = pm.Data("X", np.asarray(data.X, dtype=float))
