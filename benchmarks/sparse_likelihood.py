@@ -31,7 +31,8 @@ import numpy as np
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "workflow"))
 
 
-def simulated_design(n: int, t: int, seed: int = 1, max_records: int | None = None):
+def simulated_design(n: int, t: int, seed: int = 1, max_records: int | None = None, missing: float = 0.1,
+                     extra_effects: bool = True):
     from ped2g.fit import sparse_mme
     from ped2g.pedigree.core import Pedigree
     from ped2g.pedigree.relationships import inbreeding
@@ -57,14 +58,14 @@ def simulated_design(n: int, t: int, seed: int = 1, max_records: int | None = No
     rec = np.concatenate([recorded, recorded[rng.random(len(recorded)) < 0.2]])
     if max_records is not None and len(rec) > max_records:
         rec = np.sort(rng.choice(rec, max_records, replace=False))
-    observed = rng.random((len(rec), t)) > 0.1
+    observed = rng.random((len(rec), t)) >= missing
     observed[~observed.any(axis=1), 0] = True
     dams = np.unique(dam[dam >= 0])
     maternal = np.where(dam[rec] >= 0, np.searchsorted(dams, dam[rec]), -1)
     animals, pe = np.unique(rec, return_inverse=True)
     cohort = gen[rec] * 10 + rng.integers(0, 10, len(rec))
     cohorts, cohort = np.unique(cohort, return_inverse=True)
-    effects = [(maternal, len(dams)), (pe, len(animals)), (cohort, len(cohorts))]
+    effects = [(maternal, len(dams)), (pe, len(animals)), (cohort, len(cohorts))] if extra_effects else []
     start = time.perf_counter()
     design = sparse_mme.build_design(ped, rec, observed, effects)
     seconds = time.perf_counter() - start
@@ -80,16 +81,22 @@ def main(argv=None) -> int:
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--max-records", type=int, default=None)
     parser.add_argument("--level-draw", action="store_true", help="also time one draw of all levels")
+    parser.add_argument("--animal-model", action="store_true",
+                        help="no extra random effects and every cell observed: the design of the canonical route, "
+                             "timed by both routes (general: one factorisation of all traits; canonical: one "
+                             "per trait)")
     args = parser.parse_args(argv)
     t = args.traits
     rng = np.random.default_rng(0)
     print(f"{'animals':>8} {'records':>8} {'unknowns':>9} {'nnz(C)':>11} {'nnz(L)':>12} {'design s':>9} "
           f"{'logL+grad s':>12} {'supernodes':>10} {'peak MB':>8}" + (f" {'draw s':>8}" if args.level_draw else ""))
     for n in args.animals:
-        design, observed, build_s = simulated_design(n, t, max_records=args.max_records)
+        design, observed, build_s = simulated_design(n, t, max_records=args.max_records,
+                                                     missing=0.0 if args.animal_model else 0.1,
+                                                     extra_effects=not args.animal_model)
         G = 0.4 * np.eye(t) + 0.1
         R = 0.5 * np.eye(t) + 0.1
-        covs = [0.1 * np.eye(t) + 0.02, 0.15 * np.eye(t) + 0.03, 0.05 * np.eye(t)]
+        covs = [] if args.animal_model else [0.1 * np.eye(t) + 0.02, 0.15 * np.eye(t) + 0.03, 0.05 * np.eye(t)]
         resid = np.where(observed, rng.normal(size=observed.shape), 0.0)
         sparse_mme.logp_and_grad(design, resid, G, R, covs)          # compile / warm up
         times = []
@@ -98,6 +105,15 @@ def main(argv=None) -> int:
             value = sparse_mme.logp_and_grad(design, resid, G, R, covs)[0]
             times.append(time.perf_counter() - start)
         assert np.isfinite(value)
+        canonical = ""
+        if args.animal_model:
+            sparse_mme.logp_and_grad(design, resid, G, R, covs, canonical=False)
+            general = []
+            for _ in range(args.repeats):
+                start = time.perf_counter()
+                sparse_mme.logp_and_grad(design, resid, G, R, covs, canonical=False)
+                general.append(time.perf_counter() - start)
+            canonical = f"  general route {min(general):.3f} s, canonical {min(times):.3f} s"
         draw = ""
         if args.level_draw:
             args_draw = (design, resid[None], G[None], R[None], np.array(covs)[None])
@@ -112,7 +128,7 @@ def main(argv=None) -> int:
         nnz_c = 2 * len(design.Ci) - design.n_unknowns
         print(f"{n:>8} {len(observed):>8} {design.n_unknowns:>9} {nnz_c:>11,} {design.factor_nnz:>12,} "
               f"{build_s:>9.2f} {min(times):>12.3f} {len(design.snode) - 1:>10,} "
-              f"{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:>8.0f}{draw}", flush=True)
+              f"{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:>8.0f}{draw}{canonical}", flush=True)
     return 0
 
 

@@ -18,7 +18,7 @@ from ped2g.pedigree.relationships import inbreeding
 from ped2g.simulate.breeding_values import simulate_breeding_values
 
 
-def small_study(seed: int = 3, n: int = 300, t: int = 2) -> FitData:
+def small_study(seed: int = 3, n: int = 300, t: int = 2, missing: float = 0.1) -> FitData:
     rng = np.random.default_rng(seed)
     cohorts = np.repeat(np.arange(5), n // 5)
     sire = -np.ones(n, np.int64)
@@ -40,7 +40,7 @@ def small_study(seed: int = 3, n: int = 300, t: int = 2) -> FitData:
     rec = np.flatnonzero(cohorts > 0)
     x = (rng.random(len(rec)) < 0.5).astype(float)
     y = 0.4 * x[:, None] + a[rec] + rng.standard_normal((len(rec), t)) @ np.linalg.cholesky(R).T
-    y[rng.random(y.shape) < 0.1] = np.nan
+    y[rng.random(y.shape) < missing] = np.nan
     y[np.isnan(y).all(axis=1), 0] = 0.0
     c, s = np.nanmean(y, 0), np.nanstd(y, 0, ddof=1)
     return FitData(population="p", traits=["u", "v"], pedigree=ped, phenotyped=np.isin(np.arange(n), rec),

@@ -13,6 +13,11 @@ the fixed effects ``beta`` -- kept as parameters rather
 than integrated out, as in the marginal engine. Missing trait cells simply drop out (each record
 contributes ``(R_oo)^-1`` of its observed traits), so no missing-value step is needed.
 
+With no extra random effect and every cell observed, the likelihood takes the canonical route
+(docs/methods.md §2.14): one ``t x t`` transformation splits the model into ``t`` one-trait
+models, each with its own factorisation of an ``n``-unknown system (8.5 times faster per gradient
+than the ``t n``-unknown system at 100,000 animals and 4 traits).
+
 Cost: no dense matrix anywhere; memory and time follow the non-zeros of the factor, which depend
 on the pedigree's structure (benchmarks/sparse_likelihood.py). Breeding values are drawn
 afterwards from their exact conditional distribution given each posterior draw,
@@ -74,11 +79,11 @@ def build_model(data: FitData, model_config: dict, design: sparse_mme.Design | N
         X = pm.Data("X", np.asarray(data.X, dtype=float))
         observed = pm.Data("observed", observed_residual_mask(data))
         resid = (y - X @ beta) * observed
-        arrays = design.inputs()
+        arrays = design.likelihood_inputs()
         if max(int(np.abs(a).max(initial=0)) for a in arrays if a.dtype.kind == "i") >= 2**31:
             raise ValueError("the sparse design is too large for 32-bit indices")
         structure = [pm.Data(f"mme_{name}", arr) for name, arr in zip(sparse_mme.INPUT_NAMES, arrays)]
-        pm.Potential("loglik", sparse_mme_logp(resid, G, R, covs_t, structure))
+        pm.Potential("loglik", sparse_mme_logp(resid, G, R, covs_t, structure, canonical=design.canonical))
     return model
 
 
@@ -155,11 +160,16 @@ class SparseEngine:
         from ..machine import available_memory
 
         design = self.design(data)
-        need = BYTES_PER_FACTOR_NONZERO * float(design.factor_nnz)
+        factored = design.univariate if design.canonical else design
+        need = BYTES_PER_FACTOR_NONZERO * float(factored.factor_nnz)
         memory = self.memory if self.memory is not None else available_memory()
         if memory is not None and need > MEMORY_SHARE * memory:
-            return False, (f"the sparse factor has {design.factor_nnz:,} non-zeros, about {need / 1e9:.1f} GB, "
+            return False, (f"the sparse factor has {factored.factor_nnz:,} non-zeros, about {need / 1e9:.1f} GB, "
                            f"and this process has {memory / 1e9:.1f} GB available")
+        if design.canonical:
+            return True, (f"sparse mixed-model equations by the canonical route (no extra random effect, no "
+                          f"missing cell): {design.t} one-trait systems of {factored.n_unknowns:,} unknowns, "
+                          f"{factored.factor_nnz:,} non-zeros in each factor")
         return True, (f"sparse mixed-model equations: {design.n_unknowns:,} random-effect unknowns, "
                       f"{design.factor_nnz:,} non-zeros in the factor")
 

@@ -19,7 +19,7 @@ from pytensor.graph.op import Op
 
 from . import sparse_factor, sparse_mme
 from .numba_ops import register_kernel
-from .sparse_mme import INPUT_NAMES, mme_logp_and_grad
+from .sparse_mme import INPUT_NAMES, canonical_logp_and_grad, mme_logp_and_grad
 
 #: Kind of each structural input (in the order of :data:`ped2g.fit.sparse_mme.INPUT_NAMES`): integer
 #: ("i", any width: ``pm.Data`` stores integers at PyMC's integer precision, and the numba kernel
@@ -29,9 +29,15 @@ INPUT_NDIMS = (1, 1, 1, 1, 1, 1, 1, 1, 1, 1, 1, 3, 2, 1, 1)
 
 
 class SparseMMELogp(Op):
-    """Outputs (log L, d/d resid, d/dG, d/dR, d/dcovs); only the first is differentiable."""
+    """Outputs (log L, d/d resid, d/dG, d/dR, d/dcovs); only the first is differentiable.
 
-    __props__ = ()
+    ``canonical``: the kernel is :func:`ped2g.fit.sparse_mme.canonical_logp_and_grad` and the
+    structural inputs are the one-trait design's (``Design.likelihood_inputs``)."""
+
+    __props__ = ("canonical",)
+
+    def __init__(self, canonical: bool = False):
+        self.canonical = bool(canonical)
 
     def make_node(self, resid, G, R, covs, *structure):
         if len(structure) != len(INPUT_NAMES):
@@ -52,7 +58,8 @@ class SparseMMELogp(Op):
         return Apply(self, [resid, G, R, covs, *structure], outputs)
 
     def perform(self, node, inputs, output_storage):
-        value, d_resid, dG, dR, dcovs = mme_logp_and_grad(*inputs)
+        kernel = canonical_logp_and_grad if self.canonical else mme_logp_and_grad
+        value, d_resid, dG, dR, dcovs = kernel(*inputs)
         output_storage[0][0] = np.asarray(value)
         output_storage[1][0] = d_resid
         output_storage[2][0] = dG
@@ -75,22 +82,22 @@ class SparseMMELogp(Op):
                 *[DisconnectedType()() for _ in INPUT_NAMES]]
 
 
-sparse_mme_op = SparseMMELogp()
-
-
-def sparse_mme_logp(resid, G, R, covs, structure) -> pt.TensorVariable:
+def sparse_mme_logp(resid, G, R, covs, structure, canonical: bool = False) -> pt.TensorVariable:
     """The marginal log-likelihood (a scalar) for residuals ``resid`` (n, t), ``G``, ``R`` and the
     stacked extra-effect covariances ``covs`` (n_c, t, t); ``structure`` the design's arrays in the
-    order of :data:`ped2g.fit.sparse_mme.INPUT_NAMES` (tensors or arrays)."""
-    return sparse_mme_op(resid, G, R, covs, *structure)[0]
+    order of :data:`ped2g.fit.sparse_mme.INPUT_NAMES` (tensors or arrays): those of
+    ``Design.likelihood_inputs()``, with ``canonical=Design.canonical``."""
+    return SparseMMELogp(canonical)(resid, G, R, covs, *structure)[0]
 
 
 def _kernel(op):
+    kernel = canonical_logp_and_grad if op.canonical else mme_logp_and_grad
+
     def sparse_mme(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci, Cj, snode, Lp, Li, c_to_l,
                    rec_pattern, rec_index, patterns, n_levels, const):
-        value, d_resid, dG, dR, dcovs = mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp,
-                                                          Ci, Cj, snode, Lp, Li, c_to_l, rec_pattern, rec_index,
-                                                          patterns, n_levels, const)
+        value, d_resid, dG, dR, dcovs = kernel(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci, Cj,
+                                               snode, Lp, Li, c_to_l, rec_pattern, rec_index, patterns, n_levels,
+                                               const)
         return np.asarray(value), d_resid, dG, dR, dcovs
 
     return sparse_mme

@@ -71,6 +71,9 @@ class Design:
     const: float                # -1/2 (n_obs log 2 pi + t log|A|)
     n_obs: int
     log_det_A: float
+    #: The one-trait design of the same records, when the canonical route applies (no extra
+    #: effect, every cell observed, t > 1; :func:`canonical_logp_and_grad`), else None.
+    univariate: "Design | None" = None
 
     @property
     def n_unknowns(self) -> int:
@@ -80,6 +83,16 @@ class Design:
     def factor_nnz(self) -> int:
         """Non-zeros of the factor L (unit diagonal included)."""
         return int(len(self.Li) + self.n_unknowns)
+
+    @property
+    def canonical(self) -> bool:
+        """Whether the likelihood goes by the canonical route (:func:`canonical_logp_and_grad`)."""
+        return self.univariate is not None
+
+    def likelihood_inputs(self) -> tuple:
+        """The structural arrays the likelihood kernel takes: the one-trait design's on the
+        canonical route, else :meth:`inputs`."""
+        return self.univariate.inputs() if self.univariate is not None else self.inputs()
 
     def inputs(self) -> tuple:
         """The structural arrays in the order the kernels take them (after resid, G, R, covs)."""
@@ -94,7 +107,7 @@ INPUT_NAMES = ("term_pos", "term_midx", "term_coef", "Cp", "Ci", "Cj", "snode", 
 
 
 def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
-                 effects: list[tuple[np.ndarray, int]] = ()) -> Design:
+                 effects: list[tuple[np.ndarray, int]] = (), canonical: bool = True) -> Design:
     """Pattern, ordering, symbolic factorisation and index maps of the mixed-model equations.
 
     Parameters
@@ -104,6 +117,8 @@ def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
     observed : (n_records, t) bool, observed trait cells (every record has at least one)
     effects : list of (level, n_levels) per extra random effect; ``level`` (n_records,) int, ``-1``
         for a record that gets no contribution from the effect
+    canonical : also build the one-trait design of the canonical route where it applies (no extra
+        effect, every cell observed, more than one trait)
     """
     from ..pedigree.relationships import log_det_relationship, relationship_inverse
 
@@ -218,7 +233,10 @@ def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
         rec_index[:, f, :] = np.where(ok[:, None] & observed, idx, -1)
     n_obs = int(observed.sum())
     log_det_A = float(log_det_relationship(ped))
-    return Design(t=t, n_animals=n_a, n_levels=np.asarray(sizes, dtype=np.int64), block_offsets=offsets,
+    univariate = None
+    if canonical and t > 1 and not effects and observed.all():
+        univariate = build_design(ped, record_animal, np.ones((n_rec, 1), dtype=bool), [], canonical=False)
+    return Design(univariate=univariate, t=t, n_animals=n_a, n_levels=np.asarray(sizes, dtype=np.int64), block_offsets=offsets,
                   patterns=patterns.astype(np.int8), rec_pattern=rec_pattern, rec_index=rec_index,
                   term_pos=term_pos, term_midx=term_midx, term_coef=term_coef, Cp=Cp, Ci=Ci, Cj=Cj,
                   snode=snode, Lp=Lp, Li=Li, c_to_l=c_to_l.astype(np.int64), perm=perm,
@@ -440,6 +458,112 @@ def mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci,
 
 
 @numba.njit(cache=True)
+def canonical_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci, Cj, snode, Lp, Li, c_to_l,
+                            rec_pattern, rec_index, patterns, n_levels, const):
+    """(log L, d/d resid, d/dG, d/dR, d/dcovs) by the canonical route, for designs with no extra
+    effect and every cell observed; the structural arrays are those of the one-trait design.
+
+    ``W`` with ``W R W' = I`` and ``W G W' = Lambda`` (diagonal) turns the model into t independent
+    one-trait models of ``y* = y W'`` (residual variance 1, genetic variance ``lambda_k``). For a
+    fixed ``W``, ``log L(G, R) = l*(W G W', W R W', e W') + n log|det W|``, so the gradients are
+    ``W' (d l*/d G*) W`` and ``W' (d l*/d R*) W``, where ``d l*/d G* = (Lambda^-1 T* Lambda^-1 -
+    n_a Lambda^-1) / 2`` and ``d l*/d R* = (U* - n I) / 2``. The diagonals of ``T*`` and ``U*`` come from
+    each one-trait kernel; off the diagonal the traits are independent given y, so
+    ``U*_kl = e^*_k' e^*_l`` and ``T*_kl = u^*_k' A^-1 u^*_l = lambda_k e^*_k' (y*_l - e^*_l)`` (from
+    the one-trait equations ``Z'(y*_k - Z u^*_k) = A^-1 u^*_k / lambda_k``).
+    """
+    n_rec, t = resid.shape
+    n_c = covs.shape[0]
+    fail = (-np.inf, np.zeros((n_rec, t)), np.zeros((t, t)), np.zeros((t, t)), np.zeros((n_c, t, t)))
+    ok, Lr_inv, ld_r = _chol_inv_factor(R)
+    if not ok:
+        return fail
+    M = Lr_inv @ G @ Lr_inv.T
+    M = 0.5 * (M + M.T)
+    lam, Q = np.linalg.eigh(M)
+    if not lam[0] > 0.0:
+        return fail
+    W = Q.T @ Lr_inv
+    ystar = np.ascontiguousarray(resid @ W.T)
+    value = -0.5 * n_rec * ld_r
+    E = np.empty((n_rec, t))
+    Ts = np.zeros((t, t))
+    Us = np.zeros((t, t))
+    n_a = n_levels[0]
+    one = np.ones((1, 1))
+    none = np.zeros((0, 1, 1))
+    col = np.empty((n_rec, 1))
+    for k in range(t):
+        for r in range(n_rec):
+            col[r, 0] = ystar[r, k]
+        g = np.full((1, 1), lam[k])
+        v, d_res, dg, dr, _ = mme_logp_and_grad(col, g, one, none, term_pos, term_midx, term_coef, Cp, Ci, Cj,
+                                                snode, Lp, Li, c_to_l, rec_pattern, rec_index, patterns, n_levels,
+                                                const)
+        if v == -np.inf:
+            return fail
+        value += v
+        for r in range(n_rec):
+            E[r, k] = -d_res[r, 0]
+        Ts[k, k] = lam[k] * lam[k] * (2.0 * dg[0, 0] + n_a / lam[k])
+        Us[k, k] = 2.0 * dr[0, 0] + n_rec
+    for k in range(t):
+        for l in range(k):
+            u = 0.0
+            a = 0.0
+            b = 0.0
+            for r in range(n_rec):
+                u += E[r, k] * E[r, l]
+                a += E[r, k] * (ystar[r, l] - E[r, l])
+                b += E[r, l] * (ystar[r, k] - E[r, k])
+            Us[k, l] = u
+            Us[l, k] = u
+            Ts[k, l] = 0.5 * (lam[k] * a + lam[l] * b)
+            Ts[l, k] = Ts[k, l]
+    dGs = np.empty((t, t))
+    dRs = np.empty((t, t))
+    for k in range(t):
+        for l in range(t):
+            dGs[k, l] = 0.5 * Ts[k, l] / (lam[k] * lam[l])
+            dRs[k, l] = 0.5 * Us[k, l]
+        dGs[k, k] -= 0.5 * n_a / lam[k]
+        dRs[k, k] -= 0.5 * n_rec
+    dG = W.T @ dGs @ W
+    dR = W.T @ dRs @ W
+    d_resid = -(E @ W)
+    return value, d_resid, dG, dR, np.zeros((n_c, t, t))
+
+
+@numba.njit(cache=True)
+def _chol_inv_factor(M):
+    """(ok, L^-1, log|M|) with ``M = L L'`` (symmetrised); ok False if M is not positive definite."""
+    m = M.shape[0]
+    L = np.zeros((m, m))
+    ld = 0.0
+    for j in range(m):
+        for i in range(j, m):
+            s = 0.5 * (M[i, j] + M[j, i])
+            for q in range(j):
+                s -= L[i, q] * L[j, q]
+            if i == j:
+                if not s > 0.0:
+                    return False, L, 0.0
+                L[j, j] = math.sqrt(s)
+                ld += 2.0 * math.log(L[j, j])
+            else:
+                L[i, j] = s / L[j, j]
+    Li = np.zeros((m, m))
+    for c in range(m):
+        Li[c, c] = 1.0 / L[c, c]
+        for i in range(c + 1, m):
+            s = 0.0
+            for q in range(c, i):
+                s -= L[i, q] * Li[q, c]
+            Li[i, c] = s / L[i, i]
+    return True, Li, ld
+
+
+@numba.njit(cache=True)
 def mme_effects(resid, G, R, covs, noise, term_pos, term_midx, term_coef, Cp, Ci, Cj, snode, Lp, Li, c_to_l,
                 rec_pattern, rec_index, patterns, n_levels, const):
     """Random effects given each draw s (permuted order), ``c^_s + L'^-1 D^-1/2 noise_s``.
@@ -480,7 +604,7 @@ def mme_effects(resid, G, R, covs, noise, term_pos, term_midx, term_coef, Cp, Ci
 
 
 # These kernels call sparse_factor's: numba's cache alone would keep its old code after it changes.
-forget_if_changed([mme_logp_and_grad, mme_effects], [__file__, sf.__file__])
+forget_if_changed([mme_logp_and_grad, canonical_logp_and_grad, mme_effects], [__file__, sf.__file__])
 
 
 # ------------------------------------------------------------------------------------------------
@@ -493,11 +617,16 @@ def _covs_array(covs, t: int) -> np.ndarray:
     return np.ascontiguousarray(np.asarray(covs, dtype=np.float64).reshape(-1, t, t))
 
 
-def logp_and_grad(design: Design, resid, G, R, covs=()) -> tuple:
-    """(log L, d/d resid, d/dG, d/dR, d/dcovs) at residuals ``resid = y - X b`` (missing cells 0)."""
+def logp_and_grad(design: Design, resid, G, R, covs=(), canonical: bool | None = None) -> tuple:
+    """(log L, d/d resid, d/dG, d/dR, d/dcovs) at residuals ``resid = y - X b`` (missing cells 0).
+
+    By the canonical route where the design has it (``canonical=False`` forces the general one)."""
     t = design.t
-    return mme_logp_and_grad(np.ascontiguousarray(resid, dtype=np.float64), np.asarray(G, dtype=np.float64),
-                             np.asarray(R, dtype=np.float64), _covs_array(covs, t), *design.inputs())
+    args = (np.ascontiguousarray(resid, dtype=np.float64), np.ascontiguousarray(G, dtype=np.float64),
+            np.ascontiguousarray(R, dtype=np.float64), _covs_array(covs, t))
+    if design.canonical and canonical is not False:
+        return canonical_logp_and_grad(*args, *design.univariate.inputs())
+    return mme_logp_and_grad(*args, *design.inputs())
 
 
 def effects(design: Design, resid, G, R, covs=None, noise=None) -> tuple[np.ndarray, np.ndarray]:
@@ -510,6 +639,9 @@ def effects(design: Design, resid, G, R, covs=None, noise=None) -> tuple[np.ndar
     resid = np.ascontiguousarray(resid, dtype=np.float64)
     S = resid.shape[0]
     t = design.t
+    if design.canonical:
+        return _canonical_effects(design, resid, np.asarray(G, dtype=np.float64), np.asarray(R, dtype=np.float64),
+                                  noise)
     n_c = len(design.n_levels) - 1
     covs = np.zeros((S, 0, t, t)) if covs is None or n_c == 0 else np.ascontiguousarray(covs, dtype=np.float64)
     noise = np.zeros((S, design.n_unknowns)) if noise is None else np.ascontiguousarray(noise, dtype=np.float64)
@@ -518,6 +650,51 @@ def effects(design: Design, resid, G, R, covs=None, noise=None) -> tuple[np.ndar
     orig = np.empty_like(out)
     orig[:, design.perm] = out
     return orig.reshape(S, -1, t), ok
+
+
+def canonical_transform(G: np.ndarray, R: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
+    """``(W, lambda)`` with ``W R W' = I`` and ``W G W' = diag(lambda)``; None if R or G is not
+    positive definite."""
+    try:
+        Lr = np.linalg.cholesky(0.5 * (R + R.T))
+    except np.linalg.LinAlgError:
+        return None
+    Lr_inv = np.linalg.inv(Lr)
+    M = Lr_inv @ G @ Lr_inv.T
+    lam, Q = np.linalg.eigh(0.5 * (M + M.T))
+    if not lam[0] > 0.0:
+        return None
+    return Q.T @ Lr_inv, lam
+
+
+def _canonical_effects(design: Design, resid, G, R, noise) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`effects` by the canonical route: per draw, the one-trait effects of each canonical
+    trait (genetic variance ``lambda_k``, residual variance 1) from ``N(C_k^-1 r_k, C_k^-1)``, turned
+    back by ``u_i = W^-1 u*_i``. ``noise`` (S, n_blocks * t) is used trait by trait."""
+    uni = design.univariate
+    S, _, t = resid.shape
+    n_b = uni.n_unknowns
+    ok = np.ones(S, dtype=bool)
+    ystar = np.zeros_like(resid)
+    lam = np.ones((S, t))
+    Winv = np.zeros((S, t, t))
+    for s in range(S):
+        found = canonical_transform(G[s], R[s])
+        if found is None:
+            ok[s] = False
+            continue
+        W, lam[s] = found
+        Winv[s] = np.linalg.inv(W)
+        ystar[s] = resid[s] @ W.T
+    ustar = np.empty((S, n_b, t))
+    one = np.ones((S, 1, 1))
+    for k in range(t):
+        eps = np.zeros((S, n_b)) if noise is None else np.ascontiguousarray(noise[:, k * n_b:(k + 1) * n_b])
+        out, good = mme_effects(np.ascontiguousarray(ystar[:, :, k:k + 1]), np.ascontiguousarray(lam[:, k, None, None]),
+                                one, np.zeros((S, 0, 1, 1)), eps, *uni.inputs())
+        ok &= good
+        ustar[:, uni.perm, k] = out
+    return np.einsum("sbk,slk->sbl", ustar, Winv), ok
 
 
 def apply_v_inverse(design: Design, resid, G, R, covs=()) -> np.ndarray:
