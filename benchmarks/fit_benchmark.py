@@ -359,6 +359,9 @@ def main(argv=None) -> int:
     parser.add_argument("--dense-max-n", type=int, default=8000,
                         help="largest n for the dense-Cholesky baseline (default 8000)")
     parser.add_argument("--seed", type=int, default=1)
+    parser.add_argument("--missing", type=float, default=0.1,
+                        help="share of trait values missing at random (default 0.1; 0 gives the sparse engine's "
+                             "canonical route)")
     parser.add_argument("--csv", help="also write the table to this CSV file")
     args = parser.parse_args(argv)
 
@@ -367,7 +370,7 @@ def main(argv=None) -> int:
     print(format_header(), flush=True)
     rows = []
     for n in args.sizes:
-        data, _, _ = simulate_data(n, args.traits, args.seed, cohorts=args.cohorts)
+        data, _, _ = simulate_data(n, args.traits, args.seed, missing=args.missing, cohorts=args.cohorts)
         for engine in args.engines:
             if engine == "gibbs":
                 row = run_gibbs(data, args)

@@ -254,25 +254,23 @@ def design_for(data) -> Design:
 # ------------------------------------------------------------------------------------------------
 
 @numba.njit(cache=True)
-def _chol_inv_logdet(M, idx):
-    """Inverse and log-determinant of ``M[idx][:, idx]`` (symmetrised) by Cholesky; ok False if
-    that block is not positive definite."""
-    m = len(idx)
+def _chol_inv_factor(M):
+    """(ok, L^-1, log|M|) with ``M = L L'`` (symmetrised); ok False if M is not positive definite."""
+    m = M.shape[0]
     L = np.zeros((m, m))
     ld = 0.0
     for j in range(m):
         for i in range(j, m):
-            s = 0.5 * (M[idx[i], idx[j]] + M[idx[j], idx[i]])
+            s = 0.5 * (M[i, j] + M[j, i])
             for q in range(j):
                 s -= L[i, q] * L[j, q]
             if i == j:
                 if not s > 0.0:
-                    return False, np.zeros((m, m)), 0.0
+                    return False, L, 0.0
                 L[j, j] = math.sqrt(s)
                 ld += 2.0 * math.log(L[j, j])
             else:
                 L[i, j] = s / L[j, j]
-    # inverse of L (lower), then M^-1 = L^-T L^-1
     Li = np.zeros((m, m))
     for c in range(m):
         Li[c, c] = 1.0 / L[c, c]
@@ -281,7 +279,22 @@ def _chol_inv_logdet(M, idx):
             for q in range(c, i):
                 s -= L[i, q] * Li[q, c]
             Li[i, c] = s / L[i, i]
-    inv = np.zeros((m, m))
+    return True, Li, ld
+
+
+@numba.njit(cache=True)
+def _chol_inv_logdet(M, idx):
+    """Inverse and log-determinant of ``M[idx][:, idx]`` (symmetrised) by Cholesky; ok False if
+    that block is not positive definite."""
+    m = len(idx)
+    sub = np.empty((m, m))
+    for i in range(m):
+        for j in range(m):
+            sub[i, j] = M[idx[i], idx[j]]
+    ok, Li, ld = _chol_inv_factor(sub)
+    if not ok:
+        return False, np.zeros((m, m)), 0.0
+    inv = np.zeros((m, m))       # M^-1 = L^-T L^-1
     for i in range(m):
         for j in range(m):
             s = 0.0
@@ -458,6 +471,22 @@ def mme_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci,
 
 
 @numba.njit(cache=True)
+def canonical_frame(G, R):
+    """(ok, W, lambda, log|R|) with ``W R W' = I`` and ``W G W' = diag(lambda)``: ``R = L L'``,
+    ``L^-1 G L^-T = Q diag(lambda) Q'``, ``W = Q' L^-1``. ok is False unless G and R are positive
+    definite."""
+    t = G.shape[0]
+    ok, Lr_inv, ld_r = _chol_inv_factor(R)
+    if not ok:
+        return False, np.zeros((t, t)), np.ones(t), 0.0
+    M = Lr_inv @ G @ Lr_inv.T
+    lam, Q = np.linalg.eigh(0.5 * (M + M.T))
+    if not lam[0] > 0.0:
+        return False, np.zeros((t, t)), np.ones(t), 0.0
+    return True, Q.T @ Lr_inv, lam, ld_r
+
+
+@numba.njit(cache=True)
 def canonical_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, Cp, Ci, Cj, snode, Lp, Li, c_to_l,
                             rec_pattern, rec_index, patterns, n_levels, const):
     """(log L, d/d resid, d/dG, d/dR, d/dcovs) by the canonical route, for designs with no extra
@@ -475,15 +504,9 @@ def canonical_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, C
     n_rec, t = resid.shape
     n_c = covs.shape[0]
     fail = (-np.inf, np.zeros((n_rec, t)), np.zeros((t, t)), np.zeros((t, t)), np.zeros((n_c, t, t)))
-    ok, Lr_inv, ld_r = _chol_inv_factor(R)
+    ok, W, lam, ld_r = canonical_frame(G, R)
     if not ok:
         return fail
-    M = Lr_inv @ G @ Lr_inv.T
-    M = 0.5 * (M + M.T)
-    lam, Q = np.linalg.eigh(M)
-    if not lam[0] > 0.0:
-        return fail
-    W = Q.T @ Lr_inv
     ystar = np.ascontiguousarray(resid @ W.T)
     value = -0.5 * n_rec * ld_r
     E = np.empty((n_rec, t))
@@ -532,35 +555,6 @@ def canonical_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, C
     dR = W.T @ dRs @ W
     d_resid = -(E @ W)
     return value, d_resid, dG, dR, np.zeros((n_c, t, t))
-
-
-@numba.njit(cache=True)
-def _chol_inv_factor(M):
-    """(ok, L^-1, log|M|) with ``M = L L'`` (symmetrised); ok False if M is not positive definite."""
-    m = M.shape[0]
-    L = np.zeros((m, m))
-    ld = 0.0
-    for j in range(m):
-        for i in range(j, m):
-            s = 0.5 * (M[i, j] + M[j, i])
-            for q in range(j):
-                s -= L[i, q] * L[j, q]
-            if i == j:
-                if not s > 0.0:
-                    return False, L, 0.0
-                L[j, j] = math.sqrt(s)
-                ld += 2.0 * math.log(L[j, j])
-            else:
-                L[i, j] = s / L[j, j]
-    Li = np.zeros((m, m))
-    for c in range(m):
-        Li[c, c] = 1.0 / L[c, c]
-        for i in range(c + 1, m):
-            s = 0.0
-            for q in range(c, i):
-                s -= L[i, q] * Li[q, c]
-            Li[i, c] = s / L[i, i]
-    return True, Li, ld
 
 
 @numba.njit(cache=True)
@@ -652,21 +646,6 @@ def effects(design: Design, resid, G, R, covs=None, noise=None) -> tuple[np.ndar
     return orig.reshape(S, -1, t), ok
 
 
-def canonical_transform(G: np.ndarray, R: np.ndarray) -> tuple[np.ndarray, np.ndarray] | None:
-    """``(W, lambda)`` with ``W R W' = I`` and ``W G W' = diag(lambda)``; None if R or G is not
-    positive definite."""
-    try:
-        Lr = np.linalg.cholesky(0.5 * (R + R.T))
-    except np.linalg.LinAlgError:
-        return None
-    Lr_inv = np.linalg.inv(Lr)
-    M = Lr_inv @ G @ Lr_inv.T
-    lam, Q = np.linalg.eigh(0.5 * (M + M.T))
-    if not lam[0] > 0.0:
-        return None
-    return Q.T @ Lr_inv, lam
-
-
 def _canonical_effects(design: Design, resid, G, R, noise) -> tuple[np.ndarray, np.ndarray]:
     """:func:`effects` by the canonical route: per draw, the one-trait effects of each canonical
     trait (genetic variance ``lambda_k``, residual variance 1) from ``N(C_k^-1 r_k, C_k^-1)``, turned
@@ -679,11 +658,10 @@ def _canonical_effects(design: Design, resid, G, R, noise) -> tuple[np.ndarray, 
     lam = np.ones((S, t))
     Winv = np.zeros((S, t, t))
     for s in range(S):
-        found = canonical_transform(G[s], R[s])
-        if found is None:
+        good, W, lam[s], _ = canonical_frame(np.ascontiguousarray(G[s]), np.ascontiguousarray(R[s]))
+        if not good:
             ok[s] = False
             continue
-        W, lam[s] = found
         Winv[s] = np.linalg.inv(W)
         ystar[s] = resid[s] @ W.T
     ustar = np.empty((S, n_b, t))
