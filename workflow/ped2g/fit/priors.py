@@ -13,7 +13,7 @@ The same prior can be sampled with *signed* scales (``covariance_prior(..., sign
 docs/methods.md §2.4): ``Sigma = diag(a) W W' diag(a)`` with ``a_j`` on the whole real line under
 the symmetric parent of the SD prior (Normal or Student-t, so ``|a_j|`` has the half-normal or
 half-t law) and ``W`` the Cholesky factor of a correlation matrix built from canonical partial
-correlations ``z = tanh(x)`` (Lewandowski, Kurowicka & Joe 2009, §3.2). Under LKJ(eta) the
+correlations ``z = tanh(x)`` (Lewandowski, Kurowicka & Joe 2009, their section 3.2). Under LKJ(eta) the
 partial correlations are independent, ``z`` in column ``k`` (0-based) distributed as
 ``2 Beta(b_k, b_k) - 1`` with ``b_k = eta - 1 + (t - k)/2``. Flipping the sign of ``a_j`` flips
 row and column ``j`` of the correlation matrix, which LKJ leaves unchanged, so ``Sigma`` has
