@@ -236,7 +236,8 @@ def build_design(ped, record_animal: np.ndarray, observed: np.ndarray,
     univariate = None
     if canonical and t > 1 and not effects and observed.all():
         univariate = build_design(ped, record_animal, np.ones((n_rec, 1), dtype=bool), [], canonical=False)
-    return Design(univariate=univariate, t=t, n_animals=n_a, n_levels=np.asarray(sizes, dtype=np.int64), block_offsets=offsets,
+    return Design(univariate=univariate, t=t, n_animals=n_a, n_levels=np.asarray(sizes, dtype=np.int64),
+                  block_offsets=offsets,
                   patterns=patterns.astype(np.int8), rec_pattern=rec_pattern, rec_index=rec_index,
                   term_pos=term_pos, term_midx=term_midx, term_coef=term_coef, Cp=Cp, Ci=Ci, Cj=Cj,
                   snode=snode, Lp=Lp, Li=Li, c_to_l=c_to_l.astype(np.int64), perm=perm,
@@ -510,9 +511,8 @@ def canonical_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, C
     ystar = np.ascontiguousarray(resid @ W.T)
     value = -0.5 * n_rec * ld_r
     E = np.empty((n_rec, t))
-    Ts = np.zeros((t, t))
-    Us = np.zeros((t, t))
-    n_a = n_levels[0]
+    dGs = np.zeros((t, t))     # d l* / d G*: diagonal from each one-trait kernel, then the cross terms
+    dRs = np.zeros((t, t))
     one = np.ones((1, 1))
     none = np.zeros((0, 1, 1))
     col = np.empty((n_rec, 1))
@@ -528,8 +528,8 @@ def canonical_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, C
         value += v
         for r in range(n_rec):
             E[r, k] = -d_res[r, 0]
-        Ts[k, k] = lam[k] * lam[k] * (2.0 * dg[0, 0] + n_a / lam[k])
-        Us[k, k] = 2.0 * dr[0, 0] + n_rec
+        dGs[k, k] = dg[0, 0]
+        dRs[k, k] = dr[0, 0]
     for k in range(t):
         for l in range(k):
             u = 0.0
@@ -539,18 +539,8 @@ def canonical_logp_and_grad(resid, G, R, covs, term_pos, term_midx, term_coef, C
                 u += E[r, k] * E[r, l]
                 a += E[r, k] * (ystar[r, l] - E[r, l])
                 b += E[r, l] * (ystar[r, k] - E[r, k])
-            Us[k, l] = u
-            Us[l, k] = u
-            Ts[k, l] = 0.5 * (lam[k] * a + lam[l] * b)
-            Ts[l, k] = Ts[k, l]
-    dGs = np.empty((t, t))
-    dRs = np.empty((t, t))
-    for k in range(t):
-        for l in range(t):
-            dGs[k, l] = 0.5 * Ts[k, l] / (lam[k] * lam[l])
-            dRs[k, l] = 0.5 * Us[k, l]
-        dGs[k, k] -= 0.5 * n_a / lam[k]
-        dRs[k, k] -= 0.5 * n_rec
+            dRs[k, l] = dRs[l, k] = 0.5 * u                                              # U*_kl / 2
+            dGs[k, l] = dGs[l, k] = 0.25 * (lam[k] * a + lam[l] * b) / (lam[k] * lam[l])   # T*_kl / 2 lam_k lam_l
     dG = W.T @ dGs @ W
     dR = W.T @ dRs @ W
     d_resid = -(E @ W)
