@@ -128,3 +128,15 @@ def test_the_op_takes_the_canonical_kernel(mode):
     assert got[0] == pytest.approx(want[0], abs=1e-10)
     for a, b in zip(got[1:], want[1:4]):
         np.testing.assert_allclose(a, b, rtol=1e-9, atol=1e-10)
+
+
+def test_the_engine_says_which_route_it_takes():
+    from ped2g.fit import sparse
+
+    from test_latent_vs_marginal import small_study as study
+
+    engine = sparse.SparseEngine(memory=8e9)
+    ok, why = engine.applies(study(n=150, missing=0.0), {})
+    assert ok and "canonical route" in why and "2 one-trait systems" in why
+    ok, why = sparse.SparseEngine(memory=8e9).applies(study(n=150, missing=0.1), {})
+    assert ok and "canonical" not in why
