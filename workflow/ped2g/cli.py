@@ -8,6 +8,7 @@ defines ``HELP`` (one line), ``DESCRIPTION`` (a paragraph), ``add_arguments(pars
 from __future__ import annotations
 
 import argparse
+import faulthandler
 import importlib
 import sys
 import time
@@ -67,6 +68,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     if not getattr(args, "command", None):
         parser.print_help()
         return 0
+    if not faulthandler.is_enabled():
+        # a crash in native code (a segmentation fault in a compiled library) then leaves the
+        # Python stack of every thread in the stage's log instead of an empty log
+        faulthandler.enable(file=sys.__stderr__, all_threads=True)
     start = time.perf_counter()
     try:
         status = args._run(args)
