@@ -237,6 +237,8 @@ _SUMS = {"reassoc", "contract"}
 #: (product of the three dimensions) above which a product of two panels goes to BLAS.
 _CHUNK = 48
 _DENSE_PRODUCT = 1 << 16
+#: Side of the square tiles in which a gathered symmetric block is mirrored.
+_TILE = 32
 
 
 def supernodes(parent: np.ndarray, Lp: np.ndarray) -> np.ndarray:
@@ -521,22 +523,35 @@ def selected_inverse_supernodal(snode, Lp, Li, Lx, D, Zx, Zd):
             e = b + 1
             while e < m and Li[rbase + e] < k1:
                 e += 1
-            # positions of R[b+1:] in the pattern of K's first column
-            qq = Lp[k0] + (x - k0)
-            for bb in range(b + 1, m):
-                want = Li[rbase + bb]
-                while Li[qq] != want:
-                    qq += 1
-                posf[bb] = qq - Lp[k0]
+            # positions of R[b+1:] in the pattern of K's first column: rows inside K's columns
+            # are at fixed places (the dense triangle); those below K by a merge along K's rows
+            # below, started by bisection (a scan from x would walk the whole triangle)
+            for bb in range(b + 1, e):
+                posf[bb] = Li[rbase + bb] - k0 - 1
+            if e < m:
+                lo = Lp[k0] + (k1 - k0 - 1)
+                qq = lo + np.searchsorted(Li[lo: Lp[k0 + 1]], Li[rbase + e])
+                for bb in range(e, m):
+                    want = Li[rbase + bb]
+                    while Li[qq] != want:
+                        qq += 1
+                    posf[bb] = qq - Lp[k0]
             for a in range(b, e):
                 xa = Li[rbase + a]
                 Zrr[a, a] = Zd[xa]
                 shift = Lp[xa] - (xa - k0)
                 for bb in range(a + 1, m):
-                    v = Zx[shift + posf[bb]]
-                    Zrr[a, bb] = v
-                    Zrr[bb, a] = v
+                    Zrr[a, bb] = Zx[shift + posf[bb]]
             b = e
+        # the lower triangle from the upper one, tile by tile (a column-wise write per entry
+        # strides through memory; within a tile the rows written stay in cache)
+        for i0 in range(0, m, _TILE):
+            i1 = min(i0 + _TILE, m)
+            for j0 in range(i0, m, _TILE):
+                j1 = min(j0 + _TILE, m)
+                for i in range(i0, i1):
+                    for j in range(max(j0, i + 1), j1):
+                        Zrr[j, i] = Zrr[i, j]
         # Yt[a, :] = Z_RR L_R,a
         Yt = ybuf[: s * m].reshape((s, m))
         if s * m * m >= _DENSE_PRODUCT:
