@@ -54,12 +54,15 @@ DEFAULT_ENGINES = ("marginal", "latent", "dense", "gibbs")
 # Simulated data
 # --------------------------------------------------------------------------------------------
 
-def simulate_pedigree(n: int, rng: np.random.Generator, cohorts: int = 10, unknown_sire: float = 0.1):
+def simulate_pedigree(n: int, rng: np.random.Generator, cohorts: int = 10, unknown_sire: float = 0.1,
+                      sire_share: float = 1 / 8):
     """A pedigree of ``n`` animals in overlapping cohorts.
 
     Cohort 0 are founders (n / cohorts animals). Each later animal has a dam drawn from the
     females of the previous two cohorts and, with probability ``1 - unknown_sire``, a sire drawn
-    from a few males of those cohorts (so half-sib families are large).
+    from a share ``sire_share`` of the males of those cohorts (so half-sib families are large;
+    a small share, as in a herd bred by a few sires, also keeps the sparse factor's dense root
+    small).
     """
     from ped2g.pedigree.core import Pedigree
     from ped2g.pedigree.relationships import inbreeding
@@ -74,7 +77,7 @@ def simulate_pedigree(n: int, rng: np.random.Generator, cohorts: int = 10, unkno
         pool = np.flatnonzero((cohort < c) & (cohort >= c - 2))
         females = pool[~male[pool]]
         males = pool[male[pool]]
-        males = rng.choice(males, size=max(1, len(males) // 8), replace=False)
+        males = rng.choice(males, size=max(1, int(len(males) * sire_share)), replace=False)
         dam[kids] = rng.choice(females, size=len(kids))
         has_sire = rng.random(len(kids)) >= unknown_sire
         sire[kids[has_sire]] = rng.choice(males, size=int(has_sire.sum()))
@@ -100,7 +103,7 @@ def true_covariances(t: int) -> tuple[np.ndarray, np.ndarray]:
 
 
 def simulate_data(n: int, t: int, seed: int, recorded: float = 0.8, missing: float = 0.1,
-                  cohorts: int = 10):
+                  cohorts: int = 10, sire_share: float = 1 / 8):
     """A FitData with ``n`` pedigree animals in ``cohorts`` cohorts (the pedigree's depth); returns
     (data, G_true, R_true) on the standardised scale."""
     from ped2g.fit.data import FitData
@@ -108,7 +111,7 @@ def simulate_data(n: int, t: int, seed: int, recorded: float = 0.8, missing: flo
     from ped2g.simulate.breeding_values import simulate_breeding_values
 
     rng = generator(seed, "fit-benchmark", n)
-    ped, male = simulate_pedigree(n, rng, cohorts=cohorts)
+    ped, male = simulate_pedigree(n, rng, cohorts=cohorts, sire_share=sire_share)
     G, R = true_covariances(t)
     a = simulate_breeding_values(ped, G, rng)
     a = np.asarray(a).reshape(n, t)
@@ -362,6 +365,10 @@ def main(argv=None) -> int:
     parser.add_argument("--missing", type=float, default=0.1,
                         help="share of trait values missing at random (default 0.1; 0 gives the sparse engine's "
                              "canonical route)")
+    parser.add_argument("--recorded", type=float, default=0.8,
+                        help="share of the animals with a record (default 0.8)")
+    parser.add_argument("--sire-share", type=float, default=1 / 8,
+                        help="share of each cohort's males that sire offspring (default 1/8)")
     parser.add_argument("--csv", help="also write the table to this CSV file")
     args = parser.parse_args(argv)
 
@@ -370,7 +377,8 @@ def main(argv=None) -> int:
     print(format_header(), flush=True)
     rows = []
     for n in args.sizes:
-        data, _, _ = simulate_data(n, args.traits, args.seed, missing=args.missing, cohorts=args.cohorts)
+        data, _, _ = simulate_data(n, args.traits, args.seed, recorded=args.recorded, missing=args.missing,
+                                   cohorts=args.cohorts, sire_share=args.sire_share)
         for engine in args.engines:
             if engine == "gibbs":
                 row = run_gibbs(data, args)

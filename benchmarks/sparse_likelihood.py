@@ -72,6 +72,29 @@ def simulated_design(n: int, t: int, seed: int = 1, max_records: int | None = No
     return design, observed, seconds
 
 
+def kernel_phases(design, repeats: int) -> str:
+    """Best-of-``repeats`` milliseconds of ``ldl_supernodal`` and ``selected_inverse_supernodal`` on the
+    pattern of ``design`` (a diagonally dominant matrix of that pattern), as a text."""
+    from ped2g.fit import sparse_factor as sf
+
+    n = len(design.Lp) - 1
+    rng = np.random.default_rng(0)
+    Cx = np.where(design.Ci == design.Cj, 10.0, 0.01 * rng.random(len(design.Ci)))
+    Lx, D = np.empty(len(design.Li)), np.empty(n)
+    Zx, Zd = np.empty(len(design.Li)), np.empty(n)
+    factor, inverse = [], []
+    for _ in range(repeats + 1):
+        start = time.perf_counter()
+        assert sf.ldl_supernodal(design.Cp, design.Ci, Cx, design.snode, design.Lp, design.Li, Lx, D) == n
+        middle = time.perf_counter()
+        sf.selected_inverse_supernodal(design.snode, design.Lp, design.Li, Lx, D, Zx, Zd)
+        factor.append(middle - start)
+        inverse.append(time.perf_counter() - middle)
+    widest = int(np.diff(design.snode).max())
+    return (f"  kernels on {n:,} unknowns: factorisation {1e3 * min(factor[1:]):.1f} ms, selected inverse "
+            f"{1e3 * min(inverse[1:]):.1f} ms (widest supernode {widest} columns)")
+
+
 def main(argv=None) -> int:
     from ped2g.fit import sparse_mme
 
@@ -81,6 +104,8 @@ def main(argv=None) -> int:
     parser.add_argument("--repeats", type=int, default=3)
     parser.add_argument("--max-records", type=int, default=None)
     parser.add_argument("--level-draw", action="store_true", help="also time one draw of all levels")
+    parser.add_argument("--phases", action="store_true",
+                        help="also time the factorisation and the selected inverse alone")
     parser.add_argument("--animal-model", action="store_true",
                         help="no extra random effects and every cell observed: the design of the canonical route, "
                              "timed by both routes (general: one factorisation of all traits; canonical: one "
@@ -125,6 +150,8 @@ def main(argv=None) -> int:
                 sparse_mme.effects(*args_draw, noise)
                 draws.append(time.perf_counter() - start)
             draw = f" {min(draws):>8.3f}"
+        if args.phases:
+            canonical += kernel_phases(design.univariate if design.canonical else design, args.repeats)
         nnz_c = 2 * len(design.Ci) - design.n_unknowns
         print(f"{n:>8} {len(observed):>8} {design.n_unknowns:>9} {nnz_c:>11,} {design.factor_nnz:>12,} "
               f"{build_s:>9.2f} {min(times):>12.3f} {len(design.snode) - 1:>10,} "
