@@ -369,16 +369,30 @@ def main(argv=None) -> int:
                         help="share of the animals with a record (default 0.8)")
     parser.add_argument("--sire-share", type=float, default=1 / 8,
                         help="share of each cohort's males that sire offspring (default 1/8)")
+    parser.add_argument("--kernels-only", action="store_true",
+                        help="fit nothing: time the sparse engine's two kernels on each size's design "
+                             "(benchmarks/sparse_likelihood.py --phases)")
     parser.add_argument("--csv", help="also write the table to this CSV file")
     args = parser.parse_args(argv)
 
     import pandas as pd
 
-    print(format_header(), flush=True)
+    if not args.kernels_only:
+        print(format_header(), flush=True)
     rows = []
     for n in args.sizes:
         data, _, _ = simulate_data(n, args.traits, args.seed, recorded=args.recorded, missing=args.missing,
                                    cohorts=args.cohorts, sire_share=args.sire_share)
+        if args.kernels_only:
+            from benchmarks.sparse_likelihood import kernel_phases
+            from ped2g.fit import sparse_mme
+
+            design = sparse_mme.design_for(data)
+            print(f"n = {n}, {len(data.record_animal):,} records, "
+                  f"{len(np.unique(data.pedigree.sire[data.pedigree.sire >= 0])):,} sires, "
+                  f"{'canonical route' if design.canonical else 'general route'}:"
+                  + kernel_phases(design.univariate if design.canonical else design, 3), flush=True)
+            continue
         for engine in args.engines:
             if engine == "gibbs":
                 row = run_gibbs(data, args)

@@ -15,7 +15,7 @@ contributes ``(R_oo)^-1`` of its observed traits), so no missing-value step is n
 
 With no extra random effect and every cell observed, the likelihood takes the canonical route
 (docs/methods.md §2.14): one ``t x t`` transformation splits the model into ``t`` one-trait
-models, each with its own factorisation of an ``n``-unknown system (8.5 times faster per gradient
+models, each with its own factorisation of an ``n``-unknown system (8.6 times faster per gradient
 than the ``t n``-unknown system at 100,000 animals and 4 traits).
 
 Cost: no dense matrix anywhere; memory and time follow the non-zeros of the factor, which depend
