@@ -38,7 +38,8 @@ from pymc.util import get_random_generator
 
 from .data import FitData
 
-#: Name of the model variable holding the rotated completed records U'Y_c (n, t); not stored.
+#: Name of the model variable holding the completed records in the engine's basis (n, t): U'Y_c in
+#: the marginal engine, Y_c itself in the sparse engine (ped2g.fit.sparse_augment); not stored.
 ROTATED_NAME = "rot_y_completed"
 #: Name of the model variable holding the missing cells (trait by trait, record order).
 MISSING_NAME = "missing"
@@ -137,22 +138,33 @@ class MissingValueDraw:
         mean = self.X_rows @ beta + g_rows
         for lev, u in zip(self.levels_rows, extras):
             mean = mean + np.vstack([u, np.zeros((1, t))])[lev]
-        resid = self.y_rows - mean                                     # valid at observed cells
-        filled = np.zeros_like(self.y_rows)
-        for where, m, o in self.patterns:
-            Rmm = R[np.ix_(m, m)]
-            if len(o):
-                Rmo = R[np.ix_(m, o)]
-                B = Rmo @ np.linalg.pinv(R[np.ix_(o, o)], hermitian=True)   # R_mo R_oo^-1
-                cond = Rmm - B @ Rmo.T
-                mu = resid[np.ix_(where, o)] @ B.T
-            else:
-                cond = Rmm
-                mu = np.zeros((len(where), len(m)))
-            e = mu + rng.standard_normal((len(where), len(m))) @ psd_factor(cond).T
-            filled[np.ix_(where, m)] = mean[np.ix_(where, m)] + e
+        filled = draw_missing_cells(self.y_rows, mean, R, self.patterns, rng)
         new_rot = self.rot_y0 + self.U_rows.T @ filled
         return self.flatten(filled), new_rot
+
+
+def draw_missing_cells(y_rows: np.ndarray, mean: np.ndarray, R: np.ndarray, patterns: list,
+                       rng: np.random.Generator) -> np.ndarray:
+    """Missing cells of the records ``y_rows`` given their means (everything but the residual):
+    records are independent given the random effects, so each residual's missing part given its
+    observed part is ``N(R_mo R_oo^-1 e_o, R_mm - R_mo R_oo^-1 R_om)``, one factorisation per
+    missingness pattern (``patterns`` from :func:`_patterns`). Returns an array shaped like
+    ``y_rows`` holding the drawn cells, 0 elsewhere."""
+    resid = y_rows - mean                                          # valid at observed cells
+    filled = np.zeros_like(y_rows)
+    for where, m, o in patterns:
+        Rmm = R[np.ix_(m, m)]
+        if len(o):
+            Rmo = R[np.ix_(m, o)]
+            B = Rmo @ np.linalg.pinv(R[np.ix_(o, o)], hermitian=True)   # R_mo R_oo^-1
+            cond = Rmm - B @ Rmo.T
+            mu = resid[np.ix_(where, o)] @ B.T
+        else:
+            cond = Rmm
+            mu = np.zeros((len(where), len(m)))
+        e = mu + rng.standard_normal((len(where), len(m))) @ psd_factor(cond).T
+        filled[np.ix_(where, m)] = mean[np.ix_(where, m)] + e
+    return filled
 
 
 class MissingValueStep(BlockedStep):
@@ -192,7 +204,8 @@ class MissingValueStep(BlockedStep):
 
 
 def make_step(model, core: MissingValueDraw, data: FitData) -> MissingValueStep:
-    """The Gibbs step of ``model`` (built by :func:`ped2g.fit.marginal.build_model`)."""
+    """The Gibbs step of ``model`` (built by :func:`ped2g.fit.marginal.build_model`, or by
+    :func:`ped2g.fit.sparse.build_model` with ``core`` a :class:`ped2g.fit.sparse_augment.SparseMissingDraw`)."""
     import pytensor.tensor as pt
 
     outs = [model["G"], model["R"], model["beta"]]

@@ -11,7 +11,9 @@ coefficient matrix per evaluation, and its gradient from the selected inverse of
 that a variance whose posterior reaches zero does not leave NUTS a long tail of its log-SD) and
 the fixed effects ``beta`` -- kept as parameters rather
 than integrated out, as in the marginal engine. Missing trait cells simply drop out (each record
-contributes ``(R_oo)^-1`` of its observed traits), so no missing-value step is needed.
+contributes ``(R_oo)^-1`` of its observed traits), so no missing-value step is needed; with
+``model.missing_values: gibbs`` an animal model keeps the canonical route below on completed
+records and a Gibbs step draws the missing cells (:mod:`ped2g.fit.sparse_augment`).
 
 With no extra random effect and every cell observed, the likelihood takes the canonical route
 (docs/methods.md §2.14): one ``t x t`` transformation splits the model into ``t`` one-trait
@@ -54,20 +56,26 @@ def observed_residual_mask(data: FitData) -> np.ndarray:
     return (~data.missing).astype(float)
 
 
-def build_model(data: FitData, model_config: dict, design: sparse_mme.Design | None = None):
+def build_model(data: FitData, model_config: dict, design: sparse_mme.Design | None = None,
+                missing_step: bool = False):
     """The PyMC model with every random effect integrated out (module docstring).
 
     Free variables: the covariance priors of G, R and each extra effect, and ``beta`` (p, t).
     Deterministics ``G``, ``R``, ``beta`` and ``cov_<name>``. The records, the design matrix and
-    every structural array of the mixed-model equations enter as ``pm.Data``.
+    every structural array of the mixed-model equations enter as ``pm.Data``. With
+    ``missing_step`` (``design`` then the complete-records design, :mod:`ped2g.fit.sparse_augment`)
+    the model also holds the completed records and the missing cells as variables that the Gibbs
+    step of :meth:`SparseEngine.build` updates, not NUTS.
     """
     import pymc as pm
     import pytensor.tensor as pt
 
+    from . import augment
     from .priors import covariance_prior, shared_priors
     from .sparse_likelihood_op import sparse_mme_logp
 
-    design = design if design is not None else sparse_mme.design_for(data)
+    if design is None:
+        design = complete_design(data) if missing_step else sparse_mme.design_for(data)
     t = data.n_traits
     priors = with_defaults(model_config, "model")["priors"]
     coords = {"trait": data.traits, "trait2": data.traits, "x": data.x_names}
@@ -75,10 +83,17 @@ def build_model(data: FitData, model_config: dict, design: sparse_mme.Design | N
         G, _, R, _, beta = shared_priors(data, model_config, signed_sd=True)
         covs = [covariance_prior(f"cov_{eff.name}", t, priors, signed_sd=True)[0] for eff in data.random]
         covs_t = pt.stack(covs) if covs else pt.zeros((0, t, t))
-        y = pm.Data("y", np.where(data.missing, 0.0, data.y))
         X = pm.Data("X", np.asarray(data.X, dtype=float))
-        observed = pm.Data("observed", observed_residual_mask(data))
-        resid = (y - X @ beta) * observed
+        if missing_step:
+            y0 = np.where(data.missing, 0.0, data.y)
+            y = pm.Flat(augment.ROTATED_NAME, shape=y0.shape, initval=y0)
+            n_missing = int(data.missing.sum())
+            pm.Flat(augment.MISSING_NAME, shape=n_missing, initval=np.zeros(n_missing))
+            resid = y - X @ beta
+        else:
+            y = pm.Data("y", np.where(data.missing, 0.0, data.y))
+            observed = pm.Data("observed", observed_residual_mask(data))
+            resid = (y - X @ beta) * observed
         arrays = design.likelihood_inputs()
         if max(int(np.abs(a).max(initial=0)) for a in arrays if a.dtype.kind == "i") >= 2**31:
             raise ValueError("the sparse design is too large for 32-bit indices")
@@ -87,10 +102,45 @@ def build_model(data: FitData, model_config: dict, design: sparse_mme.Design | N
     return model
 
 
+def complete_design(data: FitData) -> sparse_mme.Design:
+    from .sparse_augment import complete_design as design
+
+    return design(data)
+
+
+def missing_route(data: FitData, model_config: dict) -> tuple[str, str]:
+    """How missing trait cells are handled, and why: ``"none"`` (no missing cell), ``"masked"``
+    (dropped exactly, general route) or ``"gibbs"`` (the canonical route on completed records, the
+    missing cells drawn by a Gibbs step; :mod:`ped2g.fit.sparse_augment`).
+
+    ``model.missing_values: gibbs`` asks for the Gibbs step; it applies to animal models of two or
+    more traits (no extra random effect). ``nuts`` and ``auto`` drop the cells exactly: the Gibbs
+    step's time per gradient is measured, its whole fits not yet beside the exact route."""
+    from ..errors import UserError
+    from .marginal import MISSING_MODES
+
+    requested = with_defaults(model_config, "model")["missing_values"]
+    if requested not in MISSING_MODES:
+        raise UserError(f"config key 'model.missing_values' is {requested!r}; allowed: {', '.join(MISSING_MODES)}")
+    if not data.missing.any():
+        return "none", ""
+    if requested != "gibbs":
+        return "masked", "missing cells dropped exactly (each record enters with R of its observed traits)"
+    if data.random:
+        return "masked", ("model.missing_values asks for a Gibbs step, which the sparse engine has only for "
+                          "designs without extra random effects; missing cells dropped exactly instead")
+    if data.n_traits < 2:
+        return "masked", "one trait: a record with a missing cell has no value and drops out"
+    return "gibbs", ("missing cells drawn by a Gibbs step between NUTS transitions, so the likelihood "
+                     "keeps the canonical route (model.missing_values: gibbs)")
+
+
 def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
     """The model's data that change when only the records change; empty with fixed covariances
-    (held on the records' standardised scale)."""
-    if model_config.get("fixed_covariances"):
+    (held on the records' standardised scale) and with the Gibbs step for missing cells (the
+    records are the initial value of a sampled variable), where callers build a model per data
+    set."""
+    if model_config.get("fixed_covariances") or missing_route(data, model_config)[0] == "gibbs":
         return {}
     return {"y": np.where(data.missing, 0.0, np.asarray(data.y, dtype=float))}
 
@@ -112,8 +162,10 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     """
     from ..contracts.fit_folder import thin_indices
 
-    design = design if design is not None else sparse_mme.design_for(data)
     post = idata.posterior
+    gibbs = "missing" in post and data.missing.any()
+    if design is None:
+        design = complete_design(data) if gibbs else sparse_mme.design_for(data)
     index = thin_indices(post.sizes["chain"] * post.sizes["draw"], max_draws)
     G = _pooled(idata, "G", index)
     R = _pooled(idata, "R", index)
@@ -121,11 +173,22 @@ def breeding_values(data: FitData, idata, rng: np.random.Generator, max_draws: i
     covs = (np.stack([_pooled(idata, f"cov_{eff.name}", index) for eff in data.random], axis=1)
             if data.random else None)
     y0 = np.where(data.missing, 0.0, data.y)
+    if gibbs:
+        # each draw's completed records: p(u | theta, Y_O, Y_M) with Y_M from the joint posterior
+        # is a draw of p(u | theta, Y_O)
+        from .sparse_augment import SparseMissingDraw
+
+        filler = SparseMissingDraw(data, design)
+        missing = _pooled(idata, "missing", index)
     n_a = data.pedigree.n
     out = np.empty((len(index), n_a, data.n_traits))
     for lo in range(0, len(index), chunk):
         sl = slice(lo, min(lo + chunk, len(index)))
-        resid = (y0[None] - np.einsum("rp,spt->srt", data.X, beta[sl])) * (~data.missing)[None]
+        if gibbs:
+            ys = np.stack([filler.completed(m) for m in missing[sl]])
+            resid = ys - np.einsum("rp,spt->srt", data.X, beta[sl])
+        else:
+            resid = (y0[None] - np.einsum("rp,spt->srt", data.X, beta[sl])) * (~data.missing)[None]
         noise = None if conditional_mean else rng.standard_normal((sl.stop - sl.start, design.n_unknowns))
         blocks, ok = sparse_mme.effects(design, resid, G[sl], R[sl], None if covs is None else covs[sl], noise)
         if not ok.all():
@@ -145,21 +208,25 @@ class SparseEngine:
 
     def __init__(self, memory: float | None = None):
         self.memory = memory
-        self._design: tuple[FitData, sparse_mme.Design] | None = None
+        self._design: tuple[FitData, bool, sparse_mme.Design] | None = None
 
-    def design(self, data: FitData) -> sparse_mme.Design:
+    def design(self, data: FitData, missing_step: bool = False) -> sparse_mme.Design:
+        """The design of ``data`` (computed once per design): that of the observed cells, or with
+        ``missing_step`` that of the completed records."""
         from .marginal import _same_design
 
-        if self._design is not None and (self._design[0] is data or _same_design(self._design[0], data)):
-            return self._design[1]
-        design = sparse_mme.design_for(data)
-        self._design = (data, design)
+        if self._design is not None and self._design[1] == missing_step and (
+                self._design[0] is data or _same_design(self._design[0], data)):
+            return self._design[2]
+        design = complete_design(data) if missing_step else sparse_mme.design_for(data)
+        self._design = (data, missing_step, design)
         return design
 
     def applies(self, data: FitData, model_config: dict) -> tuple[bool, str]:
         from ..machine import available_memory
 
-        design = self.design(data)
+        route, why_route = missing_route(data, model_config)
+        design = self.design(data, route == "gibbs")
         factored = design.univariate if design.canonical else design
         need = BYTES_PER_FACTOR_NONZERO * float(factored.factor_nnz)
         memory = self.memory if self.memory is not None else available_memory()
@@ -167,11 +234,12 @@ class SparseEngine:
             return False, (f"the sparse factor has {factored.factor_nnz:,} non-zeros, about {need / 1e9:.1f} GB, "
                            f"and this process has {memory / 1e9:.1f} GB available")
         if design.canonical:
-            return True, (f"sparse mixed-model equations by the canonical route (no extra random effect, no "
-                          f"missing cell): {design.t} one-trait systems of {factored.n_unknowns:,} unknowns, "
+            cells = "no missing cell" if route == "none" else why_route
+            return True, (f"sparse mixed-model equations by the canonical route (no extra random effect, {cells}): "
+                          f"{design.t} one-trait systems of {factored.n_unknowns:,} unknowns, "
                           f"{factored.factor_nnz:,} non-zeros in each factor")
         return True, (f"sparse mixed-model equations: {design.n_unknowns:,} random-effect unknowns, "
-                      f"{design.factor_nnz:,} non-zeros in the factor")
+                      f"{design.factor_nnz:,} non-zeros in the factor" + (f"; {why_route}" if why_route else ""))
 
     def prefers(self, data: FitData, model_config: dict) -> tuple[bool, str]:
         """Whether ``auto`` takes it (module docstring): for extra random effects, which it integrates
@@ -197,16 +265,24 @@ class SparseEngine:
 
         from .engine import BuiltModel
 
+        route, _ = missing_route(data, model_config)
         start = time.perf_counter()
-        design = self.design(data)
+        design = self.design(data, route == "gibbs")
         design_seconds = time.perf_counter() - start
-        return BuiltModel(model=build_model(data, model_config, design), extra_steps=[], nutpie_options=None,
-                          numba_opt_level=None, missing_values="masked" if data.missing.any() else "none",
-                          timings={"sparse_design_seconds": design_seconds})
+        model = build_model(data, model_config, design, missing_step=route == "gibbs")
+        steps = []
+        if route == "gibbs":
+            from . import augment
+            from .sparse_augment import SparseMissingDraw
+
+            steps = [augment.make_step(model, SparseMissingDraw(data, design), data)]
+        return BuiltModel(model=model, extra_steps=steps, nutpie_options=None, numba_opt_level=None,
+                          missing_values=route, timings={"sparse_design_seconds": design_seconds})
 
     def data_values(self, data: FitData, model_config: dict) -> dict[str, np.ndarray]:
         return data_values(data, model_config)
 
     def breeding_values(self, data: FitData, idata, rng: np.random.Generator, max_draws: int | None = None,
                         conditional_mean: bool = False) -> np.ndarray:
-        return breeding_values(data, idata, rng, max_draws, conditional_mean, design=self.design(data))
+        gibbs = "missing" in idata.posterior and data.missing.any()
+        return breeding_values(data, idata, rng, max_draws, conditional_mean, design=self.design(data, gibbs))
