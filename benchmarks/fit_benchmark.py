@@ -179,9 +179,30 @@ def _marginal_rotation(data, model_config):
     return rot, time.perf_counter() - start
 
 
+def _compound_run(model, steps, args, setup: float, build: float, note: str, **run_kw) -> dict:
+    """Sample ``model`` with the Gibbs ``steps`` through ped2g.fit.sample (PyMC's sampler) and
+    return the table's row."""
+    from ped2g.fit import sample
+
+    settings = {"chains": args.chains, "warmup": args.warmup, "draws": args.draws, "seed": args.seed,
+                "target_accept": args.target_accept}
+    run = sample.run(model, settings, "bench", progress=False, extra_steps=steps, **run_kw)
+    info = run.info
+    compile_s = build + (info["compile_seconds"] or 0.0)
+    sample_s = info["sampling_seconds"]
+    steps_n = info["gradient_evaluations"]
+    ess, rhat = _g_summary(np.asarray(run.idata.posterior["G"].values))
+    total = setup + compile_s + sample_s
+    note = f"{note}; sampler {info['sampler']} (" + " + ".join(info.get("compound_steps", ["NUTS"])) + ")"
+    return {"setup_s": setup, "compile_s": compile_s, "sample_s": sample_s, "gradients": steps_n,
+            "ms_per_gradient": 1000 * sample_s / max(steps_n, 1), "min_ess_G": ess, "max_rhat_G": rhat,
+            "ess_per_s_sampling": ess / sample_s, "ess_per_s_total": ess / total, "total_s": total,
+            "divergences": info["divergences"], "note": note}
+
+
 def run_marginal_gibbs(data, args) -> dict:
     """The marginal engine's Gibbs route through ped2g.fit.sample (Gibbs step for missing cells + NUTS)."""
-    from ped2g.fit import marginal, sample
+    from ped2g.fit import marginal
 
     model_config = _model_config("gibbs")
     prepared = _marginal_rotation(data, model_config)
@@ -192,50 +213,21 @@ def run_marginal_gibbs(data, args) -> dict:
     model = marginal.build_model(data, model_config, rot)
     steps = marginal.extra_steps(model, data, rot)
     build = time.perf_counter() - start
-    settings = {"chains": args.chains, "warmup": args.warmup, "draws": args.draws, "seed": args.seed,
-                "target_accept": args.target_accept}
-    run = sample.run(model, settings, "bench", progress=False, extra_steps=steps,
-                     numba_opt_level=marginal.NUMBA_OPT_LEVEL)
-    info = run.info
-    compile_s = build + (info["compile_seconds"] or 0.0)
-    sample_s = info["sampling_seconds"]
-    steps_n = info["gradient_evaluations"]
-    ess, rhat = _g_summary(np.asarray(run.idata.posterior["G"].values))
-    total = setup + compile_s + sample_s
-    note = f"eigendecomposition {rot.seconds:.1f} s; sampler {info['sampler']} (" + " + ".join(
-        info.get("compound_steps", ["NUTS"])) + ")"
-    return {"setup_s": setup, "compile_s": compile_s, "sample_s": sample_s, "gradients": steps_n,
-            "ms_per_gradient": 1000 * sample_s / max(steps_n, 1), "min_ess_G": ess, "max_rhat_G": rhat,
-            "ess_per_s_sampling": ess / sample_s, "ess_per_s_total": ess / total, "total_s": total,
-            "divergences": info["divergences"], "note": note}
+    return _compound_run(model, steps, args, setup, build, f"eigendecomposition {rot.seconds:.1f} s",
+                         numba_opt_level=marginal.NUMBA_OPT_LEVEL)
 
 
 def run_sparse_gibbs(data, args) -> dict:
     """The sparse engine's canonical route on completed records, the missing cells drawn by its
     Gibbs step between NUTS transitions (``model.missing_values: gibbs``; PyMC's sampler)."""
-    from ped2g.fit import sample, sparse
+    from ped2g.fit import sparse
 
-    model_config = _model_config("gibbs")
-    engine = sparse.SparseEngine()
     start = time.perf_counter()
-    built = engine.build(data, model_config)
+    built = sparse.SparseEngine().build(data, _model_config("gibbs"))
     setup = built.timings["sparse_design_seconds"]
     build = time.perf_counter() - start - setup
-    settings = {"chains": args.chains, "warmup": args.warmup, "draws": args.draws, "seed": args.seed,
-                "target_accept": args.target_accept}
-    run = sample.run(built.model, settings, "bench", progress=False, extra_steps=built.extra_steps)
-    info = run.info
-    compile_s = build + (info["compile_seconds"] or 0.0)
-    sample_s = info["sampling_seconds"]
-    steps_n = info["gradient_evaluations"]
-    ess, rhat = _g_summary(np.asarray(run.idata.posterior["G"].values))
-    total = setup + compile_s + sample_s
-    note = f"missing cells: {built.missing_values}; sampler {info['sampler']} (" + " + ".join(
-        info.get("compound_steps", ["NUTS"])) + ")"
-    return {"setup_s": setup, "compile_s": compile_s, "sample_s": sample_s, "gradients": steps_n,
-            "ms_per_gradient": 1000 * sample_s / max(steps_n, 1), "min_ess_G": ess, "max_rhat_G": rhat,
-            "ess_per_s_sampling": ess / sample_s, "ess_per_s_total": ess / total, "total_s": total,
-            "divergences": info["divergences"], "note": note}
+    return _compound_run(built.model, built.extra_steps, args, setup, build,
+                         f"missing cells: {built.missing_values}")
 
 
 def run_nuts(engine: str, data, args) -> dict:
