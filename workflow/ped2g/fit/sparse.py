@@ -133,8 +133,7 @@ def missing_route(data: FitData, model_config: dict) -> tuple[str, str]:
                           "designs without extra random effects; missing cells dropped exactly instead")
     if data.n_traits < 2:
         return "masked", "one trait: a record with a missing cell has no value and drops out"
-    return "gibbs", ("missing cells drawn by a Gibbs step between NUTS transitions, so the likelihood "
-                     "keeps the canonical route (model.missing_values: gibbs)")
+    return "gibbs", "missing cells drawn by a Gibbs step between NUTS transitions (model.missing_values: gibbs)"
 
 
 def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
@@ -237,7 +236,7 @@ class SparseEngine:
                            f"and this process has {memory / 1e9:.1f} GB available")
         if design.canonical:
             cells = "no missing cell" if route == "none" else why_route
-            return True, (f"sparse mixed-model equations by the canonical route (no extra random effect, {cells}): "
+            return True, (f"sparse mixed-model equations by the canonical route (no extra random effect; {cells}): "
                           f"{design.t} one-trait systems of {factored.n_unknowns:,} unknowns, "
                           f"{factored.factor_nnz:,} non-zeros in each factor")
         return True, (f"sparse mixed-model equations: {design.n_unknowns:,} random-effect unknowns, "
