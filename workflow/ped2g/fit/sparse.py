@@ -44,6 +44,7 @@ import numpy as np
 from ..config import with_defaults
 from .data import FitData
 from . import sparse_mme
+from .sparse_augment import complete_design
 
 #: Bytes per non-zero of the factor held during one evaluation: L's values, its selected inverse
 #: and the row indices (8 each), plus the coefficient matrix's entries and terms (about as many).
@@ -100,12 +101,6 @@ def build_model(data: FitData, model_config: dict, design: sparse_mme.Design | N
         structure = [pm.Data(f"mme_{name}", arr) for name, arr in zip(sparse_mme.INPUT_NAMES, arrays)]
         pm.Potential("loglik", sparse_mme_logp(resid, G, R, covs_t, structure, canonical=design.canonical))
     return model
-
-
-def complete_design(data: FitData) -> sparse_mme.Design:
-    from .sparse_augment import complete_design as design
-
-    return design(data)
 
 
 def missing_route(data: FitData, model_config: dict) -> tuple[str, str]:
