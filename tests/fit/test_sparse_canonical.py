@@ -25,7 +25,7 @@ def complete_study(t, seed=5):
     ped = small_pedigree(seed=seed)
     rec = np.concatenate([np.arange(4, ped.n), rng.integers(4, ped.n, 8)])     # 8 repeated records
     obs = np.ones((len(rec), t), dtype=bool)
-    return dict(ped=ped, rec=rec, design=sm.build_design(ped, rec, obs, []), G=random_cov(rng, t),
+    return dict(ped=ped, rec=rec, design=sm.build_design(ped, rec, obs, [], keep_general=True), G=random_cov(rng, t),
                 R=random_cov(rng, t), resid=rng.normal(size=(len(rec), t)))
 
 
@@ -47,6 +47,25 @@ def test_the_route_applies_only_without_extra_effects_and_missing_cells():
     level = np.arange(len(rec)) % 3
     assert not sm.build_design(ped, rec, np.ones((len(rec), 3), bool), [(level, 3)]).canonical
     assert not sm.build_design(ped, rec, np.ones((len(rec), 1), bool), []).canonical
+
+
+def test_a_canonical_design_without_the_general_route_gives_the_same_values():
+    """By default a canonical design skips the t-trait structures a fit never uses: same log-likelihood,
+    gradients and breeding values as the design that keeps them, and a clear refusal of the general
+    route."""
+    s = complete_study(3)
+    full = s["design"]
+    lean = sm.build_design(s["ped"], s["rec"], np.ones((len(s["rec"]), 3), bool), [])
+    assert lean.canonical and not lean.general and full.general
+    assert lean.n_unknowns == full.n_unknowns == 3 * s["ped"].n
+    for a, b in zip(sm.logp_and_grad(lean, s["resid"], s["G"], s["R"])[:4],
+                    sm.logp_and_grad(full, s["resid"], s["G"], s["R"])[:4]):
+        np.testing.assert_array_equal(a, b)
+    noise = np.random.default_rng(1).standard_normal((1, full.n_unknowns))
+    args = (s["resid"][None], s["G"][None], s["R"][None], None, noise)
+    np.testing.assert_array_equal(sm.effects(lean, *args)[0], sm.effects(full, *args)[0])
+    with pytest.raises(ValueError, match="keep_general=True"):
+        sm.logp_and_grad(lean, s["resid"], s["G"], s["R"], canonical=False)
 
 
 @pytest.mark.parametrize("t", [2, 3, 4])
