@@ -256,7 +256,9 @@ def run_nuts(engine: str, data, args) -> dict:
         design = sparse_mme.design_for(data)
         setup = time.perf_counter() - start
         model = sparse.build_model(data, model_config, design)
-        note = f"{design.n_unknowns:,} unknowns, {design.factor_nnz:,} non-zeros in the factor"
+        factored = design.univariate if design.canonical else design
+        note = (f"{'canonical route, one-trait systems of ' if design.canonical else ''}"
+                f"{factored.n_unknowns:,} unknowns, {factored.factor_nnz:,} non-zeros in the factor")
     else:
         from benchmarks.baselines import dense_latent
 
