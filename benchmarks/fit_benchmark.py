@@ -272,6 +272,13 @@ def run_nuts(engine: str, data, args) -> dict:
         start = time.perf_counter()
         compiled = nutpie.compile_pymc_model(model, backend="numba", var_names=["G"])
         compile_s = time.perf_counter() - start
+    if args.progress:        # the fit stage's progress lines, to stderr (a long run shows where it is)
+        import logging
+
+        logging.basicConfig(stream=sys.stderr, level=logging.INFO, format="%(asctime)s %(message)s")
+        progress = sample.ProgressLog(logging.getLogger("fit_benchmark"), f"n = {data.pedigree.n}, {engine}",
+                                      args.chains, args.warmup, args.draws, interval=args.progress)
+        compiled = sample._NutpieProgress(compiled, progress.nutpie_callback, 1000)
     start = time.perf_counter()
     # the BLAS threads the fit stage gives each chain (ped2g.fit.sample.blas_threads)
     with sample.blas_thread_limit(sample.blas_threads(min(args.chains, args.cores))):
@@ -399,6 +406,8 @@ def main(argv=None) -> int:
     parser.add_argument("--kernels-only", action="store_true",
                         help="fit nothing: time the sparse engine's two kernels on each size's design "
                              "(benchmarks/sparse_likelihood.py --phases)")
+    parser.add_argument("--progress", type=float, default=None, metavar="SECONDS",
+                        help="write a progress line of each NUTS run (nutpie) to stderr every SECONDS")
     parser.add_argument("--csv", help="also write the table to this CSV file")
     args = parser.parse_args(argv)
 
