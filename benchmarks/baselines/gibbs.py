@@ -153,12 +153,12 @@ class CanonicalLevels:
 
     def __init__(self, data: FitData):
         from ped2g.fit import sparse_mme
+        from ped2g.fit.sparse_augment import complete_design
 
         if data.random:
             raise ValueError("the Gibbs baseline supports the animal effect only (no extra random effects)")
         self._effects = sparse_mme.effects
-        self.design = sparse_mme.build_design(data.pedigree, data.record_animal,
-                                              np.ones((data.n_records, data.n_traits), dtype=bool), [])
+        self.design = complete_design(data)
         self.X = np.asarray(data.X, dtype=float)
         self.animal = np.asarray(data.record_animal)
         self.q = data.pedigree.n
