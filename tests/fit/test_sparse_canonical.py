@@ -157,5 +157,9 @@ def test_the_engine_says_which_route_it_takes():
     engine = sparse.SparseEngine(memory=8e9)
     ok, why = engine.applies(study(n=150, missing=0.0), {})
     assert ok and "canonical route" in why and "2 one-trait systems" in why
+    # with missing cells: auto keeps the canonical route through the Gibbs step; nuts drops them
+    # exactly on the general route
     ok, why = sparse.SparseEngine(memory=8e9).applies(study(n=150, missing=0.1), {})
-    assert ok and "canonical" not in why
+    assert ok and "canonical route" in why and "Gibbs step" in why
+    ok, why = sparse.SparseEngine(memory=8e9).applies(study(n=150, missing=0.1), {"missing_values": "nuts"})
+    assert ok and "canonical" not in why and "dropped exactly" in why

@@ -10,10 +10,11 @@ coefficient matrix per evaluation, and its gradient from the selected inverse of
 (priors of :mod:`ped2g.fit.priors`, through signed scales and canonical partial correlations, so
 that a variance whose posterior reaches zero does not leave NUTS a long tail of its log-SD) and
 the fixed effects ``beta`` -- kept as parameters rather
-than integrated out, as in the marginal engine. Missing trait cells simply drop out (each record
-contributes ``(R_oo)^-1`` of its observed traits), so no missing-value step is needed; with
-``model.missing_values: gibbs`` an animal model keeps the canonical route below on completed
-records and a Gibbs step draws the missing cells (:mod:`ped2g.fit.sparse_augment`).
+than integrated out, as in the marginal engine. Missing trait cells can simply drop out (each
+record contributes ``(R_oo)^-1`` of its observed traits; ``model.missing_values: nuts``, and always
+with extra random effects); by default (``auto``) an animal model keeps the canonical route below
+on completed records and a Gibbs step draws the missing cells (:mod:`ped2g.fit.sparse_augment`,
+:func:`missing_route`).
 
 With no extra random effect and every cell observed, the likelihood takes the canonical route
 (docs/methods.md §2.14): one ``t x t`` transformation splits the model into ``t`` one-trait
@@ -108,11 +109,15 @@ def missing_route(data: FitData, model_config: dict) -> tuple[str, str]:
     (dropped exactly, general route) or ``"gibbs"`` (the canonical route on completed records, the
     missing cells drawn by a Gibbs step; :mod:`ped2g.fit.sparse_augment`).
 
-    ``model.missing_values: gibbs`` asks for the Gibbs step; it applies to animal models of two or
-    more traits (no extra random effect). ``nuts`` and ``auto`` drop the cells exactly: the Gibbs
-    route's gradient is 9 times cheaper at 100,000 animals, but its whole fits are measured beside
-    the exact route only at 500 animals, where the two give the same ESS per second
-    (benchmarks/README.md)."""
+    The Gibbs step applies to animal models of two or more traits (no extra random effect); there
+    ``auto`` and ``gibbs`` take it, and ``nuts`` keeps the exact route with NUTS alone. Measured side
+    by side on ``fit_benchmark.py``'s design (4 traits, 10% of cells missing; benchmarks/README.md),
+    the Gibbs route gave 1.3 times the masked route's effective samples of G per second at 500
+    animals and 1.7 times at 2,000, everything included: the masked route's general system of
+    ``t n`` unknowns costs more per gradient than ``t`` one-trait ones and the Gibbs step (3.8 times at 2,000 animals), and
+    the gap grows with the pedigree (8.6 times at 100,000). Its chains mix more slowly the larger the
+    share of a trait that is missing (fewer effective samples per draw), which the fit's
+    convergence checks catch."""
     from ..errors import UserError
     from .marginal import MISSING_MODES
 
@@ -121,14 +126,18 @@ def missing_route(data: FitData, model_config: dict) -> tuple[str, str]:
         raise UserError(f"config key 'model.missing_values' is {requested!r}; allowed: {', '.join(MISSING_MODES)}")
     if not data.missing.any():
         return "none", ""
-    if requested != "gibbs":
-        return "masked", "missing cells dropped exactly (each record enters with R of its observed traits)"
+    masked = "missing cells dropped exactly (each record enters with R of its observed traits)"
+    if requested == "nuts":
+        return "masked", masked + " (model.missing_values: nuts)"
     if data.random:
-        return "masked", ("model.missing_values asks for a Gibbs step, which the sparse engine has only for "
-                          "designs without extra random effects; missing cells dropped exactly instead")
+        if requested == "gibbs":
+            return "masked", ("model.missing_values asks for a Gibbs step, which the sparse engine has only for "
+                              "designs without extra random effects; missing cells dropped exactly instead")
+        return "masked", masked
     if data.n_traits < 2:
         return "masked", "one trait: a record with a missing cell has no value and drops out"
-    return "gibbs", "missing cells drawn by a Gibbs step between NUTS transitions (model.missing_values: gibbs)"
+    return "gibbs", (f"missing cells drawn by a Gibbs step between NUTS transitions (model.missing_values: "
+                     f"{requested}), so that the canonical route applies")
 
 
 def data_values(data: FitData, model_config: dict) -> dict[str, np.ndarray]:
