@@ -114,10 +114,10 @@ def missing_route(data: FitData, model_config: dict) -> tuple[str, str]:
     by side on ``fit_benchmark.py``'s design (4 traits, 10% of cells missing; benchmarks/README.md),
     the Gibbs route gave 1.3 times the masked route's effective samples of G per second at 500
     animals and 1.7 times at 2,000, everything included: the masked route's general system of
-    ``t n`` unknowns costs more per gradient than ``t`` one-trait ones and the Gibbs step (3.8 times at 2,000 animals), and
-    the gap grows with the pedigree (8.6 times at 100,000). Its chains mix more slowly the larger the
-    share of a trait that is missing (fewer effective samples per draw), which the fit's
-    convergence checks catch."""
+    ``t n`` unknowns costs more per gradient than ``t`` one-trait ones and the Gibbs step (3.8 times
+    at 2,000 animals), and the gap grows with the pedigree (8.6 times at 100,000). Its chains mix
+    more slowly the larger the share of a trait that is missing (fewer effective samples per draw),
+    which the fit's convergence checks catch."""
     from ..errors import UserError
     from .marginal import MISSING_MODES
 
