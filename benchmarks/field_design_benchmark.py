@@ -31,6 +31,11 @@ level drawn at once from one sparse factorisation per iteration, then each covar
 effects given the levels), ``--chains`` chains of ``--gibbs-warmup`` + ``--gibbs-draws`` iterations
 on ``--cores`` processes; its "gradients" column counts factorisations (iterations).
 
+``--engines hybrid`` adds the candidate of benchmarks/baselines/field_hybrid.py: Gibbs steps for the
+levels of the effects named by ``--gibbs-levels`` (default: every extra effect, and then the missing
+cells too) between NUTS transitions of PyMC's sampler (at ``--target-accept``) for the covariances
+and fixed effects, with the breeding values and the other effects integrated out.
+
 ``--random cohort`` (any of maternal, permanent, cohort) fits only those extra effects.
 
 ``--time-calls`` prints the median time of one log-likelihood with its gradient and of one draw of
@@ -205,6 +210,40 @@ def run_gibbs(data, cfg, args) -> dict:
     return row
 
 
+def run_hybrid(data, cfg, args) -> dict:
+    """The hybrid candidate (benchmarks/baselines/field_hybrid.py): Gibbs steps for the extra levels
+    and missing cells, NUTS for the covariances and fixed effects with the breeding values
+    integrated out by the canonical route; PyMC's sampler at ``--target-accept``."""
+    from benchmarks.baselines import field_hybrid
+    from ped2g.fit import sample
+
+    start = time.perf_counter()
+    model, steps = field_hybrid.build(data, cfg["model"], drawn=args.gibbs_levels)
+    build_s = time.perf_counter() - start
+    settings = {"chains": args.chains, "warmup": args.warmup, "draws": args.draws, "seed": args.seed,
+                "target_accept": args.target_accept, "sampler": "pymc"}
+    run = sample.run(model, settings, "bench", progress=False, extra_steps=steps)
+    info = run.info
+    idata = run.idata
+    iters = args.chains * (args.warmup + args.draws)
+    grads = int(info["gradient_evaluations"])
+    cores = min(args.chains, args.cores)
+    row = {"engine": "hybrid", "free": None, "build_s": build_s, "compile_s": info["compile_seconds"] or 0.0,
+           "sample_s": info["sampling_seconds"], "iterations": iters, "planned": iters, "gradients": grads,
+           "core_ms_per_gradient": 1000 * info["sampling_seconds"] * cores / max(grads, 1),
+           "divergences": int(info["divergences"]), "stopped": False,
+           "reason": f"Gibbs steps for the levels of {args.gibbs_levels or 'every extra effect'} + NUTS",
+           "nutpie_options": {}}
+    row["total_s"] = row["build_s"] + row["compile_s"] + row["sample_s"]
+    if args.save:
+        idata.to_netcdf(f"{args.save}.hybrid.nc")
+    names = ["G", "R", *[f"cov_{e.name}" for e in data.random]]
+    s = summary(idata, names)
+    row.update(ess_bulk=s["ess_bulk"], ess_tail=s["ess_tail"], rhat=s["rhat"], kept=s["kept"], per=s["per"],
+               ess_per_s=s["ess_bulk"] / row["total_s"])
+    return row
+
+
 def time_calls(data, calls: int = 50) -> None:
     from ped2g.fit import sparse_mme
     from ped2g.fit.sample import blas_thread_limit
@@ -245,7 +284,11 @@ def main(argv=None) -> int:
     parser.add_argument("--seed", type=int, default=1)
     parser.add_argument("--blas-threads", type=int, default=None,
                         help="BLAS threads while sampling (default: the fit stage's, CPUs / parallel chains)")
-    parser.add_argument("--engines", nargs="+", default=["sparse", "marginal"], choices=["sparse", "marginal", "gibbs"])
+    parser.add_argument("--engines", nargs="+", default=["sparse", "marginal"], choices=["sparse", "marginal", "gibbs", "hybrid"])
+    parser.add_argument("--gibbs-levels", nargs="+", default=None, choices=["maternal", "permanent", "cohort"],
+                        help="hybrid candidate: the effects whose levels the Gibbs step draws (default: all)")
+    parser.add_argument("--target-accept", type=float, default=0.9,
+                        help="target acceptance of PyMC's NUTS in the hybrid candidate (the fit stage's default)")
     parser.add_argument("--gibbs-warmup", type=int, default=500, help="burn-in iterations per Gibbs chain")
     parser.add_argument("--gibbs-draws", type=int, default=5000, help="kept iterations per Gibbs chain")
     parser.add_argument("--cap-gibbs", type=float, default=1800.0, help="wall-clock cap of each Gibbs chain (s)")
@@ -284,6 +327,8 @@ def main(argv=None) -> int:
     for name in args.engines:
         if name == "gibbs":
             row = run_gibbs(data, cfg, args)
+        elif name == "hybrid":
+            row = run_hybrid(data, cfg, args)
         else:
             row = run_engine(name, data, cfg, args, args.cap_sparse if name == "sparse" else args.cap_marginal)
         row["load"] = os.getloadavg()
