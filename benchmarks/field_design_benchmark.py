@@ -287,6 +287,9 @@ def main(argv=None) -> int:
     parser.add_argument("--engines", nargs="+", default=["sparse", "marginal"], choices=["sparse", "marginal", "gibbs", "hybrid"])
     parser.add_argument("--gibbs-levels", nargs="+", default=None, choices=["maternal", "permanent", "cohort"],
                         help="hybrid candidate: the effects whose levels the Gibbs step draws (default: all)")
+    parser.add_argument("--compound-adaptation", choices=["variance", "gradient"], default=None,
+                        help="hybrid candidate: mass-matrix adaptation of PyMC's NUTS "
+                             "(default: ped2g.fit.sample.COMPOUND_MASS_ADAPTATION)")
     parser.add_argument("--target-accept", type=float, default=0.9,
                         help="target acceptance of PyMC's NUTS in the hybrid candidate (the fit stage's default)")
     parser.add_argument("--gibbs-warmup", type=int, default=500, help="burn-in iterations per Gibbs chain")
@@ -303,6 +306,10 @@ def main(argv=None) -> int:
                         help="extra keyword for nutpie.sample, over the engine's own (YAML value; repeatable), "
                              "e.g. low_rank_modified_mass_matrix=true")
     args = parser.parse_args(argv)
+    if args.compound_adaptation:
+        from ped2g.fit import sample
+
+        sample.COMPOUND_MASS_ADAPTATION = args.compound_adaptation
     if args.save and not Path(args.save).resolve().parent.is_dir():
         parser.error(f"--save {args.save}: folder {Path(args.save).resolve().parent} does not exist")
 

@@ -387,6 +387,9 @@ def main(argv=None) -> int:
     parser.add_argument("--warmup", type=int, default=500)
     parser.add_argument("--draws", type=int, default=500)
     parser.add_argument("--target-accept", type=float, default=0.9)
+    parser.add_argument("--compound-adaptation", choices=["variance", "gradient"], default=None,
+                        help="mass-matrix adaptation of PyMC's NUTS in compound runs (marginal, sparse_gibbs; "
+                             "default: ped2g.fit.sample.COMPOUND_MASS_ADAPTATION)")
     parser.add_argument("--nuts-budget", type=float, default=None,
                         help="seconds of sampling per NUTS run before it stops early (default: none)")
     parser.add_argument("--gibbs-iterations", type=int, default=2000, help="kept Gibbs iterations per chain")
@@ -410,6 +413,10 @@ def main(argv=None) -> int:
                         help="write a progress line of each NUTS run (nutpie) to stderr every SECONDS")
     parser.add_argument("--csv", help="also write the table to this CSV file")
     args = parser.parse_args(argv)
+    if args.compound_adaptation:
+        from ped2g.fit import sample
+
+        sample.COMPOUND_MASS_ADAPTATION = args.compound_adaptation
 
     import pandas as pd
 

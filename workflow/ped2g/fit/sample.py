@@ -272,6 +272,27 @@ def _warm_up_jit(nuts, point: dict) -> None:
     func(DictToArrayBijection.map({v.name: point[v.name] for v in nuts.vars}).data)
 
 
+#: How PyMC's NUTS adapts its diagonal mass matrix in the compound sampler during warm-up:
+#: ``"variance"`` (PyMC's default, the draws' variances in windows) or ``"gradient"`` (PyMC's
+#: experimental ``QuadPotentialDiagAdaptExp`` with gradients, the scheme nutpie uses).
+COMPOUND_MASS_ADAPTATION = "variance"
+
+
+def _compound_potential(nuts_values, start: dict, warmup: int):
+    """The mass-matrix adaptation of :data:`COMPOUND_MASS_ADAPTATION` (None: PyMC's default)."""
+    if COMPOUND_MASS_ADAPTATION == "variance":
+        return None
+    if COMPOUND_MASS_ADAPTATION != "gradient":
+        raise ValueError(f"COMPOUND_MASS_ADAPTATION is {COMPOUND_MASS_ADAPTATION!r}")
+    from pymc.blocking import DictToArrayBijection
+    from pymc.step_methods.hmc import quadpotential
+
+    mean = DictToArrayBijection.map({v.name: start[v.name] for v in nuts_values}).data
+    # as pm.sample's "jitter+adapt_diag_grad": adaptation stops 50 iterations before warm-up ends
+    return quadpotential.QuadPotentialDiagAdaptExp(len(mean), mean, alpha=0.02, use_grads=True,
+                                                   stop_adaptation=warmup - 50 if warmup > 250 else None)
+
+
 def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int, cores: int, seed: int,
                   target_accept: float, progress: bool, callback=None):
     """PyMC's sampler with the engine's steps first, then NUTS on every other free variable."""
@@ -288,8 +309,9 @@ def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int
     # draw) run in PyTensor's Python mode, which compiles nothing (its C backend would compile
     # every new operation with a C compiler the first time, seconds each).
     with model, pytensor.config.change_flags(mode="FAST_COMPILE"):
-        nuts = pm.NUTS(vars=[model.rvs_to_values[rv] for rv in nuts_rvs], target_accept=target_accept,
-                       compile_kwargs={"mode": "NUMBA"})
+        nuts_values = [model.rvs_to_values[rv] for rv in nuts_rvs]
+        nuts = pm.NUTS(vars=nuts_values, target_accept=target_accept, compile_kwargs={"mode": "NUMBA"},
+                       potential=_compound_potential(nuts_values, model.initial_point(), warmup))
         _warm_up_jit(nuts, model.initial_point())
         starts = _jittered_starts(model, nuts_rvs, chains, seed)
         compile_seconds = time.perf_counter() - start
