@@ -226,3 +226,23 @@ def test_no_progress_lines_under_a_visible_progress_bar(caplog, monkeypatch):
     with caplog.at_level(logging.INFO, logger="ped2g.test_progress"):
         sample.run(model, settings, "tiny", progress=True, log=log, progress_interval=0.01)
     assert not [r for r in caplog.records if r.name == "ped2g.test_progress"]
+
+
+def test_compound_mass_adaptation_switch(monkeypatch):
+    """PyMC's default windowed variance adaptation unless the gradient-based one is asked for
+    (a benchmark option, measured in benchmarks/README.md); an unknown name is an error."""
+    import pymc as pm
+    from pymc.step_methods.hmc import quadpotential
+
+    with pm.Model() as model:
+        pm.Normal("x", shape=3)
+    values = model.value_vars
+    start = {"x": np.array([1.0, 2.0, 3.0])}
+    assert sample._compound_potential(values, start, 300) is None
+    monkeypatch.setattr(sample, "COMPOUND_MASS_ADAPTATION", "gradient")
+    pot = sample._compound_potential(values, start, 300)
+    assert isinstance(pot, quadpotential.QuadPotentialDiagAdaptExp)
+    assert pot._use_grads and pot._stop_adaptation == 250   # as pm.sample's "jitter+adapt_diag_grad"
+    monkeypatch.setattr(sample, "COMPOUND_MASS_ADAPTATION", "windowed")
+    with pytest.raises(ValueError, match="windowed"):
+        sample._compound_potential(values, start, 300)
