@@ -211,9 +211,10 @@ def run_gibbs(data, cfg, args) -> dict:
 
 
 def run_hybrid(data, cfg, args) -> dict:
-    """The hybrid candidate (benchmarks/baselines/field_hybrid.py): Gibbs steps for the extra levels
-    and missing cells, NUTS for the covariances and fixed effects with the breeding values
-    integrated out by the canonical route; PyMC's sampler at ``--target-accept``."""
+    """The hybrid candidate (benchmarks/baselines/field_hybrid.py): Gibbs steps for the levels of
+    ``--gibbs-levels`` (with every level drawn, also the missing cells), NUTS for the covariances and
+    fixed effects with the breeding values and the other effects integrated out; PyMC's sampler at
+    ``--target-accept``."""
     from benchmarks.baselines import field_hybrid
     from ped2g.fit import sample
 
@@ -306,6 +307,9 @@ def main(argv=None) -> int:
                         help="extra keyword for nutpie.sample, over the engine's own (YAML value; repeatable), "
                              "e.g. low_rank_modified_mass_matrix=true")
     args = parser.parse_args(argv)
+    if args.gibbs_levels and not set(args.gibbs_levels) <= set(args.random):
+        parser.error(f"--gibbs-levels {' '.join(args.gibbs_levels)}: only effects in the model can be drawn "
+                     f"(--random {' '.join(args.random)})")
     if args.compound_adaptation:
         from ped2g.fit import sample
 

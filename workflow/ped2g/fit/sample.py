@@ -310,9 +310,10 @@ def _run_compound(model, extra_steps: list, chains: int, warmup: int, draws: int
     # every new operation with a C compiler the first time, seconds each).
     with model, pytensor.config.change_flags(mode="FAST_COMPILE"):
         nuts_values = [model.rvs_to_values[rv] for rv in nuts_rvs]
+        initial = model.initial_point()
         nuts = pm.NUTS(vars=nuts_values, target_accept=target_accept, compile_kwargs={"mode": "NUMBA"},
-                       potential=_compound_potential(nuts_values, model.initial_point(), warmup))
-        _warm_up_jit(nuts, model.initial_point())
+                       potential=_compound_potential(nuts_values, initial, warmup))
+        _warm_up_jit(nuts, initial)
         starts = _jittered_starts(model, nuts_rvs, chains, seed)
         compile_seconds = time.perf_counter() - start
         start = time.perf_counter()
